@@ -1,0 +1,372 @@
+package calibrate
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"sort"
+
+	"gonum.org/v1/gonum/mat"
+
+	"lineshot/calibrate/lsq"
+)
+
+// ErrTooFewLines is returned when fewer calibration points are given than
+// any dispersion model needs.
+var ErrTooFewLines = errors.New("calibrate: too few identified lines for a dispersion fit")
+
+// Point is one calibration point: a measured position and the air
+// wavelength of the reference line identified there.
+type Point struct {
+	PX      float64 // position along the profile, px
+	SigmaPX float64 // its 1σ uncertainty, px
+	NM      float64 // reference air wavelength, nm
+	Line    string  // reference line name
+}
+
+// Model names.
+const (
+	ModelPoly1   = "poly1"
+	ModelPoly2   = "poly2"
+	ModelPoly3   = "poly3"
+	ModelGrating = "grating"
+)
+
+// Dispersion maps a profile position to an air wavelength.
+//
+// Polynomial models: λ = Σ Params[k]·t^k with t = (p − Center)/Scale.
+//
+// The grating model is a plane transmission grating at normal incidence seen
+// by a pinhole camera whose axis makes angle α with the grating normal and
+// whose principal point lies at profile position Center. With x = p − Center
+// the grating equation gives λ = D·sin(α + atan(x/F)) (D = d/m, F the focal
+// length in px), which rearranges to
+//
+//	λ = (a + b·t) / sqrt(1 + c·t²),  t = x/Scale,
+//
+// with a = D sin α, b = D cos α·Scale/F and c = (Scale/F)². Params holds
+// [a, b, c]: linear in a and b and well conditioned, unlike [D, α, F].
+// Physical returns D, α and F.
+type Dispersion struct {
+	Model     string      `json:"model"`
+	Params    []float64   `json:"params"`
+	Cov       [][]float64 `json:"covariance"` // parameter covariance, scaled by Birge² when it exceeds 1
+	Center    float64     `json:"center_px"`
+	Scale     float64     `json:"scale_px,omitempty"`
+	ChiSq     float64     `json:"chi2"`
+	DOF       int         `json:"dof"`
+	Birge     float64     `json:"birge_ratio"` // sqrt(χ²/DOF); 1 when DOF is 0
+	AICc      float64     `json:"aicc"`
+	RMSNM     float64     `json:"rms_nm"`
+	MinPX     float64     `json:"min_px"` // calibrated range
+	MaxPX     float64     `json:"max_px"`
+	Residuals []Residual  `json:"residuals"`
+	Compared  []ModelFit  `json:"models_compared,omitempty"`
+}
+
+// Residual is the fit's residual at one calibration point.
+type Residual struct {
+	Line    string  `json:"line"`
+	RefNM   float64 `json:"ref_nm"`
+	PX      float64 `json:"px"`
+	FitNM   float64 `json:"fit_nm"`
+	ResidNM float64 `json:"resid_nm"` // reference − fit
+	ResidPX float64 `json:"resid_px"`
+}
+
+// ModelFit summarises one candidate model of a model choice.
+type ModelFit struct {
+	Model string  `json:"model"`
+	ChiSq float64 `json:"chi2"`
+	DOF   int     `json:"dof"`
+	AICc  float64 `json:"aicc"`
+	RMSNM float64 `json:"rms_nm"`
+}
+
+// Wavelength returns the air wavelength at profile position p, nm.
+func (d Dispersion) Wavelength(p float64) float64 { return d.eval(p, d.Params, nil) }
+
+// Slope returns dλ/dp at p, nm/px.
+func (d Dispersion) Slope(p float64) float64 {
+	const h = 1e-3
+	return (d.Wavelength(p+h) - d.Wavelength(p-h)) / (2 * h)
+}
+
+// Sigma returns the 1σ uncertainty of the wavelength at p for a position
+// known to sigmaPX: the calibration's own uncertainty (which grows outside
+// the calibrated range) added in quadrature to the position's.
+func (d Dispersion) Sigma(p, sigmaPX float64) float64 {
+	c := d.Covariance([]float64{p}, []float64{sigmaPX})
+	return math.Sqrt(c.At(0, 0))
+}
+
+// Covariance returns the covariance matrix of the wavelengths at positions
+// ps with independent position uncertainties sps. Off-diagonal terms come
+// from the shared calibration; they matter when the wavelengths are fitted
+// together, as in the Rydberg fit.
+func (d Dispersion) Covariance(ps, sps []float64) *mat.SymDense {
+	k := len(d.Params)
+	g := make([][]float64, len(ps))
+	for i, p := range ps {
+		g[i] = make([]float64, k)
+		d.eval(p, d.Params, g[i])
+	}
+	c := mat.NewSymDense(len(ps), nil)
+	for i := range ps {
+		for j := i; j < len(ps); j++ {
+			var s float64
+			for a := 0; a < k; a++ {
+				for b := 0; b < k; b++ {
+					s += g[i][a] * d.Cov[a][b] * g[j][b]
+				}
+			}
+			if i == j {
+				sl := d.Slope(ps[i]) * sps[i]
+				s += sl * sl
+			}
+			c.SetSym(i, j, s)
+		}
+	}
+	return c
+}
+
+// eval computes λ(p) for params and writes ∂λ/∂params into grad if not nil.
+func (d Dispersion) eval(p float64, params, grad []float64) float64 {
+	if d.Model == ModelGrating {
+		a, b, c := params[0], params[1], params[2]
+		t := (p - d.Center) / d.Scale
+		q := 1 + c*t*t
+		if q <= 0 {
+			return math.NaN()
+		}
+		s := math.Sqrt(q)
+		v := (a + b*t) / s
+		if grad != nil {
+			grad[0] = 1 / s
+			grad[1] = t / s
+			grad[2] = -v * t * t / (2 * q)
+		}
+		return v
+	}
+	t := (p - d.Center) / d.Scale
+	var v, tk float64 = 0, 1
+	for k, c := range params {
+		v += c * tk
+		if grad != nil {
+			grad[k] = tk
+		}
+		tk *= t
+	}
+	return v
+}
+
+// FitOptions tunes FitDispersion. The zero value is usable.
+type FitOptions struct {
+	// Model forces one model ("poly1".."poly3", "grating"); "" chooses the
+	// model with the smallest AICc among those the points can support.
+	Model string
+	// OpticalCenterPX is the profile position nearest the camera's principal
+	// point, used by the grating model; NaN or 0 with no better knowledge
+	// means the middle of the calibrated range.
+	OpticalCenterPX float64
+	// RefSigmaNM is the uncertainty given to each reference wavelength; 0
+	// means 0.001 nm (lamp-type and hyperfine spread of Hg lines are below
+	// this, REFERENCE-DATA.md section 1).
+	RefSigmaNM float64
+}
+
+// FitDispersion fits every model the points support and returns the chosen
+// one, with the others' summaries in Compared. It returns ErrTooFewLines
+// for fewer than 2 points.
+func FitDispersion(pts []Point, opt FitOptions) (Dispersion, error) {
+	if len(pts) < 2 {
+		return Dispersion{}, fmt.Errorf("%w: %d given, at least 2 needed", ErrTooFewLines, len(pts))
+	}
+	pts = append([]Point(nil), pts...)
+	sort.Slice(pts, func(i, j int) bool { return pts[i].PX < pts[j].PX })
+	models := []string{ModelPoly1, ModelPoly2, ModelPoly3, ModelGrating}
+	if opt.Model != "" {
+		models = []string{opt.Model}
+	}
+	var fits []Dispersion
+	var firstErr error
+	for _, m := range models {
+		k := 3
+		switch m {
+		case ModelPoly1:
+			k = 2
+		case ModelPoly3:
+			k = 4
+		}
+		if len(pts) < k {
+			continue
+		}
+		d, err := fitModel(pts, m, opt)
+		if err != nil {
+			if firstErr == nil {
+				firstErr = err
+			}
+			continue
+		}
+		fits = append(fits, d)
+	}
+	if len(fits) == 0 {
+		if firstErr != nil {
+			return Dispersion{}, firstErr
+		}
+		return Dispersion{}, fmt.Errorf("%w: %d given for model %s", ErrTooFewLines, len(pts), opt.Model)
+	}
+	// Prefer the physical model on a near tie: it extrapolates by physics
+	// rather than by polynomial.
+	score := func(f Dispersion) float64 {
+		if f.Model == ModelGrating {
+			return f.AICc - 2
+		}
+		return f.AICc
+	}
+	best := 0
+	for i, f := range fits {
+		if score(f) < score(fits[best]) {
+			best = i
+		}
+	}
+	out := fits[best]
+	for _, f := range fits {
+		out.Compared = append(out.Compared, ModelFit{Model: f.Model, ChiSq: f.ChiSq, DOF: f.DOF, AICc: f.AICc, RMSNM: f.RMSNM})
+	}
+	return out, nil
+}
+
+// fitModel fits one model. Position errors are carried into wavelength
+// errors through the local slope (effective variance), iterated twice.
+func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
+	n := len(pts)
+	refSig := opt.RefSigmaNM
+	if refSig == 0 {
+		refSig = 0.001
+	}
+	lo, hi := pts[0].PX, pts[n-1].PX
+	d := Dispersion{Model: model, MinPX: lo, MaxPX: hi, Center: (lo + hi) / 2, Scale: math.Max((hi-lo)/2, 1)}
+	y := make([]float64, n)
+	for i, p := range pts {
+		y[i] = p.NM
+	}
+	// A straight line through the points starts both the slopes and the
+	// nonlinear fit.
+	lin, err := polyFit(pts, 1, d.Center, d.Scale, nil)
+	if err != nil {
+		return Dispersion{}, err
+	}
+	slope := func(p float64) float64 { return lin[1] / d.Scale }
+	var init []float64
+	switch model {
+	case ModelPoly1, ModelPoly2, ModelPoly3:
+		init = make([]float64, map[string]int{ModelPoly1: 2, ModelPoly2: 3, ModelPoly3: 4}[model])
+	case ModelGrating:
+		if n < 3 {
+			return Dispersion{}, fmt.Errorf("%w: the grating model needs 3 lines", ErrTooFewLines)
+		}
+		c := opt.OpticalCenterPX
+		if c == 0 || math.IsNaN(c) {
+			c = d.Center
+		}
+		d.Center = c
+		d.Scale = math.Max(math.Max(math.Abs(hi-c), math.Abs(lo-c)), 1)
+		q, err := polyFit(pts, 2, c, d.Scale, nil)
+		if err != nil {
+			return Dispersion{}, err
+		}
+		// (a + bt)(1 − ct²/2 + …) = a + bt − (ac/2)t² + …
+		cc := 0.01
+		if q[0] != 0 && -2*q[2]/q[0] > 0 {
+			cc = -2 * q[2] / q[0]
+		}
+		init = []float64{q[0], q[1], cc}
+	default:
+		return Dispersion{}, fmt.Errorf("calibrate: unknown dispersion model %q", model)
+	}
+	sig := make([]float64, n)
+	var res lsq.Result
+	for iter := 0; iter < 2; iter++ {
+		for i, p := range pts {
+			s := slope(p.PX) * p.SigmaPX
+			sig[i] = math.Sqrt(s*s + refSig*refSig)
+		}
+		dd := d
+		res, err = lsq.Fit(lsq.Problem{Y: y, Sigma: sig, Model: func(i int, params, grad []float64) float64 {
+			return dd.eval(pts[i].PX, params, grad)
+		}}, init)
+		if err != nil {
+			return Dispersion{}, fmt.Errorf("calibrate: %s fit: %w", model, err)
+		}
+		init = res.Params
+		d.Params = res.Params
+		slope = d.Slope
+	}
+	k := len(d.Params)
+	d.ChiSq, d.DOF = res.ChiSq, res.DOF
+	d.Birge = 1
+	if d.DOF > 0 {
+		d.Birge = math.Sqrt(d.ChiSq / float64(d.DOF))
+	}
+	scale := math.Max(1, d.Birge*d.Birge)
+	d.Cov = make([][]float64, k)
+	for a := range d.Cov {
+		d.Cov[a] = make([]float64, k)
+		for b := range d.Cov[a] {
+			d.Cov[a][b] = res.Cov.At(a, b) * scale
+		}
+	}
+	d.AICc = d.ChiSq + 2*float64(k)
+	if n-k-1 > 0 {
+		d.AICc += 2 * float64(k*(k+1)) / float64(n-k-1)
+	} else {
+		d.AICc = math.Inf(1) // no degrees of freedom left to judge the model
+	}
+	var ss float64
+	for _, p := range pts {
+		f := d.Wavelength(p.PX)
+		r := p.NM - f
+		ss += r * r
+		d.Residuals = append(d.Residuals, Residual{Line: p.Line, RefNM: p.NM, PX: p.PX, FitNM: f, ResidNM: r, ResidPX: r / d.Slope(p.PX)})
+	}
+	d.RMSNM = math.Sqrt(ss / float64(n))
+	return d, nil
+}
+
+// polyFit is an unweighted (or weighted, when sig is not nil) linear
+// least-squares polynomial fit in t = (p − center)/scale.
+func polyFit(pts []Point, deg int, center, scale float64, sig []float64) ([]float64, error) {
+	n, k := len(pts), deg+1
+	a := mat.NewDense(n, k, nil)
+	b := mat.NewVecDense(n, nil)
+	for i, p := range pts {
+		w := 1.0
+		if sig != nil {
+			w = 1 / sig[i]
+		}
+		t, tk := (p.PX-center)/scale, 1.0
+		for j := 0; j < k; j++ {
+			a.Set(i, j, w*tk)
+			tk *= t
+		}
+		b.SetVec(i, w*p.NM)
+	}
+	var x mat.VecDense
+	if err := x.SolveVec(a, b); err != nil {
+		return nil, fmt.Errorf("calibrate: polynomial fit: %w", err)
+	}
+	return x.RawVector().Data, nil
+}
+
+// Physical returns the grating model's D = d/m (nm), α (degrees) and F
+// (px), and false for a polynomial model or an unphysical fit (c ≤ 0).
+func (d Dispersion) Physical() (dNM, alphaDeg, focalPX float64, ok bool) {
+	if d.Model != ModelGrating || len(d.Params) != 3 || d.Params[2] <= 0 {
+		return 0, 0, 0, false
+	}
+	a, b, c := d.Params[0], d.Params[1], d.Params[2]
+	f := d.Scale / math.Sqrt(c)
+	dc := math.Abs(b) * f / d.Scale // D cos α; the sign of b is the direction of dispersion
+	return math.Hypot(a, dc), math.Atan2(a, dc) * 180 / math.Pi, f, true
+}
