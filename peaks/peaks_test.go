@@ -1,0 +1,126 @@
+package peaks
+
+import (
+	"math"
+	"math/rand/v2"
+	"testing"
+)
+
+type line struct{ center, amp, sigma float64 }
+
+// synth returns Gaussians on a sloping baseline with white noise.
+func synth(n int, lines []line, noise float64, seed uint64) []float64 {
+	rng := rand.New(rand.NewPCG(seed, 7))
+	y := make([]float64, n)
+	for i := range y {
+		x := float64(i)
+		y[i] = 20 + 0.01*x + noise*rng.NormFloat64()
+		for _, l := range lines {
+			d := (x - l.center) / l.sigma
+			y[i] += l.amp * math.Exp(-d*d/2)
+		}
+	}
+	return y
+}
+
+func TestFindRecoversKnownLines(t *testing.T) {
+	truth := []line{{100.3, 500, 1.3}, {250.77, 80, 1.6}, {420.5, 1000, 2.2}, {431.2, 300, 2.2}, {700.05, 40, 1.2}}
+	y := synth(1000, truth, 2, 1)
+	r, err := Find(y, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(r.Peaks) != len(truth) {
+		t.Fatalf("found %d peaks, want %d: %+v", len(r.Peaks), len(truth), r.Peaks)
+	}
+	if math.Abs(r.Noise-2) > 0.3 {
+		t.Errorf("noise %.3f, truth 2", r.Noise)
+	}
+	for k, p := range r.Peaks {
+		tr := truth[k]
+		if d := math.Abs(p.Center - tr.center); d > 4*p.Sigma || d > 0.15 {
+			t.Errorf("line at %.2f: centre %.3f ± %.3f", tr.center, p.Center, p.Sigma)
+		}
+		if math.Abs(p.FWHM/(tr.sigma*fwhmPerSigma)-1) > 0.15 {
+			t.Errorf("line at %.2f: FWHM %.2f, truth %.2f", tr.center, p.FWHM, tr.sigma*fwhmPerSigma)
+		}
+	}
+}
+
+// No line in pure noise: at 5σ prominence the false-alarm count over
+// 20 000 samples stays at zero or near it.
+func TestFindNoFalseLinesInNoise(t *testing.T) {
+	y := synth(20000, nil, 3, 2)
+	r, err := Find(y, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(r.Peaks) > 2 {
+		t.Errorf("%d peaks found in pure noise", len(r.Peaks))
+	}
+}
+
+// The reported σ must match the scatter over repeated noise draws.
+func TestCentreUncertaintyIsHonest(t *testing.T) {
+	const trials = 300
+	var sumSq, sumSig2 float64
+	for s := 0; s < trials; s++ {
+		y := synth(200, []line{{100.37, 100, 1.5}}, 3, uint64(100+s))
+		r, err := Find(y, Options{})
+		if err != nil || len(r.Peaks) != 1 {
+			t.Fatalf("trial %d: %v %d peaks", s, err, len(r.Peaks))
+		}
+		d := r.Peaks[0].Center - 100.37
+		sumSq += d * d
+		sumSig2 += r.Peaks[0].Sigma * r.Peaks[0].Sigma
+	}
+	ratio := math.Sqrt(sumSig2 / sumSq)
+	if ratio < 0.85 || ratio > 1.3 {
+		t.Errorf("reported σ / observed scatter = %.3f", ratio)
+	}
+}
+
+func TestSaturatedPeakIsFlaggedAndUnbiased(t *testing.T) {
+	y := synth(300, []line{{150.4, 1000, 2}}, 1, 3)
+	clip := make([]bool, len(y))
+	for i := range y {
+		if y[i] > 600 {
+			y[i], clip[i] = 600, true
+		}
+	}
+	r, err := Find(y, Options{Clipped: clip})
+	if err != nil || len(r.Peaks) != 1 {
+		t.Fatalf("%v, %d peaks", err, len(r.Peaks))
+	}
+	p := r.Peaks[0]
+	if !p.Saturated || math.Abs(p.Center-150.4) > 0.1 {
+		t.Errorf("saturated peak: centre %.3f (truth 150.4), flagged %v", p.Center, p.Saturated)
+	}
+}
+
+func TestFindRejectsBadInput(t *testing.T) {
+	if _, err := Find([]float64{1, 2}, Options{}); err == nil {
+		t.Error("short profile accepted")
+	}
+	y := make([]float64, 20)
+	y[3] = math.NaN()
+	if _, err := Find(y, Options{}); err == nil {
+		t.Error("NaN accepted")
+	}
+}
+
+func TestProminenceMatchesDefinition(t *testing.T) {
+	// Worked by hand: maxima at 2 (height 5) and 6 (height 3).
+	y := []float64{0, 1, 5, 2, 2.5, 1, 3, 0}
+	idx := LocalMaxima(y)
+	if len(idx) != 3 || idx[0] != 2 || idx[1] != 4 || idx[2] != 6 {
+		t.Fatalf("maxima %v", idx)
+	}
+	p := Prominences(y, idx)
+	want := []float64{5, 0.5, 2}
+	for k := range want {
+		if math.Abs(p[k]-want[k]) > 1e-12 {
+			t.Errorf("prominence of %d = %g, want %g", idx[k], p[k], want[k])
+		}
+	}
+}
