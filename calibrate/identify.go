@@ -29,9 +29,12 @@ type Identification struct {
 	Lamp    string
 	Matches []Match // sorted by peak position
 	// Score in [0, 1]: the product of the share of the lamp's strength (over
-	// the lines expected in frame) that was found and the share of the
-	// photo's peak height that the matches explain.
+	// the lines expected in frame) that was found, the share of the photo's
+	// peak height that the matches explain, 1/(1 + (RMSPX/0.3 px)²), and
+	// min(1, (matches − 2)/3).
 	Score float64
+	// RMSPX is the rms residual of the matches about a smooth dispersion, px.
+	RMSPX float64
 }
 
 // Pin forces the peak nearest PX to be the reference line at NM.
@@ -113,19 +116,35 @@ func Identify(peaks []Peak, lamp Lamp, opt IdentifyOptions) (Identification, err
 	if best.score < 0 || len(best.matches) < need {
 		return Identification{}, fmt.Errorf("%w: %s lamp, %d peaks", ErrNoMatch, lamp.Name, len(peaks))
 	}
-	// Refine: refit to all matches and re-match with a tighter tolerance.
-	for iter := 0; iter < 3; iter++ {
+	// Refine: refit to all matches and re-match with tighter tolerances.
+	final := mapping{}
+	final.fit(peaks, best.matches)
+	for iter, t := range []float64{math.Max(2, 0.004*span), math.Max(1, 0.0015*span), math.Max(1, 0.0015*span)} {
 		var m mapping
 		if !m.fit(peaks, best.matches) {
 			break
 		}
-		s := h.score(m, math.Max(2, 0.004*span), opt.Pins)
-		if len(s.matches) < len(best.matches) {
+		s := h.score(m, t, opt.Pins)
+		if len(s.matches) < need || (iter == 0 && len(s.matches) < len(best.matches)) {
 			break
 		}
 		best = s
+		final = m
+		final.fit(peaks, best.matches)
 	}
-	out := Identification{Lamp: lamp.Name, Matches: best.matches, Score: h.share(best)}
+	// A true assignment leaves residuals of a fraction of a pixel; chance
+	// matches of a dense lamp leave about a pixel. Weigh the score by that,
+	// and by how many lines beyond the three that any parabola fits agree.
+	var ss float64
+	for _, mt := range best.matches {
+		p := peaks[mt.Peak].PX
+		r := (final.at(p) - mt.Line.NM) / final.slope(p)
+		ss += r * r
+	}
+	rms := math.Sqrt(ss / float64(len(best.matches)))
+	q := 1 / (1 + (rms/0.3)*(rms/0.3))
+	extra := math.Min(1, float64(len(best.matches)-2)/3)
+	out := Identification{Lamp: lamp.Name, Matches: best.matches, Score: h.share(best) * q * extra, RMSPX: rms}
 	sort.Slice(out.Matches, func(a, b int) bool { return peaks[out.Matches[a].Peak].PX < peaks[out.Matches[b].Peak].PX })
 	return out, nil
 }
@@ -168,15 +187,18 @@ func Assign(nm, sigmaNM []float64, lamp Lamp, tolNM float64) []Match {
 	return out
 }
 
-// mapping is a quadratic λ(p) = c0 + c1·t + c2·t², t = p − p0.
-type mapping struct{ p0, c0, c1, c2 float64 }
+// mapping is a cubic λ(p) = c0 + c1·t + c2·t² + c3·t³, t = p − p0.
+type mapping struct{ p0, c0, c1, c2, c3 float64 }
 
 func (m mapping) at(p float64) float64 {
 	t := p - m.p0
-	return m.c0 + m.c1*t + m.c2*t*t
+	return m.c0 + t*(m.c1+t*(m.c2+t*m.c3))
 }
 
-func (m mapping) slope(p float64) float64 { return m.c1 + 2*m.c2*(p-m.p0) }
+func (m mapping) slope(p float64) float64 {
+	t := p - m.p0
+	return m.c1 + t*(2*m.c2+3*m.c3*t)
+}
 
 // through sets m to the curve through the given peaks and lines (two: a
 // line; three: a parabola). It reports false for coincident positions.
@@ -202,27 +224,35 @@ func (m *mapping) through(peaks []Peak, ps []int, refs []Line, ls []int) bool {
 	return true
 }
 
-// fit sets m to the least-squares quadratic (a line for two matches)
-// through the matched peaks.
+// fit sets m to the least-squares polynomial through the matched peaks:
+// a line for fewer than 4, a parabola for fewer than 6, else a cubic.
 func (m *mapping) fit(peaks []Peak, ms []Match) bool {
-	pts := make([]Point, len(ms))
-	for i, mt := range ms {
-		pts[i] = Point{PX: peaks[mt.Peak].PX, NM: mt.Line.NM}
-	}
-	deg := 2
-	if len(pts) < 4 {
-		deg = 1
-	}
-	if len(pts) < 2 {
+	if len(ms) < 2 {
 		return false
 	}
-	c, err := polyFit(pts, deg, 0, 1, nil)
+	pts := make([]Point, len(ms))
+	var mean float64
+	for i, mt := range ms {
+		pts[i] = Point{PX: peaks[mt.Peak].PX, NM: mt.Line.NM}
+		mean += pts[i].PX / float64(len(ms))
+	}
+	deg := 3
+	switch {
+	case len(pts) < 4:
+		deg = 1
+	case len(pts) < 6:
+		deg = 2
+	}
+	c, err := polyFit(pts, deg, mean, 1, nil)
 	if err != nil {
 		return false
 	}
-	*m = mapping{c0: c[0], c1: c[1]}
-	if deg == 2 {
+	*m = mapping{p0: mean, c0: c[0], c1: c[1]}
+	if deg >= 2 {
 		m.c2 = c[2]
+	}
+	if deg == 3 {
+		m.c3 = c[3]
 	}
 	return true
 }

@@ -43,6 +43,13 @@ type Rydberg struct {
 	DevRInfPct float64 `json:"deviation_r_inf_percent"`
 	EnergyEV   float64 `json:"ground_state_ev"` // h c R
 	EnergySig  float64 `json:"ground_state_err_ev"`
+	// RRef is the same fit applied to the NIST reference wavelengths of the
+	// same lines: what a perfect measurement gives. It lies about 1.2e-5
+	// above R_H because the Bohr formula ignores fine structure and QED
+	// shifts (REFERENCE-DATA.md section 2); a measurement more precise than
+	// that should be judged against RRef.
+	RRef        float64 `json:"r_reference_lines_per_m"`
+	DevRefSigma float64 `json:"deviation_from_reference_sigma"`
 }
 
 // FitRydberg converts the air wavelengths to vacuum (AirToVacuum) and fits
@@ -103,6 +110,16 @@ func FitRydberg(lines []Balmer, cov *mat.SymDense) (Rydberg, error) {
 		if err == nil {
 			out.Intercept, out.InterceptSigma = b2[0], math.Sqrt(c2.At(0, 0))
 			out.SlopeFree, out.SlopeFreeSigma = b2[1], math.Sqrt(c2.At(1, 1))
+		}
+	}
+	var ref []float64
+	for _, l := range lines {
+		ref = append(ref, referenceBalmer(l.N))
+	}
+	if refY := balmerY(ref); !math.IsNaN(refY[0]) {
+		if b, _, _, err := gls(&ch, out.X, refY, false); err == nil {
+			out.RRef = b[0]
+			out.DevRefSigma = (out.R - out.RRef) / out.Sigma
 		}
 	}
 	out.DevSigma = (out.R - out.RH) / out.Sigma
@@ -167,4 +184,29 @@ func gls(ch *mat.Cholesky, x, y []float64, intercept bool) ([]float64, *mat.SymD
 		return nil, nil, 0, err
 	}
 	return beta.RawVector().Data, cov, mat.Dot(&r, &cir), nil
+}
+
+// referenceBalmer returns the NIST air wavelength of Balmer line n, or NaN
+// when the built-in table lacks it.
+func referenceBalmer(n int) float64 {
+	for _, l := range Hydrogen().Lines {
+		if l.N == n {
+			return l.NM
+		}
+	}
+	return math.NaN()
+}
+
+// balmerY returns 1/λ_vac in m⁻¹ for air wavelengths in nm; NaN in, NaN
+// out in the first element.
+func balmerY(airNM []float64) []float64 {
+	y := make([]float64, len(airNM))
+	for i, a := range airNM {
+		if math.IsNaN(a) {
+			y[0] = math.NaN()
+			return y
+		}
+		y[i] = 1 / (AirToVacuum(a) * 1e-9)
+	}
+	return y
 }

@@ -36,8 +36,10 @@ type Peak struct {
 // Options tunes Find. The zero value is usable.
 type Options struct {
 	// MinSNR is the least height above the baseline, and the least
-	// prominence, in units of the smoothed profile's noise; 0 means 5
-	// (a false-alarm probability of about 3e-7 per sample for Gaussian noise).
+	// prominence, in units of the smoothed profile's noise, for a maximum
+	// to be a candidate (a false-alarm probability of about 3e-7 per sample
+	// for white Gaussian noise), and the least fitted height in units of
+	// the profile's noise for a line to be reported. 0 means 5.
 	MinSNR float64
 	// MinSeparation is the least distance between two reported peaks, in
 	// samples; the lower of two closer maxima is dropped. 0 means 2.
@@ -102,7 +104,7 @@ func Find(profile []float64, opt Options) (Result, error) {
 			base[i] += off
 		}
 	}
-	noise := Noise(y)
+	noise := math.Max(Noise(y), LevelNoise(y))
 	res := Result{Baseline: base, Noise: noise}
 	if noise == 0 {
 		noise = 1e-12 * (1 + maxAbs(y))
@@ -122,6 +124,12 @@ func Find(profile []float64, opt Options) (Result, error) {
 	for _, k := range keep {
 		p := measure(y, cands[k], noise, opt.Clipped, neighbours(cands, keep, k))
 		p.Prominence = prom[k]
+		// Report only what is a line: as high as asked once fitted, wider
+		// than a single-sample spike, and placed to better than half its
+		// width.
+		if p.SNR < minSNR || p.FWHM < 0.8 || p.Sigma > p.FWHM/2 {
+			continue
+		}
 		res.Peaks = append(res.Peaks, p)
 	}
 	sort.Slice(res.Peaks, func(a, b int) bool { return res.Peaks[a].Center < res.Peaks[b].Center })

@@ -63,6 +63,22 @@ func Noise(y []float64) float64 {
 	return 1.4826 * median(d) / math.Sqrt2
 }
 
+// LevelNoise returns 1.4826·MAD of y about its median: a robust σ of the
+// background level that, unlike Noise, also counts noise correlated
+// between neighbouring samples (JPEG blocks, interpolation), provided lines
+// and baseline wander cover well under half of the samples.
+func LevelNoise(y []float64) float64 {
+	if len(y) < 3 {
+		return 0
+	}
+	med := median(y)
+	d := make([]float64, len(y))
+	for i, v := range y {
+		d[i] = math.Abs(v - med)
+	}
+	return 1.4826 * median(d)
+}
+
 func median(v []float64) float64 {
 	s := append([]float64(nil), v...)
 	sort.Float64s(s)

@@ -1,0 +1,125 @@
+// Command lineshot measures emission-line wavelengths in photographs of
+// spectra and fits the Rydberg constant to hydrogen's Balmer lines.
+//
+// Run "lineshot help" for the commands.
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"os/signal"
+
+	"github.com/spf13/pflag"
+)
+
+// Exit statuses, documented in README.md.
+const (
+	exitOK     = 0
+	exitFailed = 1 // some input could not be measured
+	exitUsage  = 2 // the command line was wrong
+)
+
+// usageError marks errors in the command line itself.
+type usageError struct{ msg string }
+
+func (e usageError) Error() string { return e.msg }
+
+func usagef(format string, a ...any) error { return usageError{fmt.Sprintf(format, a...)} }
+
+func main() {
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
+	err := run(ctx, os.Args[1:], os.Stdout, os.Stderr)
+	stop()
+	os.Exit(exitCode(err, os.Stderr))
+}
+
+// exitCode prints err in the tool's voice and returns the exit status.
+func exitCode(err error, stderr io.Writer) int {
+	var ue usageError
+	switch {
+	case err == nil, errors.Is(err, pflag.ErrHelp):
+		return exitOK
+	case errors.As(err, &ue):
+		fmt.Fprintln(stderr, "lineshot:", err)
+		fmt.Fprintln(stderr, "lineshot: hint: run 'lineshot help' for the commands and their options")
+		return exitUsage
+	case errors.Is(err, errReported):
+		return exitFailed
+	default:
+		fmt.Fprintln(stderr, "lineshot:", err)
+		return exitFailed
+	}
+}
+
+// errReported means the failures were already printed, one line each.
+var errReported = errors.New("some inputs failed")
+
+const topUsage = `lineshot measures emission lines in photographs of spectra.
+
+Commands:
+  measure    find, identify and calibrate the lines in one or more photos;
+             fit the Rydberg constant when the lamp is hydrogen
+  simulate   render a synthetic photo of a lamp through a grating, with its truth
+  lines      list the built-in reference lines and their sources
+  help       show this text, or 'lineshot help COMMAND'
+
+Examples:
+  lineshot measure mercury.jpg
+  lineshot measure --calibration-from mercury.jpg hydrogen.jpg
+  lineshot measure --json --calibration-from bench2-cal.json h1.jpg h2.jpg > results.json
+  lineshot simulate --lamp hydrogen --lines-per-mm 600 -o h.jpg
+
+Exit status: 0 all measured, 1 some input failed, 2 usage error.
+`
+
+func run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	if len(args) == 0 {
+		fmt.Fprint(stderr, topUsage)
+		return usagef("no command given")
+	}
+	cmd, rest := args[0], args[1:]
+	switch cmd {
+	case "measure":
+		return runMeasure(ctx, rest, stdout, stderr)
+	case "simulate":
+		return runSimulate(rest, stdout, stderr)
+	case "lines":
+		return runLines(rest, stdout, stderr)
+	case "help", "-h", "--help":
+		if len(rest) > 0 {
+			return run(ctx, []string{rest[0], "--help"}, stdout, stderr)
+		}
+		fmt.Fprint(stdout, topUsage)
+		return nil
+	default:
+		return usagef("unknown command %q", cmd)
+	}
+}
+
+// newFlags returns a flag set that reports errors instead of exiting and
+// prints its usage with the given header.
+func newFlags(name, header string, stderr io.Writer) *pflag.FlagSet {
+	fs := pflag.NewFlagSet(name, pflag.ContinueOnError)
+	fs.SetOutput(stderr)
+	fs.SortFlags = false
+	fs.Usage = func() {
+		fmt.Fprint(stderr, header)
+		fmt.Fprintln(stderr, "\nOptions:")
+		fs.PrintDefaults()
+	}
+	return fs
+}
+
+// parse parses args and turns flag errors into usage errors.
+func parse(fs *pflag.FlagSet, args []string) error {
+	if err := fs.Parse(args); err != nil {
+		if errors.Is(err, pflag.ErrHelp) {
+			return err
+		}
+		return usagef("%s: %v", fs.Name(), err)
+	}
+	return nil
+}

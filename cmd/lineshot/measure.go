@@ -1,0 +1,542 @@
+package main
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+
+	"lineshot/calibrate"
+	"lineshot/imaging"
+	"lineshot/peaks"
+)
+
+const measureUsage = `Usage: lineshot measure [options] PHOTO...
+
+Finds the emission lines in each photo, measures their centres to a fraction
+of a pixel, identifies them against reference lamp lines and converts them to
+air wavelengths. Without --calibration-from each photo calibrates itself from
+its own lamp (identified automatically). With it, the calibration of the same
+fixed setup is applied, and a hydrogen photo gets a Rydberg fit.
+
+Examples:
+  lineshot measure mercury.jpg
+  lineshot measure --calibration-from mercury.jpg hydrogen.jpg
+  lineshot measure --calibration-from mercury.jpg --save-calibration bench2.json
+  lineshot measure --calibration-from bench2.json --json hydrogen.jpg
+  lineshot measure --lamp helium --line 587.562@1310.4 helium.jpg
+`
+
+type measureConfig struct {
+	lamp      string
+	calLamp   string
+	pins      []calibrate.Pin
+	model     string
+	minSNR    float64
+	linear    bool
+	tolNM     float64
+	imageOpts imaging.Options
+}
+
+func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("measure", measureUsage, stderr)
+	calFrom := fs.StringP("calibration-from", "c", "", "calibration photo of the same setup, or a calibration JSON saved earlier")
+	saveCal := fs.String("save-calibration", "", "write the calibration to this JSON file")
+	lamp := fs.StringP("lamp", "l", "", "lamp of the measured photos (mercury, hydrogen, helium, neon, sodium); default: recognised")
+	calLamp := fs.String("calibration-lamp", "", "lamp of the calibration photo; default: recognised among mercury, helium, neon, sodium")
+	pins := fs.StringArray("line", nil, "pin a line as NM@PX (air nm at profile position px); repeatable")
+	model := fs.String("model", "", "dispersion model: poly1, poly2, poly3 or grating; default: chosen by AICc")
+	minSNR := fs.Float64("min-snr", 5, "least line height and prominence, in units of the profile noise")
+	tol := fs.Float64("match-tolerance", 1.0, "largest distance in nm between a calibrated line and its reference line")
+	linear := fs.Bool("linear", false, "pixel values are linear in intensity (do not undo the sRGB curve)")
+	asJSON := fs.Bool("json", false, "print a JSON document instead of tables")
+	if err := parse(fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() == 0 && (*calFrom == "" || *saveCal == "") {
+		fs.Usage()
+		return usagef("measure: no photo given")
+	}
+	cfg := measureConfig{lamp: *lamp, calLamp: *calLamp, model: *model, minSNR: *minSNR, linear: *linear, tolNM: *tol,
+		imageOpts: imaging.Options{Linear: *linear}}
+	for _, s := range *pins {
+		p, err := parsePin(s)
+		if err != nil {
+			return usagef("measure: --line %q: %v", s, err)
+		}
+		cfg.pins = append(cfg.pins, p)
+	}
+	for _, l := range []string{cfg.lamp, cfg.calLamp} {
+		if l != "" {
+			if _, err := calibrate.LampByName(l); err != nil {
+				return usagef("measure: %v", err)
+			}
+		}
+	}
+	switch cfg.model {
+	case "", calibrate.ModelPoly1, calibrate.ModelPoly2, calibrate.ModelPoly3, calibrate.ModelGrating:
+	default:
+		return usagef("measure: --model %q: want poly1, poly2, poly3 or grating", cfg.model)
+	}
+
+	doc := document{Tool: "lineshot", Schema: 1}
+	var cal *calibration
+	if *calFrom != "" {
+		c, res, err := loadOrMeasureCalibration(*calFrom, cfg)
+		if res != nil {
+			doc.Calibrations = append(doc.Calibrations, *res)
+		}
+		if err != nil {
+			if !*asJSON {
+				printResults(stdout, doc)
+			}
+			return err
+		}
+		cal = &c
+		if *saveCal != "" {
+			if err := writeJSONAtomic(*saveCal, c); err != nil {
+				return err
+			}
+		}
+	}
+	failed := 0
+	for _, path := range fs.Args() {
+		if err := ctx.Err(); err != nil {
+			return err
+		}
+		r := measureOne(path, cal, cfg)
+		if r.Error != "" {
+			failed++
+			fmt.Fprintf(stderr, "lineshot: %s\n", r.Error)
+		}
+		doc.Images = append(doc.Images, r)
+	}
+	if *asJSON {
+		enc := json.NewEncoder(stdout)
+		enc.SetIndent("", "  ")
+		if err := enc.Encode(doc); err != nil {
+			return err
+		}
+	} else {
+		printResults(stdout, doc)
+	}
+	if failed > 0 {
+		return errReported
+	}
+	return nil
+}
+
+func parsePin(s string) (calibrate.Pin, error) {
+	a, b, ok := strings.Cut(s, "@")
+	if !ok {
+		return calibrate.Pin{}, errors.New("want NM@PX, e.g. 546.074@1234.5")
+	}
+	nm, err1 := strconv.ParseFloat(strings.TrimSpace(a), 64)
+	px, err2 := strconv.ParseFloat(strings.TrimSpace(b), 64)
+	if err1 != nil || err2 != nil || nm <= 0 || math.IsNaN(px) || math.IsInf(px, 0) {
+		return calibrate.Pin{}, errors.New("want two numbers NM@PX, e.g. 546.074@1234.5")
+	}
+	return calibrate.Pin{NM: nm, PX: px}, nil
+}
+
+// calibration is a dispersion with the band geometry of the photo it came
+// from, so that it applies to other photos of the same fixed setup: a line
+// at original-image (x, y) lies at position (x−Ox)·cos θ + (y−Oy)·sin θ.
+type calibration struct {
+	Schema     int                  `json:"lineshot_calibration"`
+	Source     string               `json:"source"`
+	Lamp       string               `json:"lamp"`
+	AngleDeg   float64              `json:"angle_deg"`
+	Origin     [2]float64           `json:"origin_xy"`
+	FrameW     int                  `json:"frame_width"`
+	FrameH     int                  `json:"frame_height"`
+	Dispersion calibrate.Dispersion `json:"dispersion"`
+}
+
+func (c calibration) position(x, y float64) float64 {
+	sn, cs := math.Sincos(c.AngleDeg * math.Pi / 180)
+	return (x-c.Origin[0])*cs + (y-c.Origin[1])*sn
+}
+
+// loadOrMeasureCalibration reads a saved calibration (.json) or measures a
+// calibration photo. For a photo it also returns its image result.
+func loadOrMeasureCalibration(path string, cfg measureConfig) (calibration, *imageResult, error) {
+	if strings.EqualFold(filepath.Ext(path), ".json") {
+		c, err := readCalibration(path)
+		return c, nil, err
+	}
+	ccfg := cfg
+	ccfg.lamp = cfg.calLamp
+	r, c := measureSelf(path, ccfg, calibrationLamps(cfg.calLamp))
+	if r.Error != "" {
+		return calibration{}, &r, fmt.Errorf("calibration %s", r.Error)
+	}
+	return *c, &r, nil
+}
+
+func calibrationLamps(name string) []calibrate.Lamp {
+	if name != "" {
+		l, _ := calibrate.LampByName(name)
+		return []calibrate.Lamp{l}
+	}
+	return []calibrate.Lamp{calibrate.Mercury(), calibrate.Helium(), calibrate.Neon(), calibrate.Sodium()}
+}
+
+func readCalibration(path string) (calibration, error) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return calibration{}, err
+	}
+	var c calibration
+	dec := json.NewDecoder(strings.NewReader(string(b)))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(&c); err != nil {
+		return calibration{}, fmt.Errorf("%s: not a lineshot calibration: %v", path, err)
+	}
+	if err := c.validate(); err != nil {
+		return calibration{}, fmt.Errorf("%s: %v", path, err)
+	}
+	return c, nil
+}
+
+// validate rejects a calibration file that was edited into nonsense rather
+// than half-using it.
+func (c calibration) validate() error {
+	d := c.Dispersion
+	if c.Schema != 1 {
+		return fmt.Errorf("unknown calibration format version %d", c.Schema)
+	}
+	k := map[string]int{calibrate.ModelPoly1: 2, calibrate.ModelPoly2: 3, calibrate.ModelPoly3: 4, calibrate.ModelGrating: 3}[d.Model]
+	if k == 0 || len(d.Params) != k || len(d.Cov) != k {
+		return fmt.Errorf("dispersion model %q with %d parameters is not valid", d.Model, len(d.Params))
+	}
+	for _, row := range d.Cov {
+		if len(row) != k {
+			return errors.New("covariance matrix has the wrong shape")
+		}
+	}
+	if !(d.Scale > 0) || math.IsNaN(c.AngleDeg) {
+		return errors.New("scale or angle missing")
+	}
+	for _, p := range []float64{d.MinPX, (d.MinPX + d.MaxPX) / 2, d.MaxPX} {
+		w := d.Wavelength(p)
+		if math.IsNaN(w) || w < 100 || w > 3000 {
+			return fmt.Errorf("gives %.1f nm at %.0f px: not a plausible calibration", w, p)
+		}
+	}
+	return nil
+}
+
+// imageResult is the JSON record of one photo. Field names are part of the
+// documented output format.
+type imageResult struct {
+	File        string             `json:"file"`
+	Lamp        string             `json:"lamp"`
+	LampScore   float64            `json:"lamp_confidence"`
+	Lines       []lineResult       `json:"lines"`
+	Calibration *calibrationOut    `json:"calibration,omitempty"`
+	Rydberg     *calibrate.Rydberg `json:"rydberg,omitempty"`
+	Quality     *quality           `json:"quality,omitempty"`
+	Warnings    []string           `json:"warnings,omitempty"`
+	Error       string             `json:"error,omitempty"`
+}
+
+type lineResult struct {
+	X               float64 `json:"x"`
+	Y               float64 `json:"y"`
+	PositionPX      float64 `json:"position_px"`
+	PositionErrPX   float64 `json:"position_err_px"`
+	WavelengthNM    float64 `json:"wavelength_nm"` // air
+	WavelengthErrNM float64 `json:"wavelength_err_nm"`
+	VacuumNM        float64 `json:"vacuum_nm"`
+	FWHMPX          float64 `json:"fwhm_px"`
+	Height          float64 `json:"height"`
+	SNR             float64 `json:"snr"`
+	Saturated       bool    `json:"saturated"`
+	ID              string  `json:"id"`
+	RefNM           float64 `json:"ref_nm,omitempty"`
+	DeltaNM         float64 `json:"delta_nm,omitempty"` // measured − reference
+	N               int     `json:"n,omitempty"`
+}
+
+type calibrationOut struct {
+	From       string               `json:"from"`
+	Lamp       string               `json:"lamp"`
+	Dispersion calibrate.Dispersion `json:"dispersion"`
+	Grating    *gratingOut          `json:"grating,omitempty"`
+}
+
+type gratingOut struct {
+	DNM      float64 `json:"d_over_m_nm"`
+	LinesMM  float64 `json:"lines_per_mm_order1"`
+	AngleDeg float64 `json:"camera_angle_deg"`
+	FocalPX  float64 `json:"focal_px"`
+}
+
+type quality struct {
+	AngleDeg       float64       `json:"angle_deg"`
+	Band           [4][2]float64 `json:"band_corners_xy"`
+	BandHalfHeight float64       `json:"band_half_height_px"`
+	Background     float64       `json:"background"`
+	Noise          float64       `json:"frame_noise"`
+	ProfileNoise   float64       `json:"profile_noise"`
+	Saturated      float64       `json:"saturated_fraction"`
+}
+
+type document struct {
+	Tool         string        `json:"tool"`
+	Schema       int           `json:"schema"`
+	Calibrations []imageResult `json:"calibration_photos,omitempty"`
+	Images       []imageResult `json:"images"`
+}
+
+// measured is a photo's strip and peaks, before any wavelength is known.
+type measured struct {
+	strip imaging.Strip
+	found peaks.Result
+}
+
+func extractAndFind(path string, cfg measureConfig) (measured, error) {
+	s, err := imaging.Extract(path, cfg.imageOpts)
+	if err != nil {
+		return measured{}, err
+	}
+	r, err := peaks.Find(s.Profile, peaks.Options{MinSNR: cfg.minSNR, Clipped: s.Clipped})
+	if err != nil {
+		return measured{}, fmt.Errorf("%s: %w", path, err)
+	}
+	if len(r.Peaks) == 0 {
+		return measured{}, fmt.Errorf("%s: no line stands above the noise (threshold %.1fσ)", path, cfg.minSNR)
+	}
+	return measured{strip: s, found: r}, nil
+}
+
+func (m measured) baseResult(path string) imageResult {
+	r := imageResult{File: path, Quality: &quality{
+		AngleDeg: m.strip.AngleDeg, Band: m.strip.Band, BandHalfHeight: m.strip.BandHalfHeight,
+		Background: m.strip.Background, Noise: m.strip.Noise, ProfileNoise: m.found.Noise, Saturated: m.strip.Saturated,
+	}}
+	for _, p := range m.found.Peaks {
+		x, y := m.strip.ToImage(p.Center)
+		r.Lines = append(r.Lines, lineResult{X: x, Y: y, PositionPX: p.Center, PositionErrPX: p.Sigma, FWHMPX: p.FWHM,
+			Height: p.Height, SNR: p.SNR, Saturated: p.Saturated})
+	}
+	if m.strip.Saturated > 0.001 {
+		r.Warnings = append(r.Warnings, fmt.Sprintf("%.1f%% of the band's pixels are saturated: saturated lines were measured on their flanks", 100*m.strip.Saturated))
+	}
+	return r
+}
+
+func (m measured) calPeaks() []calibrate.Peak {
+	out := make([]calibrate.Peak, len(m.found.Peaks))
+	for i, p := range m.found.Peaks {
+		out[i] = calibrate.Peak{PX: p.Center, SigmaPX: p.Sigma, Height: p.Height}
+	}
+	return out
+}
+
+// measureSelf measures a photo that calibrates itself: its lines are
+// identified against the candidate lamps with no hints, and the dispersion
+// is fitted to them.
+func measureSelf(path string, cfg measureConfig, lamps []calibrate.Lamp) (imageResult, *calibration) {
+	m, err := extractAndFind(path, cfg)
+	if err != nil {
+		return imageResult{File: path, Error: err.Error()}, nil
+	}
+	r := m.baseResult(path)
+	if cfg.lamp != "" {
+		l, _ := calibrate.LampByName(cfg.lamp)
+		lamps = []calibrate.Lamp{l}
+	}
+	ids := calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{Pins: cfg.pins})
+	if len(ids) == 0 {
+		r.Error = fmt.Sprintf("%s: the %d lines found match no known lamp's pattern (name the lamp with --lamp, or pin a line with --line)", path, len(m.found.Peaks))
+		return r, nil
+	}
+	id := ids[0]
+	lamp, _ := calibrate.LampByName(id.Lamp)
+	r.Lamp, r.LampScore = id.Lamp, confidence(ids)
+	var pts []calibrate.Point
+	for _, mt := range id.Matches {
+		p := m.found.Peaks[mt.Peak]
+		pts = append(pts, calibrate.Point{PX: p.Center, SigmaPX: p.Sigma, NM: mt.Line.NM, Line: mt.Line.Name})
+	}
+	d, err := calibrate.FitDispersion(pts, calibrate.FitOptions{Model: cfg.model, OpticalCenterPX: m.strip.OpticalCenter})
+	if err != nil {
+		r.Error = fmt.Sprintf("%s: dispersion fit: %v", path, err)
+		return r, nil
+	}
+	cal := &calibration{Schema: 1, Source: path, Lamp: id.Lamp, AngleDeg: m.strip.AngleDeg, Origin: m.strip.Origin,
+		FrameW: m.strip.FrameW, FrameH: m.strip.FrameH, Dispersion: d}
+	applyCalibration(&r, *cal, lamp, cfg, id.Matches)
+	if id.Lamp == "hydrogen" {
+		r.Warnings = append(r.Warnings, "calibrated on its own Balmer lines, so no Rydberg constant is fitted: calibrate with a mercury (or helium) photo of the same setup (--calibration-from)")
+	}
+	return r, cal
+}
+
+// confidence turns the best two lamp scores into a plain 0-1 figure: the
+// best score's share of the two.
+func confidence(ids []calibrate.Identification) float64 {
+	if len(ids) == 1 {
+		return ids[0].Score
+	}
+	a, b := ids[0].Score, ids[1].Score
+	if a+b == 0 {
+		return 0
+	}
+	return a / (a + b)
+}
+
+// measureOne measures a photo, with the calibration of its setup when one
+// is given.
+func measureOne(path string, cal *calibration, cfg measureConfig) imageResult {
+	if cal == nil {
+		r, _ := measureSelf(path, cfg, calibrate.Lamps())
+		return r
+	}
+	m, err := extractAndFind(path, cfg)
+	if err != nil {
+		return imageResult{File: path, Error: err.Error()}
+	}
+	r := m.baseResult(path)
+	r.Warnings = append(r.Warnings, setupMoved(m.strip, *cal)...)
+	// Which lamp is it? The one whose lines the calibrated wavelengths hit
+	// best, weighted by the heights of the lines they explain.
+	lamps := calibrate.Lamps()
+	if cfg.lamp != "" {
+		l, _ := calibrate.LampByName(cfg.lamp)
+		lamps = []calibrate.Lamp{l}
+	}
+	nm, sig := make([]float64, len(r.Lines)), make([]float64, len(r.Lines))
+	var total float64
+	for i, l := range r.Lines {
+		p := cal.position(l.X, l.Y)
+		nm[i], sig[i] = cal.Dispersion.Wavelength(p), cal.Dispersion.Sigma(p, l.PositionErrPX)
+		total += l.Height
+	}
+	best, bestScore, second := calibrate.Lamp{}, -1.0, 0.0
+	for _, l := range lamps {
+		var s float64
+		for _, mt := range calibrate.Assign(nm, sig, l, cfg.tolNM) {
+			s += r.Lines[mt.Peak].Height
+		}
+		s /= total
+		if s > bestScore {
+			best, second, bestScore = l, math.Max(second, bestScore), s
+		} else {
+			second = math.Max(second, s)
+		}
+	}
+	r.Lamp = best.Name
+	r.LampScore = bestScore
+	if bestScore+second > 0 {
+		r.LampScore = bestScore / (bestScore + second)
+	}
+	applyCalibration(&r, *cal, best, cfg, nil)
+	if best.Name == "hydrogen" {
+		fitBalmer(&r, *cal)
+	}
+	return r
+}
+
+// applyCalibration sets every line's wavelength and identifies it: first
+// with the fixed matches (from pattern identification, which keep their
+// labels even where a neighbouring line is nearer in wavelength), then each
+// remaining peak with the nearest unused line of lamp.
+func applyCalibration(r *imageResult, cal calibration, lamp calibrate.Lamp, cfg measureConfig, fixed []calibrate.Match) {
+	d := cal.Dispersion
+	nm, sig := make([]float64, len(r.Lines)), make([]float64, len(r.Lines))
+	lo, hi := d.MinPX, d.MaxPX
+	span := hi - lo
+	outside := 0
+	for i := range r.Lines {
+		l := &r.Lines[i]
+		p := cal.position(l.X, l.Y)
+		l.WavelengthNM, l.WavelengthErrNM = d.Wavelength(p), d.Sigma(p, l.PositionErrPX)
+		l.VacuumNM = calibrate.AirToVacuum(l.WavelengthNM)
+		nm[i], sig[i] = l.WavelengthNM, l.WavelengthErrNM
+		if p < lo-0.02*span || p > hi+0.02*span {
+			outside++
+		}
+	}
+	usedLine, usedPeak := map[float64]bool{}, map[int]bool{}
+	label := func(mt calibrate.Match) {
+		if usedLine[mt.Line.NM] || usedPeak[mt.Peak] {
+			return
+		}
+		usedLine[mt.Line.NM], usedPeak[mt.Peak] = true, true
+		l := &r.Lines[mt.Peak]
+		l.ID, l.RefNM, l.N = mt.Line.Name, mt.Line.NM, mt.Line.N
+		l.DeltaNM = l.WavelengthNM - mt.Line.NM
+	}
+	for _, mt := range fixed {
+		label(mt)
+	}
+	for _, mt := range calibrate.Assign(nm, sig, lamp, cfg.tolNM) {
+		label(mt)
+	}
+	out := &calibrationOut{From: cal.Source, Lamp: cal.Lamp, Dispersion: d}
+	if D, a, f, ok := d.Physical(); ok {
+		out.Grating = &gratingOut{DNM: D, LinesMM: 1e6 / D, AngleDeg: a, FocalPX: f}
+	}
+	r.Calibration = out
+	if outside > 0 {
+		r.Warnings = append(r.Warnings, fmt.Sprintf("%d line(s) lie outside the calibrated range %.0f-%.0f nm: their wavelengths are extrapolated (the uncertainty says by how much)",
+			outside, d.Wavelength(lo), d.Wavelength(hi)))
+	}
+}
+
+// fitBalmer fits the Rydberg constant to the identified Balmer lines, with
+// the covariance the shared calibration puts between them.
+func fitBalmer(r *imageResult, cal calibration) {
+	var in []calibrate.Balmer
+	var ps, sps []float64
+	for _, l := range r.Lines {
+		if l.N >= 3 {
+			in = append(in, calibrate.Balmer{N: l.N, AirNM: l.WavelengthNM, SigmaNM: l.WavelengthErrNM})
+			ps = append(ps, cal.position(l.X, l.Y))
+			sps = append(sps, l.PositionErrPX)
+		}
+	}
+	if len(in) < 2 {
+		r.Warnings = append(r.Warnings, fmt.Sprintf("only %d Balmer line identified: no Rydberg fit", len(in)))
+		return
+	}
+	ryd, err := calibrate.FitRydberg(in, cal.Dispersion.Covariance(ps, sps))
+	if err != nil {
+		r.Warnings = append(r.Warnings, "Rydberg fit failed: "+err.Error())
+		return
+	}
+	r.Rydberg = &ryd
+	if ryd.DOF > 0 && ryd.ChiSq/float64(ryd.DOF) > 4 {
+		r.Warnings = append(r.Warnings, fmt.Sprintf("the Balmer lines fit 1/λ = R(1/4 − 1/n²) poorly (χ²/dof = %.1f): a line may be misidentified or blended", ryd.ChiSq/float64(ryd.DOF)))
+	}
+	if ryd.InterceptSigma > 0 && math.Abs(ryd.Intercept) > 3*ryd.InterceptSigma {
+		r.Warnings = append(r.Warnings, fmt.Sprintf("a free intercept fits at %.0f ± %.0f m⁻¹, not zero: the wavelengths carry a systematic offset (calibration drift?)", ryd.Intercept, ryd.InterceptSigma))
+	}
+}
+
+// setupMoved compares a photo's band with the calibration photo's and says
+// in plain words when the camera or grating seems to have moved.
+func setupMoved(s imaging.Strip, cal calibration) []string {
+	var w []string
+	if cal.FrameW != 0 && (s.FrameW != cal.FrameW || s.FrameH != cal.FrameH) {
+		w = append(w, fmt.Sprintf("this photo is %dx%d but the calibration photo was %dx%d: not the same setup, the calibration does not apply", s.FrameW, s.FrameH, cal.FrameW, cal.FrameH))
+	}
+	if d := math.Abs(s.AngleDeg - cal.AngleDeg); d > 0.2 {
+		w = append(w, fmt.Sprintf("the band is turned by %.2f° against the calibration photo: the camera or grating moved, recalibrate", d))
+	}
+	sn, cs := math.Sincos(cal.AngleDeg * math.Pi / 180)
+	dv := -(s.Origin[0]-cal.Origin[0])*sn + (s.Origin[1]-cal.Origin[1])*cs
+	if math.Abs(dv) > math.Max(3, 0.5*s.BandHalfHeight) {
+		w = append(w, fmt.Sprintf("the band sits %.1f px off its place in the calibration photo: the camera or grating moved, recalibrate", dv))
+	}
+	return w
+}

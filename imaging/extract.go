@@ -1,0 +1,691 @@
+package imaging
+
+import (
+	"errors"
+	"fmt"
+	"image"
+	"image/color"
+	_ "image/jpeg" // header checks before OpenCV decodes
+	_ "image/png"
+	"math"
+	"os"
+	"sort"
+	"unsafe"
+
+	"gocv.io/x/gocv"
+)
+
+// ErrNoBand is returned when no spectrum band stands out of the frame.
+var ErrNoBand = errors.New("no spectrum band found")
+
+// Options tunes Extract. The zero value is usable.
+type Options struct {
+	// MaxPixels caps the decoded frame size (a guard against decompression
+	// bombs); 0 means 120 megapixels.
+	MaxPixels int
+	// Linear says the pixel values are already linear in intensity (raw
+	// conversions, scientific cameras); otherwise the sRGB curve is undone.
+	Linear bool
+	// KeepImage keeps the straightened band as an 8-bit image in Strip.Image.
+	KeepImage bool
+	// Profile chooses Strip.Profile: ProfileLuma, ProfileSum, or "" for
+	// luma from JPEG files and the sum from every other format. JPEG keeps
+	// luma at full resolution and quantises it finely, while colour (hence
+	// each linear channel) is subsampled and coarsely quantised: on
+	// synthetic quality-90 JPEGs the violet mercury lines' centres move by
+	// up to 0.2 px in the channel sum and by 0.04 px in luma. Lossless
+	// files keep the sum, whose signal-to-noise is better for violet lines.
+	Profile string
+}
+
+// Profile choices.
+const (
+	ProfileLuma = "luma"
+	ProfileSum  = "sum"
+)
+
+// Strip is the straightened spectrum band collapsed to profiles, with the
+// geometry that maps profile positions back to the original image.
+//
+// Original-image coordinates are those of the upright image (after its EXIF
+// orientation is applied), in pixels, with the centre of the top-left pixel
+// at (0, 0). Profile position p lies at Origin + p·(cos θ, sin θ), θ =
+// AngleDeg, on the centre line of the band.
+type Strip struct {
+	Profile  []float64    // the profile to measure: Luma, or Sum with Options.Profile = ProfileSum
+	Luma     []float64    // linearised luma 0.299R′+0.587G′+0.114B′ summed across the band, background removed
+	Sum      []float64    // linear R+G+B summed across the band, background removed
+	Channels [3][]float64 // linear R, G, B each
+	Clipped  []bool       // positions whose band pixels hold a saturated value in some channel
+
+	AngleDeg       float64    // dispersion direction, degrees from +x towards +y
+	Origin         [2]float64 // original-image x, y of profile position 0
+	BandHalfHeight float64    // px
+	OpticalCenter  float64    // profile position nearest the image centre (the assumed principal point)
+	Band           [4][2]float64
+	FrameW, FrameH int
+
+	Background float64 // median frame level, linear, fraction of full scale
+	Noise      float64 // robust σ of the frame, same units
+	Saturated  float64 // fraction of band pixels holding a saturated value
+	// ResidualTiltDeg is the slope left in the band's centre line after
+	// straightening, degrees (0 when it could not be measured).
+	ResidualTiltDeg float64
+	Image      *image.RGBA
+}
+
+// ToImage maps profile position p to original-image coordinates.
+func (s Strip) ToImage(p float64) (x, y float64) {
+	sn, cs := math.Sincos(s.AngleDeg * math.Pi / 180)
+	return s.Origin[0] + p*cs, s.Origin[1] + p*sn
+}
+
+// Extract decodes the photo at path, finds the spectrum band, straightens
+// it and collapses it to profiles. Errors name the file and the reason.
+func Extract(path string, opt Options) (Strip, error) {
+	format, err := checkFile(path, opt)
+	if err != nil {
+		return Strip{}, err
+	}
+	if opt.Profile == "" {
+		opt.Profile = ProfileSum
+		if format == "jpeg" {
+			opt.Profile = ProfileLuma
+		}
+	}
+	m := gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
+	defer m.Close()
+	if m.Empty() {
+		return Strip{}, fmt.Errorf("%s: not an image OpenCV can decode", path)
+	}
+	s, err := extractMat(m, opt)
+	if err != nil {
+		return Strip{}, fmt.Errorf("%s: %w", path, err)
+	}
+	return s, nil
+}
+
+// checkFile rejects what need not reach the decoder: missing files,
+// directories, empty files and (for JPEG and PNG, whose headers Go reads)
+// frames above the pixel cap. It returns the format Go recognised, if any.
+func checkFile(path string, opt Options) (string, error) {
+	st, err := os.Stat(path)
+	if err != nil {
+		if errors.Is(err, os.ErrNotExist) {
+			return "", fmt.Errorf("%s: no such file", path)
+		}
+		return "", err // already names the path
+	}
+	if st.IsDir() {
+		return "", fmt.Errorf("%s: is a directory, not an image", path)
+	}
+	if st.Size() == 0 {
+		return "", fmt.Errorf("%s: empty file", path)
+	}
+	f, err := os.Open(path)
+	if err != nil {
+		return "", err
+	}
+	defer f.Close()
+	capPx := opt.MaxPixels
+	if capPx == 0 {
+		capPx = 120_000_000
+	}
+	cfg, format, err := image.DecodeConfig(f)
+	if err == nil && cfg.Width*cfg.Height > capPx {
+		return "", fmt.Errorf("%s: %dx%d pixels exceeds the limit of %d megapixels", path, cfg.Width, cfg.Height, capPx/1_000_000)
+	}
+	return format, nil
+}
+
+// frame holds the decoded image's pixels as Go slices, without copying.
+type frame struct {
+	w, h    int
+	bytes8  []uint8  // BGR, 8-bit
+	words16 []uint16 // BGR, 16-bit
+}
+
+func newFrame(m gocv.Mat) (frame, error) {
+	f := frame{w: m.Cols(), h: m.Rows()}
+	if f.w < 8 || f.h < 8 {
+		return f, fmt.Errorf("image of %dx%d pixels is too small", f.w, f.h)
+	}
+	if m.Channels() != 3 || !m.IsContinuous() {
+		return f, fmt.Errorf("unexpected pixel layout (%d channels)", m.Channels())
+	}
+	var err error
+	switch m.Type() {
+	case gocv.MatTypeCV8UC3:
+		f.bytes8, err = m.DataPtrUint8()
+	case gocv.MatTypeCV16UC3:
+		f.words16, err = m.DataPtrUint16()
+	default:
+		return f, fmt.Errorf("unsupported pixel type %v", m.Type())
+	}
+	return f, err
+}
+
+// linearLUT returns the linear value in [0, 1] of every code value of the
+// given bit depth, undoing the sRGB transfer curve (IEC 61966-2-1) unless
+// linear is set.
+func linearLUT(levels int, linear bool) []float32 {
+	lut := make([]float32, levels)
+	for i := range lut {
+		v := float64(i) / float64(levels-1)
+		if !linear {
+			if v <= 0.04045 {
+				v /= 12.92
+			} else {
+				v = math.Pow((v+0.055)/1.055, 2.4)
+			}
+		}
+		lut[i] = float32(v)
+	}
+	return lut
+}
+
+// searchScale is the longest side of the reduced frame used to find the band.
+const searchScale = 1024
+
+func extractMat(m gocv.Mat, opt Options) (Strip, error) {
+	fr, err := newFrame(m)
+	if err != nil {
+		return Strip{}, err
+	}
+	nLevels := 256
+	clipAt := 250
+	if fr.words16 != nil {
+		nLevels, clipAt = 65536, 65000
+	}
+	lut := linearLUT(nLevels, opt.Linear)
+
+	// 1. Find the band roughly on a reduced frame.
+	f := math.Min(1, searchScale/float64(max(fr.w, fr.h)))
+	sw, sh := max(8, int(math.Round(float64(fr.w)*f))), max(8, int(math.Round(float64(fr.h)*f)))
+	small := gocv.NewMat()
+	defer small.Close()
+	gocv.Resize(m, &small, image.Pt(sw, sh), 0, 0, gocv.InterpolationArea)
+	sp, err := sumPlane(small, lut)
+	if err != nil {
+		return Strip{}, err
+	}
+	bg, noise, peak := levels(sp)
+	if peak-bg < 20*noise+0.02 {
+		return Strip{}, fmt.Errorf("%w: brightest pixel %.3f barely above the background %.3f", ErrNoBand, peak/3, bg/3)
+	}
+	thr := bg + math.Max(8*noise, 0.05*(peak-bg))
+	pts := brightPoints(sp, bg, thr)
+	if len(pts) < 10 {
+		return Strip{}, fmt.Errorf("%w: only %d bright pixels", ErrNoBand, len(pts))
+	}
+	ang := principalAngle(pts)
+	ang = sharpestAngle(pts, ang, 3, 0.1, 1, float64(sw+sh))
+	sx, sy := float64(fr.w)/float64(sw), float64(fr.h)/float64(sh)
+	// Bright points in full-frame coordinates (reduced pixel centre i maps
+	// to (i + 0.5)·scale − 0.5).
+	full := make([]point, len(pts))
+	for i, p := range pts {
+		full[i] = point{(p.x+0.5)*sx - 0.5, (p.y+0.5)*sy - 0.5, p.w}
+	}
+	vc, hh, ok := crossBand(sp, ang, bg, sx, sy)
+	if !ok {
+		return Strip{}, fmt.Errorf("%w: the bright pixels form no band (cut off by the frame edge?)", ErrNoBand)
+	}
+
+	// 2. Refine on the full frame inside a region around the band.
+	side := math.Max(12, 0.6*hh)
+	roi, err := bandROI(fr.w, fr.h, ang, vc, hh+side+4)
+	if err != nil {
+		return Strip{}, err
+	}
+	rp, rgb, clip := linearRegion(fr, roi, lut, clipAt, newLumaLUT(nLevels, opt.Linear))
+	rbg, _, _ := levels(rp)
+	rthr := rbg + math.Max(8*noise, 0.05*(peak-bg))
+	var band []point
+	sn, cs := math.Sincos(ang * math.Pi / 180)
+	for _, p := range brightPoints(rp, rbg, rthr) {
+		x, y := p.x+float64(roi.Min.X), p.y+float64(roi.Min.Y)
+		if v := -x*sn + y*cs; math.Abs(v-vc) <= hh {
+			band = append(band, point{x, y, p.w})
+		}
+	}
+	if len(band) >= 10 {
+		ang = sharpestAngle(band, ang, 0.6, 0.05, 0.5, float64(fr.w+fr.h))
+		ang = sharpestAngle(band, ang, 0.06, 0.005, 0.5, float64(fr.w+fr.h))
+	}
+	vc2, hh2, ok := crossBandRegion(rp, roi, ang, rbg, vc, hh+side)
+	if ok {
+		vc, hh = vc2, hh2
+	}
+	u0, u1, ok := chord(fr.w, fr.h, ang, vc)
+	if !ok || u1-u0 < 16 {
+		return Strip{}, fmt.Errorf("%w: the band's centre line leaves the frame", ErrNoBand)
+	}
+
+	// 3. Straighten the band with OpenCV and collapse it. The band's centre
+	// line, measured on the straightened strip at its strongest lines,
+	// corrects the direction and offset once; the second pass's centre line
+	// is the residual tilt.
+	s, fit, err := straighten(rgb, clip, roi, ang, vc, hh, side, u0, u1, opt.KeepImage, opt.Profile)
+	if err != nil {
+		return Strip{}, err
+	}
+	if fit.ok {
+		b := fit.slope
+		nang := ang + math.Atan(b)*180/math.Pi
+		v0 := vc - float64(int(math.Ceil(hh))+int(math.Ceil(side)))
+		nvc := (v0 + fit.offset - b*u0) / math.Sqrt(1+b*b)
+		if nu0, nu1, ok := chord(fr.w, fr.h, nang, nvc); ok && nu1-nu0 >= 16 {
+			s2, fit2, err := straighten(rgb, clip, roi, nang, nvc, hh, side, nu0, nu1, opt.KeepImage, opt.Profile)
+			if err == nil {
+				s, ang, vc = s2, nang, nvc
+				if fit2.ok {
+					s.ResidualTiltDeg = math.Atan(fit2.slope) * 180 / math.Pi
+				}
+			}
+		}
+	}
+	s.FrameW, s.FrameH = fr.w, fr.h
+	s.Background, s.Noise = bg/3, noise/3
+	cx, cy := float64(fr.w-1)/2, float64(fr.h-1)/2
+	sn, cs = math.Sincos(ang * math.Pi / 180)
+	s.OpticalCenter = (cx-s.Origin[0])*cs + (cy-s.Origin[1])*sn
+	return s, nil
+}
+
+// sumPlane returns the sum of the linearised channels of an 8- or 16-bit
+// BGR Mat.
+func sumPlane(m gocv.Mat, lut []float32) (plane, error) {
+	fr, err := newFrame(m)
+	if err != nil {
+		return plane{}, err
+	}
+	p := plane{w: fr.w, h: fr.h, pix: make([]float32, fr.w*fr.h)}
+	for i := range p.pix {
+		if fr.bytes8 != nil {
+			p.pix[i] = lut[fr.bytes8[3*i]] + lut[fr.bytes8[3*i+1]] + lut[fr.bytes8[3*i+2]]
+		} else {
+			p.pix[i] = lut[fr.words16[3*i]] + lut[fr.words16[3*i+1]] + lut[fr.words16[3*i+2]]
+		}
+	}
+	return p, nil
+}
+
+// crossBand finds the band across direction ang on the reduced plane and
+// returns its centre v (full-frame px) and half-height.
+func crossBand(p plane, ang, bg, sx, sy float64) (vc, hh float64, ok bool) {
+	sn, cs := math.Sincos(ang * math.Pi / 180)
+	// v of every reduced pixel, in full-frame units.
+	vmin, vmax := math.Inf(1), math.Inf(-1)
+	for _, c := range [][2]float64{{0, 0}, {float64(p.w), 0}, {0, float64(p.h)}, {float64(p.w), float64(p.h)}} {
+		v := -(c[0]*sx)*sn + (c[1]*sy)*cs
+		vmin, vmax = math.Min(vmin, v), math.Max(vmax, v)
+	}
+	step := math.Max(sx, sy)
+	prof := make([]float64, int((vmax-vmin)/step)+2)
+	for y := 0; y < p.h; y++ {
+		for x := 0; x < p.w; x++ {
+			fx, fy := (float64(x)+0.5)*sx-0.5, (float64(y)+0.5)*sy-0.5
+			v := -fx*sn + fy*cs
+			prof[int((v-vmin)/step)] += float64(p.at(x, y)) - bg
+		}
+	}
+	c, h, ok := bandEdges(prof)
+	if !ok {
+		return 0, 0, false
+	}
+	return vmin + (c+0.5)*step, math.Max(h*step, 2), true
+}
+
+// crossBandRegion measures the band's centre and half-height at full
+// resolution from the region plane, over rows vc ± reach.
+func crossBandRegion(p plane, roi image.Rectangle, ang, bg, vc, reach float64) (float64, float64, bool) {
+	sn, cs := math.Sincos(ang * math.Pi / 180)
+	v0 := vc - reach
+	prof := make([]float64, int(2*reach)+2)
+	// Linear splatting into 1 px bins keeps the sub-pixel centre.
+	for y := 0; y < p.h; y++ {
+		for x := 0; x < p.w; x++ {
+			fx, fy := float64(x+roi.Min.X), float64(y+roi.Min.Y)
+			t := -fx*sn + fy*cs - v0
+			if t < 0 || t >= float64(len(prof)-1) {
+				continue
+			}
+			i := int(t)
+			fr := t - float64(i)
+			w := float64(p.at(x, y)) - bg
+			prof[i] += w * (1 - fr)
+			prof[i+1] += w * fr
+		}
+	}
+	c, h, ok := bandEdges(prof)
+	if !ok {
+		return 0, 0, false
+	}
+	return v0 + c, h, true
+}
+
+// bandROI returns the bounding rectangle, clipped to the frame, of the band
+// of half-height reach about the line v = vc along direction ang.
+func bandROI(w, h int, ang, vc, reach float64) (image.Rectangle, error) {
+	sn, cs := math.Sincos(ang * math.Pi / 180)
+	x0, y0, x1, y1 := math.Inf(1), math.Inf(1), math.Inf(-1), math.Inf(-1)
+	for _, v := range []float64{vc - reach, vc + reach} {
+		u0, u1, ok := chord(w, h, ang, v)
+		if !ok {
+			// This edge of the band lies outside the frame: use the centre
+			// line's chord for the extent along the band.
+			if u0, u1, ok = chord(w, h, ang, vc); !ok {
+				return image.Rectangle{}, fmt.Errorf("%w: the band lies outside the frame", ErrNoBand)
+			}
+		}
+		for _, u := range []float64{u0, u1} {
+			x, y := u*cs-v*sn, u*sn+v*cs
+			x0, x1 = math.Min(x0, x), math.Max(x1, x)
+			y0, y1 = math.Min(y0, y), math.Max(y1, y)
+		}
+	}
+	r := image.Rect(int(math.Floor(x0))-2, int(math.Floor(y0))-2, int(math.Ceil(x1))+3, int(math.Ceil(y1))+3)
+	r = r.Intersect(image.Rect(0, 0, w, h))
+	if r.Dx() < 8 || r.Dy() < 4 {
+		return image.Rectangle{}, fmt.Errorf("%w: the band region is empty", ErrNoBand)
+	}
+	return r, nil
+}
+
+// linearRegion copies the region of the frame into linear float32 R, G, B
+// and linearised luma (interleaved, four values a pixel), the channel sum
+// and a per-pixel clip mask.
+func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma lumaLUT) (plane, []float32, []bool) {
+	w, h := roi.Dx(), roi.Dy()
+	sum := plane{w: w, h: h, pix: make([]float32, w*h)}
+	rgb := make([]float32, 4*w*h)
+	clip := make([]bool, w*h)
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			src := 3 * ((y+roi.Min.Y)*fr.w + x + roi.Min.X)
+			dst := y*w + x
+			var b, g, r int
+			if fr.bytes8 != nil {
+				b, g, r = int(fr.bytes8[src]), int(fr.bytes8[src+1]), int(fr.bytes8[src+2])
+			} else {
+				b, g, r = int(fr.words16[src]), int(fr.words16[src+1]), int(fr.words16[src+2])
+			}
+			rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2] = lut[r], lut[g], lut[b]
+			rgb[4*dst+3] = luma.at(0.299*float64(r) + 0.587*float64(g) + 0.114*float64(b))
+			sum.pix[dst] = lut[r] + lut[g] + lut[b]
+			clip[dst] = r >= clipAt || g >= clipAt || b >= clipAt
+		}
+	}
+	return sum, rgb, clip
+}
+
+// straighten warps the band into a strip whose columns run along the
+// dispersion (OpenCV warpAffine, bilinear, on linear values), subtracts a
+// per-column background taken from the rows beside the band, and sums the
+// band rows into profiles.
+func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, keep bool, profile string) (Strip, centreFit, error) {
+	w, h := roi.Dx(), roi.Dy()
+	src, err := gocv.NewMatFromBytes(h, w, gocv.MatTypeCV32FC4, unsafe.Slice((*byte)(unsafe.Pointer(&rgb[0])), 4*len(rgb)))
+	if err != nil {
+		return Strip{}, centreFit{}, fmt.Errorf("straighten: %w", err)
+	}
+	defer src.Close()
+	L := int(math.Floor(u1-u0)) + 1
+	half := int(math.Ceil(hh))
+	sd := int(math.Ceil(side))
+	H := 2*(half+sd) + 1
+	v0 := vc - float64(half+sd)
+	sn, cs := math.Sincos(ang * math.Pi / 180)
+	// Strip pixel (i, j) ↦ frame (x, y) = (u0+i)·e_u + (v0+j)·e_v, minus
+	// the region's offset.
+	M := gocv.NewMatWithSize(2, 3, gocv.MatTypeCV64F)
+	defer M.Close()
+	M.SetDoubleAt(0, 0, cs)
+	M.SetDoubleAt(0, 1, -sn)
+	M.SetDoubleAt(0, 2, u0*cs-v0*sn-float64(roi.Min.X))
+	M.SetDoubleAt(1, 0, sn)
+	M.SetDoubleAt(1, 1, cs)
+	M.SetDoubleAt(1, 2, u0*sn+v0*cs-float64(roi.Min.Y))
+	dst := gocv.NewMat()
+	defer dst.Close()
+	gocv.WarpAffineWithParams(src, &dst, M, image.Pt(L, H), gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderConstant, color.RGBA{})
+	if dst.Empty() || dst.Cols() != L || dst.Rows() != H {
+		return Strip{}, centreFit{}, errors.New("straighten: OpenCV returned no strip")
+	}
+	px, err := dst.DataPtrFloat32()
+	if err != nil {
+		return Strip{}, centreFit{}, fmt.Errorf("straighten: %w", err)
+	}
+	inside := func(i, j int) (int, int, bool) {
+		x := (u0+float64(i))*cs - (v0+float64(j))*sn - float64(roi.Min.X)
+		y := (u0+float64(i))*sn + (v0+float64(j))*cs - float64(roi.Min.Y)
+		if x < 0 || y < 0 || x > float64(w-1) || y > float64(h-1) {
+			return 0, 0, false
+		}
+		return int(x + 0.5), int(y + 0.5), true
+	}
+	s := Strip{AngleDeg: ang, BandHalfHeight: hh}
+	s.Origin = [2]float64{u0*cs - vc*sn, u0*sn + vc*cs}
+	for k, c := range [][2]float64{{u0, vc - hh}, {u1, vc - hh}, {u1, vc + hh}, {u0, vc + hh}} {
+		s.Band[k] = [2]float64{c[0]*cs - c[1]*sn, c[0]*sn + c[1]*cs}
+	}
+	var acc [4][]float64 // R, G, B, luma
+	for c := range acc {
+		acc[c] = make([]float64, L)
+	}
+	s.Clipped = make([]bool, L)
+	var nBand, nClip int
+	bgRows := make([][]float64, 4)
+	for i := 0; i < L; i++ {
+		for c := range bgRows {
+			bgRows[c] = bgRows[c][:0]
+		}
+		var sums [4]float64
+		nIn := 0
+		for j := 0; j < H; j++ {
+			inBand := j >= sd && j <= H-1-sd
+			x, y, ok := inside(i, j)
+			if !ok {
+				continue
+			}
+			base := 4 * (j*L + i)
+			if inBand {
+				nIn++
+				nBand++
+				if clip[y*w+x] {
+					s.Clipped[i] = true
+					nClip++
+				}
+				for c := 0; c < 4; c++ {
+					sums[c] += float64(px[base+c])
+				}
+			} else {
+				for c := 0; c < 4; c++ {
+					bgRows[c] = append(bgRows[c], float64(px[base+c]))
+				}
+			}
+		}
+		rows := float64(2*half + 1)
+		for c := 0; c < 4; c++ {
+			bgv := 0.0
+			if len(bgRows[c]) > 0 {
+				bgv = medianOf(bgRows[c])
+			}
+			if nIn > 0 {
+				acc[c][i] = (sums[c] - float64(nIn)*bgv) * rows / float64(nIn)
+			}
+		}
+	}
+	s.Channels = [3][]float64{acc[0], acc[1], acc[2]}
+	s.Luma = acc[3]
+	s.Sum = make([]float64, L)
+	for i := range s.Sum {
+		s.Sum[i] = acc[0][i] + acc[1][i] + acc[2][i]
+	}
+	s.Profile = s.Sum
+	if profile == ProfileLuma {
+		s.Profile = s.Luma
+	}
+	if nBand > 0 {
+		s.Saturated = float64(nClip) / float64(nBand)
+	}
+	if keep {
+		s.Image = stripImage(px, L, H)
+	}
+	return s, fitCentreLine(px, L, H, s.Luma), nil
+}
+
+func medianOf(v []float64) float64 {
+	sort.Float64s(v)
+	n := len(v)
+	if n%2 == 1 {
+		return v[n/2]
+	}
+	return (v[n/2-1] + v[n/2]) / 2
+}
+
+// stripImage renders the straightened strip for display, sRGB-encoded and
+// scaled so its 99.9th percentile is white.
+func stripImage(px []float32, L, H int) *image.RGBA {
+	vals := make([]float64, 0, len(px)/7+1)
+	for i := 0; i < len(px); i += 7 {
+		vals = append(vals, float64(px[i]))
+	}
+	sort.Float64s(vals)
+	top := math.Max(vals[int(0.999*float64(len(vals)-1))], 1e-6)
+	img := image.NewRGBA(image.Rect(0, 0, L, H))
+	enc := func(v float64) uint8 {
+		v = math.Max(0, math.Min(1, v/top))
+		if v <= 0.0031308 {
+			v *= 12.92
+		} else {
+			v = 1.055*math.Pow(v, 1/2.4) - 0.055
+		}
+		return uint8(v*255 + 0.5)
+	}
+	for j := 0; j < H; j++ {
+		for i := 0; i < L; i++ {
+			b := 4 * (j*L + i)
+			img.SetRGBA(i, j, color.RGBA{enc(float64(px[b])), enc(float64(px[b+1])), enc(float64(px[b+2])), 255})
+		}
+	}
+	return img
+}
+
+// lumaLUT linearises a luma value given on the code scale (0..levels−1) by
+// interpolating a table: for a line of one colour, R′, G′ and B′ follow
+// the same transfer curve, so the linearised luma is proportional to its
+// intensity.
+type lumaLUT struct {
+	step float64
+	tab  []float32
+}
+
+func newLumaLUT(levels int, linear bool) lumaLUT {
+	n := 4097
+	t := lumaLUT{step: float64(levels-1) / float64(n-1), tab: make([]float32, n)}
+	for i := range t.tab {
+		v := float64(i) / float64(n-1)
+		if !linear {
+			if v <= 0.04045 {
+				v /= 12.92
+			} else {
+				v = math.Pow((v+0.055)/1.055, 2.4)
+			}
+		}
+		t.tab[i] = float32(v)
+	}
+	return t
+}
+
+func (t lumaLUT) at(code float64) float32 {
+	x := code / t.step
+	i := int(x)
+	if i >= len(t.tab)-1 {
+		return t.tab[len(t.tab)-1]
+	}
+	f := float32(x - float64(i))
+	return t.tab[i]*(1-f) + t.tab[i+1]*f
+}
+
+// centreFit is a straight line j = offset + slope·i through the vertical
+// centres (strip rows) of the strongest lines in a strip.
+type centreFit struct {
+	slope, offset float64
+	ok            bool
+}
+
+// fitCentreLine measures, at up to 12 of the strongest local maxima of
+// the column profile prof, the centre of the line image across the strip
+// (midpoint of its half-maximum edges, on the luma channel) and fits a
+// straight line through them weighted by line strength. It needs two lines
+// at least a fifth of the strip apart.
+func fitCentreLine(px []float32, L, H int, prof []float64) centreFit {
+	var maxima []int
+	for i := 2; i < L-2; i++ {
+		if prof[i] > prof[i-1] && prof[i] >= prof[i+1] && prof[i] > 0 {
+			maxima = append(maxima, i)
+		}
+	}
+	sort.Slice(maxima, func(a, b int) bool { return prof[maxima[a]] > prof[maxima[b]] })
+	var picked []int
+	for _, m := range maxima {
+		if len(picked) == 12 || prof[m] < 0.05*prof[maxima[0]] {
+			break
+		}
+		near := false
+		for _, p := range picked {
+			if abs(p-m) < 6 {
+				near = true
+			}
+		}
+		if !near {
+			picked = append(picked, m)
+		}
+	}
+	var sw, sx, sy, sxx, sxy float64
+	lo, hi := L, 0
+	vp := make([]float64, H)
+	for _, m := range picked {
+		for j := 0; j < H; j++ {
+			vp[j] = 0
+			for i := m - 2; i <= m+2; i++ {
+				vp[j] += float64(px[4*(j*L+i)+3])
+			}
+		}
+		// Subtract the level beside the band (first and last rows).
+		edge := math.Min(vp[0], vp[H-1])
+		for j := range vp {
+			vp[j] -= edge
+		}
+		c, _, ok := bandEdges(vp)
+		if !ok {
+			continue
+		}
+		w := prof[m]
+		x := float64(m)
+		sw += w
+		sx += w * x
+		sy += w * c
+		sxx += w * x * x
+		sxy += w * x * c
+		lo, hi = min(lo, m), max(hi, m)
+	}
+	if sw == 0 || hi-lo < L/5 {
+		return centreFit{}
+	}
+	d := sw*sxx - sx*sx
+	if d <= 0 {
+		return centreFit{}
+	}
+	slope := (sw*sxy - sx*sy) / d
+	return centreFit{slope: slope, offset: (sy - slope*sx) / sw, ok: math.Abs(slope) < 0.02}
+}
+
+func abs(x int) int {
+	if x < 0 {
+		return -x
+	}
+	return x
+}

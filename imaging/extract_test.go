@@ -1,0 +1,107 @@
+package imaging
+
+import (
+	"image/jpeg"
+	"math"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"lineshot/imaging/synth"
+	"lineshot/peaks"
+)
+
+// mercury lines, air nm (NIST Handbook Hg I, BAL50), with demo strengths.
+var mercury = []synth.Emission{
+	{NM: 404.6563, Strength: 0.5}, {NM: 407.7831, Strength: 0.1}, {NM: 435.8328, Strength: 1},
+	{NM: 491.6068, Strength: 0.05}, {NM: 546.0735, Strength: 1}, {NM: 576.9598, Strength: 0.3}, {NM: 579.0663, Strength: 0.3},
+}
+
+func writeJPEG(t testing.TB, p synth.Params, q int) (string, synth.Truth) {
+	t.Helper()
+	img, tr, err := synth.Render(p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	path := filepath.Join(t.TempDir(), "photo.jpg")
+	f, err := os.Create(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := jpeg.Encode(f, img, &jpeg.Options{Quality: q}); err != nil {
+		t.Fatal(err)
+	}
+	if err := f.Close(); err != nil {
+		t.Fatal(err)
+	}
+	return path, tr
+}
+
+// Round trip through the simulator: every line is found and its centre,
+// mapped back to the original image, lies within 0.3 px of the truth.
+func TestExtractRoundTripTilts(t *testing.T) {
+	for _, tilt := range []float64{0, 4, -8} {
+		p := synth.Params{Width: 1920, Height: 1080, LinesPerMM: 600, TiltDeg: tilt, Seed: 11, Emissions: mercury}
+		path, tr := writeJPEG(t, p, 90)
+		s, err := Extract(path, Options{})
+		if err != nil {
+			t.Fatalf("tilt %g: %v", tilt, err)
+		}
+		if d := math.Abs(s.AngleDeg - tilt); d > 0.05 {
+			t.Errorf("tilt %g: angle %.4f°", tilt, s.AngleDeg)
+		}
+		r, err := peaks.Find(s.Profile, peaks.Options{Clipped: s.Clipped})
+		if err != nil {
+			t.Fatal(err)
+		}
+		var worst float64
+		for _, l := range tr.Lines {
+			best := math.Inf(1)
+			for _, pk := range r.Peaks {
+				x, y := s.ToImage(pk.Center)
+				best = math.Min(best, math.Hypot(x-l.X, y-l.Y))
+			}
+			worst = math.Max(worst, best)
+			if best > 0.3 {
+				t.Errorf("tilt %g: line %.2f nm at (%.2f, %.2f): nearest peak %.3f px away", tilt, l.NM, l.X, l.Y, best)
+			}
+		}
+		t.Logf("tilt %+g°: angle %.4f°, %d peaks, worst centre error %.3f px", tilt, s.AngleDeg, len(r.Peaks), worst)
+	}
+}
+
+func TestExtractRejectsBadInput(t *testing.T) {
+	dir := t.TempDir()
+	text := filepath.Join(dir, "notes.jpg")
+	os.WriteFile(text, []byte("these are not pixels"), 0o644)
+	empty := filepath.Join(dir, "empty.png")
+	os.WriteFile(empty, nil, 0o644)
+	dark, _ := writeJPEG(t, synth.Params{Width: 640, Height: 480, PeakLevel: 1e-9, Emissions: mercury}, 90)
+	for _, c := range []struct{ path, want string }{
+		{filepath.Join(dir, "missing.jpg"), "no such file"},
+		{text, "not an image"},
+		{empty, "empty file"},
+		{dir, "directory"},
+		{dark, "no spectrum band"},
+	} {
+		_, err := Extract(c.path, Options{})
+		if err == nil {
+			t.Errorf("%s: accepted", c.path)
+			continue
+		}
+		if msg := err.Error(); !contains(msg, c.path) || !contains(msg, c.want) {
+			t.Errorf("%s: error %q should name the file and say %q", c.path, msg, c.want)
+		}
+	}
+}
+
+func contains(s, sub string) bool { return len(s) >= len(sub) && (s == sub || len(sub) == 0 || indexOf(s, sub) >= 0) }
+
+func indexOf(s, sub string) int {
+	for i := 0; i+len(sub) <= len(s); i++ {
+		if s[i:i+len(sub)] == sub {
+			return i
+		}
+	}
+	return -1
+}

@@ -1,0 +1,207 @@
+package imaging
+
+import (
+	"math"
+	"sort"
+)
+
+// plane is a single-channel image of linear intensity.
+type plane struct {
+	w, h int
+	pix  []float32
+}
+
+func (p plane) at(x, y int) float32 { return p.pix[y*p.w+x] }
+
+// point is a bright pixel: position and weight above the background.
+type point struct{ x, y, w float64 }
+
+// levels returns the median and the robust σ (1.4826·MAD) of p, from at
+// most about 200 000 evenly spread samples, and the maximum.
+func levels(p plane) (med, sigma, peak float64) {
+	step := max(1, len(p.pix)/200000)
+	s := make([]float64, 0, len(p.pix)/step+1)
+	for i := 0; i < len(p.pix); i += step {
+		s = append(s, float64(p.pix[i]))
+	}
+	for _, v := range p.pix {
+		peak = math.Max(peak, float64(v))
+	}
+	sort.Float64s(s)
+	med = s[len(s)/2]
+	for i := range s {
+		s[i] = math.Abs(s[i] - med)
+	}
+	sort.Float64s(s)
+	return med, 1.4826 * s[len(s)/2], peak
+}
+
+// brightPoints returns the pixels of p brighter than thr, weighted by their
+// excess over bg.
+func brightPoints(p plane, bg, thr float64) []point {
+	var pts []point
+	for y := 0; y < p.h; y++ {
+		row := p.pix[y*p.w : (y+1)*p.w]
+		for x, v := range row {
+			if float64(v) > thr {
+				pts = append(pts, point{float64(x), float64(y), float64(v) - bg})
+			}
+		}
+	}
+	return pts
+}
+
+// principalAngle returns the direction of the weighted principal axis of
+// the points, degrees in (−90, 90], measured from +x towards +y.
+func principalAngle(pts []point) float64 {
+	var sw, sx, sy float64
+	for _, p := range pts {
+		sw += p.w
+		sx += p.w * p.x
+		sy += p.w * p.y
+	}
+	mx, my := sx/sw, sy/sw
+	var sxx, syy, sxy float64
+	for _, p := range pts {
+		dx, dy := p.x-mx, p.y-my
+		sxx += p.w * dx * dx
+		syy += p.w * dy * dy
+		sxy += p.w * dx * dy
+	}
+	a := 0.5 * math.Atan2(2*sxy, sxx-syy) * 180 / math.Pi
+	if a <= -90 {
+		a += 180
+	}
+	return a
+}
+
+// sharpness is Σ h² of the histogram of the points projected on the
+// direction deg (bins of width bin, weights split linearly between bins).
+// Lines perpendicular to that direction give the sharpest histogram when
+// deg is the true dispersion direction.
+func sharpness(pts []point, deg, bin float64, hist []float64) float64 {
+	s, c := math.Sincos(deg * math.Pi / 180)
+	for i := range hist {
+		hist[i] = 0
+	}
+	n := len(hist)
+	for _, p := range pts {
+		u := (p.x*c + p.y*s) / bin
+		i := int(math.Floor(u))
+		f := u - float64(i)
+		i = ((i % n) + n) % n
+		j := (i + 1) % n
+		hist[i] += p.w * (1 - f)
+		hist[j] += p.w * f
+	}
+	var ss float64
+	for _, h := range hist {
+		ss += h * h
+	}
+	return ss
+}
+
+// sharpestAngle searches deg0 ± span in steps of step for the sharpest
+// projection and refines the best step by a parabola through its
+// neighbours.
+func sharpestAngle(pts []point, deg0, span, step, bin float64, extent float64) float64 {
+	n := int(extent/bin) + 8
+	hist := make([]float64, n)
+	best, bestV := deg0, -1.0
+	var vals []float64
+	var angs []float64
+	for a := deg0 - span; a <= deg0+span+1e-9; a += step {
+		v := sharpness(pts, a, bin, hist)
+		vals = append(vals, v)
+		angs = append(angs, a)
+		if v > bestV {
+			best, bestV = a, v
+		}
+	}
+	for k := 1; k+1 < len(vals); k++ {
+		if angs[k] == best {
+			y0, y1, y2 := vals[k-1], vals[k], vals[k+1]
+			if d := y0 - 2*y1 + y2; d < 0 {
+				best += 0.5 * step * (y0 - y2) / d
+			}
+		}
+	}
+	return best
+}
+
+// bandEdges finds the band in a cross-profile prof (index = row offset
+// from v0): the half-maximum crossings either side of its maximum,
+// interpolated linearly. It returns the centre and half-height in the
+// profile's index units, and false when there is no clear maximum.
+func bandEdges(prof []float64) (center, half float64, ok bool) {
+	if len(prof) < 3 {
+		return 0, 0, false
+	}
+	// Smooth lightly so a noisy top does not split the band.
+	sm := make([]float64, len(prof))
+	for i := range prof {
+		var s, n float64
+		for j := max(0, i-2); j <= min(len(prof)-1, i+2); j++ {
+			s += prof[j]
+			n++
+		}
+		sm[i] = s / n
+	}
+	imax := 0
+	for i, v := range sm {
+		if v > sm[imax] {
+			imax = i
+		}
+	}
+	// Plateau level: the median of the samples above 70% of the maximum
+	// (the slit image is flat-topped); the edges are where the profile
+	// crosses half of it.
+	var top []float64
+	for _, v := range sm {
+		if v > 0.7*sm[imax] {
+			top = append(top, v)
+		}
+	}
+	sort.Float64s(top)
+	hm := top[len(top)/2] / 2
+	if hm <= 0 {
+		return 0, 0, false
+	}
+	l := imax
+	for l > 0 && prof[l-1] > hm {
+		l--
+	}
+	r := imax
+	for r < len(prof)-1 && prof[r+1] > hm {
+		r++
+	}
+	if l == 0 || r == len(prof)-1 {
+		return 0, 0, false // the band runs off the searched rows
+	}
+	le := float64(l-1) + (hm-prof[l-1])/(prof[l]-prof[l-1])
+	re := float64(r) + (prof[r]-hm)/(prof[r]-prof[r+1])
+	return (le + re) / 2, (re - le) / 2, true
+}
+
+// chord returns the range of u for which the point u·(c, s) + v·(−s, c)
+// lies inside [0, w−1]×[0, h−1], and false when the line misses the frame.
+func chord(w, h int, deg, v float64) (u0, u1 float64, ok bool) {
+	s, c := math.Sincos(deg * math.Pi / 180)
+	lo, hi := math.Inf(-1), math.Inf(1)
+	// x = u c − v s ∈ [0, w−1]; y = u s + v c ∈ [0, h−1].
+	clip := func(a, b, lim float64) bool { // a·u + b ∈ [0, lim]
+		if math.Abs(a) < 1e-12 {
+			return b >= 0 && b <= lim
+		}
+		t0, t1 := (0-b)/a, (lim-b)/a
+		if t0 > t1 {
+			t0, t1 = t1, t0
+		}
+		lo, hi = math.Max(lo, t0), math.Min(hi, t1)
+		return true
+	}
+	if !clip(c, -v*s, float64(w-1)) || !clip(s, v*c, float64(h-1)) || hi <= lo {
+		return 0, 0, false
+	}
+	return lo, hi, true
+}

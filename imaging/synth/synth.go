@@ -1,0 +1,306 @@
+// Package synth renders synthetic photographs of an emission-line lamp seen
+// through a transmission grating by a camera, together with the exact
+// position of every line, so that the measuring pipeline can be checked
+// against a known truth and users can plan a setup before building it.
+//
+// Geometry: a distant slit illuminates a plane transmission grating at normal
+// incidence; the grating's grooves are vertical. A pinhole camera with focal
+// length f (px) and principal point at the image centre looks at the grating
+// with its axis turned by the camera angle θc from the grating normal, then
+// the camera is rolled by the tilt angle about its axis. A ray of wavelength
+// λ leaves the grating with direction cosine kx = mλ/d (the grating equation
+// at normal incidence, REFERENCE-DATA.md section 9) and ky = sin η, η the
+// elevation within the slit, which is rendered exactly (conical diffraction
+// included). Pixel (i, j) has its centre at (i, j); the truth is the centre
+// of each line image at η = 0.
+//
+// Photometry: the signal in electrons passes through three made-up colour
+// responses (Gaussians centred at 455, 535 and 605 nm: an invented camera,
+// not a measured one), gets Poisson shot noise and Gaussian read noise, is
+// scaled to full scale, clipped, encoded with the sRGB transfer curve and
+// quantised to 8 bits.
+package synth
+
+import (
+	"errors"
+	"fmt"
+	"image"
+	"image/color"
+	"math"
+	"math/rand/v2"
+)
+
+// Emission is one line of the lamp to render.
+type Emission struct {
+	NM       float64 `json:"nm"`       // air wavelength, nm
+	Strength float64 `json:"strength"` // relative, any scale
+	Name     string  `json:"name,omitempty"`
+}
+
+// Params describes the lamp, grating and camera. The zero value of each
+// optional field (marked) picks a sensible default, see Defaults.
+type Params struct {
+	Width          int        `json:"width"`  // px; 0 (with Height 0) → 1920×1080
+	Height         int        `json:"height"` // px
+	LinesPerMM     float64    `json:"lines_per_mm"`
+	Order          int        `json:"order"`            // diffraction order; 0 → 1
+	FocalPX        float64    `json:"focal_px"`         // 0 → fit 380-720 nm into 85% of the width
+	CameraAngleDeg float64    `json:"camera_angle_deg"` // 0 → aimed at the middle of 380-720 nm
+	TiltDeg        float64    `json:"tilt_deg"`         // roll about the optical axis, degrees; positive turns the band clockwise on screen (image y points down)
+	PSFSigmaPX     float64    `json:"psf_sigma_px"`     // Gaussian blur σ; 0 → 1.2
+	LineHeightPX   float64    `json:"line_height_px"`   // length of each line image; 0 → Height/10
+	PeakLevel      float64    `json:"peak_level"`       // brightest line's peak in its strongest channel, fraction of full scale; 0 → 0.8 (above 1 saturates)
+	FullWell       float64    `json:"full_well_e"`      // electrons at full scale; 0 → 6000
+	ReadNoise      float64    `json:"read_noise_e"`     // electrons rms; 0 → 4
+	Background     float64    `json:"background"`       // uniform background, fraction of full scale; 0 → 0.01
+	NoNoise        bool       `json:"no_noise"`         // render the expected image without noise
+	Seed           uint64     `json:"seed"`
+	Emissions      []Emission `json:"emissions"`
+}
+
+// Defaults returns p with every zero optional field set.
+func (p Params) Defaults() Params {
+	if p.Width == 0 && p.Height == 0 {
+		p.Width, p.Height = 1920, 1080
+	}
+	if p.Order == 0 {
+		p.Order = 1
+	}
+	if p.LinesPerMM == 0 {
+		p.LinesPerMM = 600
+	}
+	if p.PSFSigmaPX == 0 {
+		p.PSFSigmaPX = 1.2
+	}
+	if p.LineHeightPX == 0 {
+		p.LineHeightPX = float64(p.Height) / 10
+	}
+	if p.PeakLevel == 0 {
+		p.PeakLevel = 0.8
+	}
+	if p.FullWell == 0 {
+		p.FullWell = 6000
+	}
+	if p.ReadNoise == 0 {
+		p.ReadNoise = 4
+	}
+	if p.Background == 0 {
+		p.Background = 0.01
+	}
+	d := p.dNM()
+	lo := math.Asin(math.Min(1, float64(p.Order)*380/d))
+	hi := math.Asin(math.Min(1, float64(p.Order)*720/d))
+	if p.CameraAngleDeg == 0 {
+		p.CameraAngleDeg = (lo + hi) / 2 * 180 / math.Pi
+	}
+	if p.FocalPX == 0 {
+		tc := p.CameraAngleDeg * math.Pi / 180
+		p.FocalPX = 0.85 * float64(p.Width) / (math.Tan(hi-tc) - math.Tan(lo-tc))
+	}
+	return p
+}
+
+func (p Params) dNM() float64 { return 1e6 / p.LinesPerMM }
+
+// TruthLine is the exact image of one line.
+type TruthLine struct {
+	NM         float64 `json:"nm"` // air wavelength, nm
+	Name       string  `json:"name,omitempty"`
+	X          float64 `json:"x"` // centre at η = 0, original-image px
+	Y          float64 `json:"y"`
+	InFrame    bool    `json:"in_frame"`
+	Dispersion float64 `json:"nm_per_px"` // local dispersion along the band
+	PeakE      float64 `json:"peak_e"`    // expected peak signal, electrons, strongest channel
+}
+
+// Truth is everything Render knows about the picture it made.
+type Truth struct {
+	Params Params      `json:"params"`
+	Lines  []TruthLine `json:"lines"`
+}
+
+// Validate reports the first parameter that makes no sense.
+func (p Params) Validate() error {
+	switch {
+	case p.Width < 16 || p.Height < 16 || p.Width > 20000 || p.Height > 20000:
+		return fmt.Errorf("synth: image size %dx%d outside 16..20000 px", p.Width, p.Height)
+	case p.LinesPerMM <= 0 || p.LinesPerMM > 5000:
+		return fmt.Errorf("synth: %g lines/mm outside (0, 5000]", p.LinesPerMM)
+	case p.FocalPX <= 0, p.PSFSigmaPX <= 0, p.LineHeightPX <= 0, p.FullWell <= 0:
+		return errors.New("synth: focal length, PSF, line height and full well must be positive")
+	case p.ReadNoise < 0 || p.Background < 0 || p.PeakLevel < 0:
+		return errors.New("synth: noise, background and peak level must not be negative")
+	case math.Abs(p.TiltDeg) > 45:
+		return fmt.Errorf("synth: tilt %g° outside ±45°", p.TiltDeg)
+	case len(p.Emissions) == 0:
+		return errors.New("synth: no emission lines to render")
+	}
+	return nil
+}
+
+// response returns the invented camera's R, G, B sensitivity at nm.
+func response(nm float64) [3]float64 {
+	g := func(c, s float64) float64 { d := (nm - c) / s; return math.Exp(-d * d / 2) }
+	return [3]float64{g(605, 45), g(535, 45), g(455, 35)}
+}
+
+// Render draws the photograph. It returns an error for invalid parameters.
+func Render(p Params) (*image.RGBA, Truth, error) {
+	p = p.Defaults()
+	if err := p.Validate(); err != nil {
+		return nil, Truth{}, err
+	}
+	W, H := p.Width, p.Height
+	cx, cy := float64(W-1)/2, float64(H-1)/2
+	f := p.FocalPX
+	tc := p.CameraAngleDeg * math.Pi / 180
+	st, ct := math.Sincos(p.TiltDeg * math.Pi / 180)
+	sc, cc := math.Sincos(tc)
+	dm := p.dNM() / float64(p.Order)
+	fw := p.FullWell
+
+	// Scale strengths so the brightest line peaks at PeakLevel of full scale
+	// in its strongest channel. A line of unit amplitude peaks at 1 on a
+	// Gaussian cross-section times the slit profile's plateau (1).
+	type ln struct {
+		nm, amp float64
+		rgb     [3]float64
+		xu      float64 // unrolled x of the line at η = 0
+	}
+	var lines []ln
+	var truth Truth
+	maxv := 0.0
+	for _, e := range p.Emissions {
+		r := response(e.NM)
+		v := e.Strength * math.Max(r[0], math.Max(r[1], r[2]))
+		maxv = math.Max(maxv, v)
+	}
+	if maxv <= 0 {
+		return nil, Truth{}, errors.New("synth: every emission has zero strength or lies outside the camera's response")
+	}
+	k := p.PeakLevel * fw / maxv
+	for _, e := range p.Emissions {
+		s := e.NM / dm
+		if math.Abs(s) >= 1 {
+			continue // this order does not exist for this line
+		}
+		th := math.Asin(s)
+		if math.Abs(th-tc) >= math.Pi/2*0.95 {
+			continue
+		}
+		xu := cx + f*math.Tan(th-tc)
+		r := response(e.NM)
+		l := ln{nm: e.NM, amp: e.Strength * k, rgb: r, xu: xu}
+		lines = append(lines, l)
+		x := cx + (xu-cx)*ct
+		y := cy + (xu-cx)*st
+		X := (xu - cx) / f
+		disp := dm * math.Cos(tc+math.Atan(X)) / (1 + X*X) / f
+		truth.Lines = append(truth.Lines, TruthLine{
+			NM: e.NM, Name: e.Name, X: x, Y: y, Dispersion: disp, PeakE: l.amp * math.Max(r[0], math.Max(r[1], r[2])),
+			InFrame: x >= 0 && x <= float64(W-1) && y >= 0 && y <= float64(H-1),
+		})
+	}
+	truth.Params = p
+
+	// Expected signal, electrons, per channel.
+	sig := make([]float32, 3*W*H)
+	bg := float32(p.Background * fw)
+	for i := range sig {
+		sig[i] = bg
+	}
+	halfH := p.LineHeightPX / 2 / f // slit half-height as an angle
+	sEta := p.PSFSigmaPX / f
+	// Bounding box of the band in the image.
+	yMargin := p.LineHeightPX/2 + 6*p.PSFSigmaPX
+	xMin, xMax := math.Inf(1), math.Inf(-1)
+	for _, l := range lines {
+		xMin, xMax = math.Min(xMin, l.xu), math.Max(xMax, l.xu)
+	}
+	xMin -= 6*p.PSFSigmaPX + 2*yMargin*yMargin/f + 2
+	xMax += 6*p.PSFSigmaPX + 2*yMargin*yMargin/f + 2
+	bx0, by0, bx1, by1 := math.Inf(1), math.Inf(1), math.Inf(-1), math.Inf(-1)
+	for _, u := range []float64{xMin, xMax} {
+		for _, v := range []float64{cy - yMargin, cy + yMargin} {
+			x := cx + (u-cx)*ct - (v-cy)*st
+			y := cy + (u-cx)*st + (v-cy)*ct
+			bx0, bx1 = math.Min(bx0, x), math.Max(bx1, x)
+			by0, by1 = math.Min(by0, y), math.Max(by1, y)
+		}
+	}
+	i0, i1 := max(0, int(math.Floor(bx0))), min(W-1, int(math.Ceil(bx1)))
+	j0, j1 := max(0, int(math.Floor(by0))), min(H-1, int(math.Ceil(by1)))
+	for j := j0; j <= j1; j++ {
+		for i := i0; i <= i1; i++ {
+			dx, dy := float64(i)-cx, float64(j)-cy
+			xu := dx*ct + dy*st // unrolled, relative to the principal point
+			yu := -dx*st + dy*ct
+			X, Y := xu/f, yu/f
+			nrm := math.Sqrt(1 + X*X + Y*Y)
+			ky := Y / nrm
+			eta := math.Asin(ky)
+			if eta < -halfH-6*sEta || eta > halfH+6*sEta {
+				continue
+			}
+			kx := (X*cc + sc) / nrm
+			w := kx * dm
+			// dw/dx along the band, nm per px, for the blur width.
+			dwdx := dm * (cc*(1+Y*Y) - sc*X) / (nrm * nrm * nrm) / f
+			sw := p.PSFSigmaPX * math.Abs(dwdx)
+			slit := 0.5 * (math.Erf((eta+halfH)/(math.Sqrt2*sEta)) - math.Erf((eta-halfH)/(math.Sqrt2*sEta)))
+			base := 3 * (j*W + i)
+			for _, l := range lines {
+				d := (w - l.nm) / sw
+				if d > 7 || d < -7 {
+					continue
+				}
+				s := l.amp * math.Exp(-d*d/2) * slit
+				sig[base] += float32(s * l.rgb[0])
+				sig[base+1] += float32(s * l.rgb[1])
+				sig[base+2] += float32(s * l.rgb[2])
+			}
+		}
+	}
+
+	rng := rand.New(rand.NewPCG(p.Seed, 0x5eed))
+	lut := srgbLUT()
+	img := image.NewRGBA(image.Rect(0, 0, W, H))
+	for j := 0; j < H; j++ {
+		for i := 0; i < W; i++ {
+			base := 3 * (j*W + i)
+			var c [3]uint8
+			for ch := 0; ch < 3; ch++ {
+				e := float64(sig[base+ch])
+				if !p.NoNoise {
+					e += math.Sqrt(e)*rng.NormFloat64() + p.ReadNoise*rng.NormFloat64()
+				}
+				v := e / fw
+				if v < 0 {
+					v = 0
+				} else if v > 1 {
+					v = 1
+				}
+				c[ch] = lut[int(v*float64(len(lut)-1)+0.5)]
+			}
+			img.SetRGBA(i, j, color.RGBA{c[0], c[1], c[2], 255})
+		}
+	}
+	return img, truth, nil
+}
+
+// srgbLUT maps linear intensity in [0, 1] (65536 steps) to 8-bit sRGB
+// (IEC 61966-2-1 transfer curve).
+func srgbLUT() []uint8 {
+	lut := make([]uint8, 65536)
+	for i := range lut {
+		v := float64(i) / float64(len(lut)-1)
+		var s float64
+		if v <= 0.0031308 {
+			s = 12.92 * v
+		} else {
+			s = 1.055*math.Pow(v, 1/2.4) - 0.055
+		}
+		lut[i] = uint8(math.Round(s * 255))
+	}
+	return lut
+}
