@@ -71,7 +71,7 @@ type Strip struct {
 	// ResidualTiltDeg is the slope left in the band's centre line after
 	// straightening, degrees (0 when it could not be measured).
 	ResidualTiltDeg float64
-	Image      *image.RGBA
+	Image           *image.RGBA
 }
 
 // ToImage maps profile position p to original-image coordinates.
