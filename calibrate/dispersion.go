@@ -1,6 +1,7 @@
 package calibrate
 
 import (
+	"encoding/json"
 	"errors"
 	"fmt"
 	"math"
@@ -56,7 +57,7 @@ type Dispersion struct {
 	ChiSq     float64     `json:"chi2"`
 	DOF       int         `json:"dof"`
 	Birge     float64     `json:"birge_ratio"` // sqrt(χ²/DOF); 1 when DOF is 0
-	AICc      float64     `json:"aicc"`
+	AICc      Float       `json:"aicc"` // +Inf (null in JSON) when no degree of freedom is left
 	RMSNM     float64     `json:"rms_nm"`
 	MinPX     float64     `json:"min_px"` // calibrated range
 	MaxPX     float64     `json:"max_px"`
@@ -79,8 +80,35 @@ type ModelFit struct {
 	Model string  `json:"model"`
 	ChiSq float64 `json:"chi2"`
 	DOF   int     `json:"dof"`
-	AICc  float64 `json:"aicc"`
+	AICc  Float   `json:"aicc"`
 	RMSNM float64 `json:"rms_nm"`
+}
+
+// Float is a float64 that encodes as JSON null when it is not finite
+// (JSON has no infinity) and decodes null as +Inf.
+type Float float64
+
+// MarshalJSON implements json.Marshaler.
+func (f Float) MarshalJSON() ([]byte, error) {
+	v := float64(f)
+	if math.IsInf(v, 0) || math.IsNaN(v) {
+		return []byte("null"), nil
+	}
+	return json.Marshal(v)
+}
+
+// UnmarshalJSON implements json.Unmarshaler.
+func (f *Float) UnmarshalJSON(b []byte) error {
+	if string(b) == "null" {
+		*f = Float(math.Inf(1))
+		return nil
+	}
+	var v float64
+	if err := json.Unmarshal(b, &v); err != nil {
+		return err
+	}
+	*f = Float(v)
+	return nil
 }
 
 // Wavelength returns the air wavelength at profile position p, nm.
@@ -218,11 +246,17 @@ func FitDispersion(pts []Point, opt FitOptions) (Dispersion, error) {
 	}
 	// Prefer the physical model on a near tie: it extrapolates by physics
 	// rather than by polynomial.
+	// With too few lines for AICc, fall back to plain AIC (χ² + 2k),
+	// ranked after every model that has an AICc.
 	score := func(f Dispersion) float64 {
-		if f.Model == ModelGrating {
-			return f.AICc - 2
+		v := float64(f.AICc)
+		if math.IsInf(v, 1) {
+			v = 1e12 + f.ChiSq + 2*float64(len(f.Params))
 		}
-		return f.AICc
+		if f.Model == ModelGrating {
+			v -= 2
+		}
+		return v
 	}
 	best := 0
 	for i, f := range fits {
@@ -317,12 +351,13 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 			d.Cov[a][b] = res.Cov.At(a, b) * scale
 		}
 	}
-	d.AICc = d.ChiSq + 2*float64(k)
+	aicc := d.ChiSq + 2*float64(k)
 	if n-k-1 > 0 {
-		d.AICc += 2 * float64(k*(k+1)) / float64(n-k-1)
+		aicc += 2 * float64(k*(k+1)) / float64(n-k-1)
 	} else {
-		d.AICc = math.Inf(1) // no degrees of freedom left to judge the model
+		aicc = math.Inf(1) // no degrees of freedom left to judge the model
 	}
+	d.AICc = Float(aicc)
 	var ss float64
 	for _, p := range pts {
 		f := d.Wavelength(p.PX)
