@@ -57,7 +57,7 @@ type Dispersion struct {
 	ChiSq     float64     `json:"chi2"`
 	DOF       int         `json:"dof"`
 	Birge     float64     `json:"birge_ratio"` // sqrt(χ²/DOF); 1 when DOF is 0
-	AICc      Float       `json:"aicc"` // +Inf (null in JSON) when no degree of freedom is left
+	AICc      Float       `json:"aicc"`        // +Inf (null in JSON) when no degree of freedom is left
 	RMSNM     float64     `json:"rms_nm"`
 	MinPX     float64     `json:"min_px"` // calibrated range
 	MaxPX     float64     `json:"max_px"`
