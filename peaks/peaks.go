@@ -31,6 +31,9 @@ type Peak struct {
 	Index      int     // sample of the local maximum
 	Saturated  bool    // clipped samples lay under the peak and were left out of the fit
 	Method     string  // "gauss" or "centroid" (fallback when the fit failed)
+	CentreCOG  float64 // centre of gravity above half maximum, a cross-check on Center
+	Blend      bool    // fitted jointly with overlapping neighbours
+	Unresolved bool    // much wider than the profile's other lines: possibly an unresolved blend
 }
 
 // Options tunes Find. The zero value is usable.
@@ -49,6 +52,11 @@ type Options struct {
 	BaselineWindow int
 	// Clipped marks samples that hold saturated pixels; nil means none.
 	Clipped []bool
+	// Gain is the profile value of one detected photoelectron, so that a
+	// line signal S carries shot-noise variance Gain·S; with it the fit
+	// weights each sample by noise² + Gain·S and approaches the Cramér–Rao
+	// bound at high SNR. 0 means uniform weights (the gain is unknown).
+	Gain float64
 }
 
 // Result is what Find returns besides the peaks, to look at.
@@ -84,7 +92,9 @@ func Find(profile []float64, opt Options) (Result, error) {
 	}
 	win := opt.BaselineWindow
 	if win == 0 {
-		win = max(31, n/25)
+		// Wide enough to pass under the widest strong line: 8 times the
+		// half-maximum width of the profile's highest sample.
+		win = max(31, n/25, 8*topWidth(profile))
 	}
 	base := make([]float64, n)
 	if win > 0 {
@@ -121,40 +131,106 @@ func Find(profile []float64, opt Options) (Result, error) {
 		}
 	}
 	keep = dropClose(keep, cands, sm, sep)
+	var est []comp
 	for _, k := range keep {
-		p := measure(y, cands[k], noise, opt.Clipped, neighbours(cands, keep, k))
-		p.Prominence = prom[k]
-		// Report only what is a line: as high as asked once fitted, wider
-		// than a single-sample spike, and placed to better than half its
-		// width.
-		if p.SNR < minSNR || p.FWHM < 0.8 || p.Sigma > p.FWHM/2 {
-			continue
-		}
-		res.Peaks = append(res.Peaks, p)
+		c := fitter{y: sm}.estimate(cands[k]) // the smoothed profile gives steadier starting widths
+		c.prom = prom[k]
+		est = append(est, c)
 	}
+	// A half-maximum walk runs on into an overlapping neighbour; no line
+	// starts wider than the gap to its nearest neighbour.
+	for k := range est {
+		for _, j := range []int{k - 1, k + 1} {
+			if j >= 0 && j < len(est) {
+				est[k].fwhm = math.Max(1.5, math.Min(est[k].fwhm, math.Abs(est[j].mu-est[k].mu)))
+			}
+		}
+	}
+	// Re-estimate the noise from the samples away from every candidate
+	// line, now that they are known, so that line wings do not inflate it.
+	if bg := awayFromLines(y, est); len(bg) >= max(30, n/5) {
+		noise = LevelNoise(bg)
+		res.Noise = noise
+	}
+	if noise == 0 {
+		noise = 1e-12 * (1 + maxAbs(y))
+	}
+	f := fitter{y: y, noise: noise, gain: opt.Gain, clipped: opt.Clipped}
+	for _, g := range groupComps(est) {
+		for _, p := range f.fitGroup(est[g[0]:g[1]]) {
+			// Report only what is a line: as high as asked once fitted,
+			// wider than a single-sample spike, and placed to better than
+			// half its width.
+			if p.SNR < minSNR || p.FWHM < 0.8 || p.Sigma > p.FWHM/2 {
+				continue
+			}
+			res.Peaks = append(res.Peaks, p)
+		}
+	}
+	f.splitWide(&res, minSNR)
 	sort.Slice(res.Peaks, func(a, b int) bool { return res.Peaks[a].Center < res.Peaks[b].Center })
 	return res, nil
 }
 
-// neighbours returns the positions of the kept maxima either side of k
-// (−1 when there is none), to bound the fit window.
-func neighbours(cands, keep []int, k int) [2]int {
-	nb := [2]int{-1, -1}
-	for _, o := range keep {
-		c := cands[o]
-		if c < cands[k] && (nb[0] < 0 || c > nb[0]) {
-			nb[0] = c
-		}
-		if c > cands[k] && (nb[1] < 0 || c < nb[1]) {
-			nb[1] = c
+// awayFromLines returns the samples of y farther than 2·FWHM + 2 from
+// every estimated line.
+func awayFromLines(y []float64, est []comp) []float64 {
+	near := make([]bool, len(y))
+	for _, c := range est {
+		r := 2*c.fwhm + 2
+		for j := max(0, int(c.mu-r)); j <= min(len(y)-1, int(c.mu+r)); j++ {
+			near[j] = true
 		}
 	}
-	return nb
+	var out []float64
+	for j, v := range y {
+		if !near[j] {
+			out = append(out, v)
+		}
+	}
+	return out
 }
 
-// measure fits one peak at local maximum i of the baseline-free profile y.
-func measure(y []float64, i int, noise float64, clipped []bool, nb [2]int) Peak {
-	n := len(y)
+// topWidth returns the number of samples above half maximum around the
+// profile's highest sample, measured from the profile's median.
+func topWidth(y []float64) int {
+	med := median(y)
+	top := 0
+	for i, v := range y {
+		if v > y[top] {
+			top = i
+		}
+	}
+	hm := med + (y[top]-med)/2
+	l, r := top, top
+	for l > 0 && y[l-1] > hm {
+		l--
+	}
+	for r < len(y)-1 && y[r+1] > hm {
+		r++
+	}
+	return r - l + 1
+}
+
+// comp is a starting estimate of one line.
+type comp struct {
+	idx         int     // sample of the local maximum
+	mu, a, fwhm float64 // centre, height, FWHM
+	prom        float64
+}
+
+// fitter holds what every line fit of one profile shares.
+type fitter struct {
+	y       []float64
+	noise   float64
+	gain    float64
+	clipped []bool
+}
+
+// estimate measures the half-maximum width at local maximum i and places
+// the centre by a parabola through the three top samples.
+func (f fitter) estimate(i int) comp {
+	y, n := f.y, len(f.y)
 	hm := y[i] / 2
 	l, r := i, i
 	for l > 0 && y[l-1] > hm {
@@ -163,77 +239,229 @@ func measure(y []float64, i int, noise float64, clipped []bool, nb [2]int) Peak 
 	for r < n-1 && y[r+1] > hm {
 		r++
 	}
-	fwhm0 := math.Max(1.5, float64(r-l+1))
-	half := int(math.Ceil(1.5*fwhm0)) + 1
-	lo, hi := max(0, i-half), min(n-1, i+half)
-	// Stay clear of the neighbours: each gets the samples on its side of
-	// the midpoint.
-	if nb[0] >= 0 {
-		lo = max(lo, (nb[0]+i)/2+1)
+	mu := float64(i)
+	if i > 0 && i < n-1 {
+		if d := y[i-1] - 2*y[i] + y[i+1]; d < 0 {
+			mu += 0.5 * (y[i-1] - y[i+1]) / d
+		}
 	}
-	if nb[1] >= 0 {
-		hi = min(hi, (nb[1]+i+1)/2-1)
+	return comp{idx: i, mu: mu, a: y[i], fwhm: math.Max(1.5, float64(r-l+1))}
+}
+
+// groupComps returns [start, end) ranges of estimates whose fit windows
+// overlap enough that they must be fitted together: centres closer than
+// 1.8·(FWHM_a + FWHM_b) + 2 samples, up to six lines a group.
+func groupComps(cs []comp) [][2]int {
+	var out [][2]int
+	start := 0
+	for k := 1; k <= len(cs); k++ {
+		if k < len(cs) && k-start < 6 && cs[k].mu-cs[k-1].mu < 1.8*(cs[k].fwhm+cs[k-1].fwhm)+2 {
+			continue
+		}
+		out = append(out, [2]int{start, k})
+		start = k
 	}
-	p := Peak{Index: i, Height: y[i], FWHM: fwhm0}
+	return out
+}
+
+// fitGroup fits the lines of one group jointly: a Gaussian each on a
+// shared sloping background, weighted by the noise model. Clipped samples
+// are left out. A line whose joint fit fails falls back to its centre of
+// gravity.
+func (f fitter) fitGroup(cs []comp) []Peak {
+	n := len(f.y)
+	maxW := 0.0
+	for _, c := range cs {
+		maxW = math.Max(maxW, c.fwhm)
+	}
+	lo := max(0, int(math.Floor(cs[0].mu-1.5*cs[0].fwhm))-1)
+	hi := min(n-1, int(math.Ceil(cs[len(cs)-1].mu+1.5*cs[len(cs)-1].fwhm))+1)
+	out := make([]Peak, len(cs))
 	var xs, ys []float64
+	saturated := make([]bool, len(cs))
 	for j := lo; j <= hi; j++ {
-		if clipped != nil && clipped[j] {
-			p.Saturated = true
+		if f.clipped != nil && f.clipped[j] {
+			// Attribute the clipped sample to the nearest line.
+			best := 0
+			for k, c := range cs {
+				if math.Abs(float64(j)-c.mu) < math.Abs(float64(j)-cs[best].mu) {
+					best = k
+				}
+			}
+			saturated[best] = true
 			continue
 		}
 		xs = append(xs, float64(j))
-		ys = append(ys, y[j])
+		ys = append(ys, f.y[j])
 	}
-	if g, ok := fitGauss(xs, ys, noise, float64(i), y[i], fwhm0); ok {
-		p.Center, p.Sigma, p.FWHM, p.Height, p.Method = g[0], g[1], g[2], g[3], "gauss"
-	} else {
-		p.Center, p.Sigma = centroid(y, lo, hi, noise)
-		p.Method = "centroid"
+	x0 := (float64(lo) + float64(hi)) / 2
+	params, cov, ok := f.fitGaussians(xs, ys, cs, x0)
+	for k, c := range cs {
+		p := Peak{Index: c.idx, Prominence: c.prom, Saturated: saturated[k], Blend: len(cs) > 1}
+		if ok {
+			a, mu, s := params[3*k], params[3*k+1], math.Abs(params[3*k+2])
+			if a > 0 && mu >= float64(lo) && mu <= float64(hi) && s >= 0.2 && s <= 3*c.fwhm {
+				p.Center, p.Sigma, p.FWHM, p.Height, p.Method = mu, math.Sqrt(cov[k]), s*fwhmPerSigma, a, "gauss"
+			}
+		}
+		if p.Method == "" {
+			l, r := max(lo, c.idx-int(c.fwhm)), min(hi, c.idx+int(c.fwhm))
+			p.Center, p.Sigma = centroid(f.y, l, r, f.noise)
+			p.FWHM, p.Height, p.Method = c.fwhm, c.a, "centroid"
+		}
+		l, r := max(lo, int(p.Center-p.FWHM)), min(hi, int(p.Center+p.FWHM)+1)
+		p.CentreCOG, _ = centroid(f.y, l, r, f.noise)
+		p.Area = p.Height * p.FWHM * 1.0645
+		p.SNR = p.Height / f.noise
+		out[k] = p
 	}
-	p.Area = p.Height * p.FWHM * 1.0645
-	p.SNR = p.Height / noise
-	return p
+	return out
+}
+
+// fitGaussians fits Σ A_k·exp(−(x−μ_k)²/2s_k²) + c0 + c1·(x − x0) and
+// returns the parameters and the variance of each centre (scaled up by the
+// fit's Birge ratio when it exceeds 1). With a gain, the weights follow
+// σ² = noise² + gain·(line signal), refitted once with the first fit's model.
+func (f fitter) fitGaussians(xs, ys []float64, cs []comp, x0 float64) ([]float64, []float64, bool) {
+	K := len(cs)
+	if len(xs) < 3*K+3 {
+		return nil, nil, false
+	}
+	init := make([]float64, 0, 3*K+2)
+	for _, c := range cs {
+		init = append(init, c.a, c.mu, c.fwhm/fwhmPerSigma)
+	}
+	init = append(init, 0, 0)
+	lines := func(x float64, p, g []float64) float64 {
+		var v float64
+		for k := 0; k < K; k++ {
+			a, mu, s := p[3*k], p[3*k+1], p[3*k+2]
+			dx := x - mu
+			s2 := s * s
+			e := math.Exp(-dx * dx / (2 * s2))
+			v += a * e
+			if g != nil {
+				g[3*k] = e
+				g[3*k+1] = a * e * dx / s2
+				g[3*k+2] = a * e * dx * dx / (s2 * s)
+			}
+		}
+		return v
+	}
+	model := func(i int, p, g []float64) float64 {
+		v := lines(xs[i], p, g) + p[3*K] + p[3*K+1]*(xs[i]-x0)
+		if g != nil {
+			g[3*K], g[3*K+1] = 1, xs[i]-x0
+		}
+		return v
+	}
+	sig := make([]float64, len(xs))
+	for i := range sig {
+		sig[i] = f.noise
+	}
+	r, err := lsq.Fit(lsq.Problem{Y: ys, Sigma: sig, Model: model}, init)
+	if err != nil {
+		return nil, nil, false
+	}
+	if f.gain > 0 {
+		for i := range sig {
+			sig[i] = math.Sqrt(f.noise*f.noise + f.gain*math.Max(0, lines(xs[i], r.Params, nil)))
+		}
+		r2, err := lsq.Fit(lsq.Problem{Y: ys, Sigma: sig, Model: model}, r.Params)
+		if err == nil {
+			r = r2
+		}
+	}
+	// Scale the errors up only when the residuals are significantly larger
+	// than the noise model says (χ²/dof beyond its 2σ range), so that
+	// ordinary fluctuations of χ² do not inflate every σ.
+	birge := 1.0
+	if r.DOF > 0 {
+		if red := r.ChiSq / float64(r.DOF); red > 1+2*math.Sqrt(2/float64(r.DOF)) {
+			birge = red
+		}
+	}
+	// Without a gain the weights ignore shot noise, which is largest at the
+	// line's core: the model covariance then understates the scatter of
+	// bright lines by up to 2.5 times (BenchmarkCramerRao), so take the
+	// sandwich covariance when it is larger, scaled by n/(n−k) for the
+	// parameters it used up.
+	hc := float64(len(xs)) / float64(max(1, r.DOF))
+	v := make([]float64, K)
+	for k := range v {
+		v[k] = r.Cov.At(3*k+1, 3*k+1) * birge
+		if f.gain == 0 {
+			v[k] = math.Max(v[k], r.Robust.At(3*k+1, 3*k+1)*hc)
+		}
+	}
+	return r.Params, v, true
+}
+
+// splitWide looks for lines 1.25 times wider than the profile's typical line and
+// tries to split each into two. A split is kept when it lowers χ² by more
+// than 25 and both parts clear the SNR threshold at least 0.4 FWHM apart;
+// otherwise the line is flagged Unresolved.
+func (f fitter) splitWide(res *Result, minSNR float64) {
+	var ws []float64
+	for _, p := range res.Peaks {
+		if p.SNR >= 20 && !p.Blend {
+			ws = append(ws, p.FWHM)
+		}
+	}
+	if len(ws) < 3 {
+		return
+	}
+	typ := median(ws)
+	var out []Peak
+	for _, p := range res.Peaks {
+		if p.Blend || p.SNR < 20 || p.FWHM < 1.25*typ {
+			out = append(out, p)
+			continue
+		}
+		half := p.FWHM / 4
+		cs := []comp{
+			{idx: p.Index, mu: p.Center - half, a: p.Height * 0.7, fwhm: typ, prom: p.Prominence},
+			{idx: p.Index, mu: p.Center + half, a: p.Height * 0.7, fwhm: typ, prom: p.Prominence},
+		}
+		one := f.chi2Single(p)
+		parts := f.fitGroup(cs)
+		two := f.chi2Pair(parts)
+		if parts[0].Method == "gauss" && parts[1].Method == "gauss" && one-two > 25 &&
+			parts[0].SNR >= minSNR && parts[1].SNR >= minSNR && math.Abs(parts[1].Center-parts[0].Center) >= 0.4*typ {
+			out = append(out, parts...)
+			continue
+		}
+		p.Unresolved = true
+		out = append(out, p)
+	}
+	res.Peaks = out
+}
+
+// chi2Single and chi2Pair evaluate χ² of one or two fitted Gaussians (on
+// the median-free profile, local background neglected) over their window.
+func (f fitter) chi2Single(p Peak) float64  { return f.chi2([]Peak{p}) }
+func (f fitter) chi2Pair(ps []Peak) float64 { return f.chi2(ps) }
+
+func (f fitter) chi2(ps []Peak) float64 {
+	lo, hi := math.Inf(1), math.Inf(-1)
+	for _, p := range ps {
+		lo = math.Min(lo, p.Center-1.5*p.FWHM-1)
+		hi = math.Max(hi, p.Center+1.5*p.FWHM+1)
+	}
+	var s float64
+	for j := max(0, int(lo)); j <= min(len(f.y)-1, int(hi)+1); j++ {
+		m := 0.0
+		for _, p := range ps {
+			d := (float64(j) - p.Center) / (p.FWHM / fwhmPerSigma)
+			m += p.Height * math.Exp(-d*d/2)
+		}
+		r := (f.y[j] - m) / f.noise
+		s += r * r
+	}
+	return s
 }
 
 const fwhmPerSigma = 2.3548200450309493 // 2·sqrt(2 ln 2)
-
-// fitGauss fits A·exp(−(x−μ)²/2s²) + c0 + c1·(x − x0) and returns μ, σ_μ,
-// FWHM and A, or false when the fit fails or wanders off the window.
-func fitGauss(xs, ys []float64, noise, x0, a0, fwhm0 float64) ([4]float64, bool) {
-	if len(xs) < 6 {
-		return [4]float64{}, false
-	}
-	sig := make([]float64, len(xs))
-	for k := range sig {
-		sig[k] = noise
-	}
-	model := func(k int, p, g []float64) float64 {
-		dx := xs[k] - p[1]
-		s2 := p[2] * p[2]
-		e := math.Exp(-dx * dx / (2 * s2))
-		if g != nil {
-			g[0] = e
-			g[1] = p[0] * e * dx / s2
-			g[2] = p[0] * e * dx * dx / (s2 * p[2])
-			g[3] = 1
-			g[4] = xs[k] - x0
-		}
-		return p[0]*e + p[3] + p[4]*(xs[k]-x0)
-	}
-	r, err := lsq.Fit(lsq.Problem{Y: ys, Sigma: sig, Model: model}, []float64{a0, x0, fwhm0 / fwhmPerSigma, 0, 0})
-	if err != nil {
-		return [4]float64{}, false
-	}
-	mu, s, a := r.Params[1], math.Abs(r.Params[2]), r.Params[0]
-	if a <= 0 || mu < xs[0] || mu > xs[len(xs)-1] || s < 0.2 || s > 3*fwhm0 {
-		return [4]float64{}, false
-	}
-	sd := math.Sqrt(r.Cov.At(1, 1))
-	if r.DOF > 0 {
-		sd *= math.Max(1, math.Sqrt(r.ChiSq/float64(r.DOF)))
-	}
-	return [4]float64{mu, sd, s * fwhmPerSigma, a}, true
-}
 
 // centroid is the centre of gravity of the samples above half the maximum
 // in [lo, hi], with the error that independent noise on each sample gives.

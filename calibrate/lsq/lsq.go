@@ -33,6 +33,12 @@ type Problem struct {
 type Result struct {
 	Params []float64
 	Cov    *mat.SymDense // (JᵀWJ)⁻¹, not scaled by χ²/DOF
+	// Robust is the heteroskedasticity-consistent ("sandwich", White 1980
+	// HC0) covariance (JᵀWJ)⁻¹ Jᵀ W diag(r²) W J (JᵀWJ)⁻¹, r the residuals:
+	// right even when the σ given were wrong by a factor that varies from
+	// observation to observation (unknown shot noise), noisier when few
+	// observations are left over.
+	Robust *mat.SymDense
 	ChiSq  float64
 	DOF    int
 }
@@ -108,5 +114,26 @@ func Fit(p Problem, init []float64) (Result, error) {
 	if err := ch.InverseTo(cov); err != nil {
 		return Result{}, ErrSingular
 	}
-	return Result{Params: best, Cov: cov, ChiSq: chi2(best), DOF: len(p.Y) - k}, nil
+	// Meat of the sandwich: Σ w² r² g gᵀ.
+	meat := mat.NewSymDense(k, nil)
+	for i, y := range p.Y {
+		m := p.Model(i, best, grad)
+		w := 1 / (p.Sigma[i] * p.Sigma[i])
+		r := y - m
+		for a := 0; a < k; a++ {
+			for b := a; b < k; b++ {
+				meat.SetSym(a, b, meat.At(a, b)+w*w*r*r*grad[a]*grad[b])
+			}
+		}
+	}
+	var tmp, rob mat.Dense
+	tmp.Mul(cov, meat)
+	rob.Mul(&tmp, cov)
+	robust := mat.NewSymDense(k, nil)
+	for a := 0; a < k; a++ {
+		for b := a; b < k; b++ {
+			robust.SetSym(a, b, (rob.At(a, b)+rob.At(b, a))/2)
+		}
+	}
+	return Result{Params: best, Cov: cov, Robust: robust, ChiSq: chi2(best), DOF: len(p.Y) - k}, nil
 }
