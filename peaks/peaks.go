@@ -64,6 +64,13 @@ type Result struct {
 	Peaks    []Peak
 	Baseline []float64 // subtracted baseline
 	Noise    float64   // robust σ of one sample of the profile
+	// Smoothed is the baseline-free profile smoothed by [1 2 1]/4, on which
+	// candidates were detected; Threshold is the height and prominence a
+	// candidate needed there, and Distance the least spacing kept (the
+	// arguments scipy.signal.find_peaks would take to find the same).
+	Smoothed  []float64
+	Threshold float64
+	Distance  float64
 }
 
 // Find detects and measures the peaks of profile. It returns an error for
@@ -122,6 +129,7 @@ func Find(profile []float64, opt Options) (Result, error) {
 	sm := smooth121(y)
 	// [1 2 1]/4 smoothing scales white noise by sqrt(6)/4.
 	thr := minSNR * noise * math.Sqrt(6) / 4
+	res.Smoothed, res.Threshold, res.Distance = sm, thr, sep
 	cands := LocalMaxima(sm)
 	prom := Prominences(sm, cands)
 	var keep []int

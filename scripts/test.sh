@@ -3,7 +3,7 @@
 # go vet and the whole test suite. CI runs exactly this (.ci/run).
 set -euo pipefail
 cd "$(dirname "$0")/.."
-source scripts/setup.sh
+source scripts/setup.sh python3-scipy   # SciPy: the outside check of peaks/ (TestAgainstSciPy)
 unformatted=$(gofmt -l $(git ls-files '*.go' 2>/dev/null || find . -name '*.go'))
 if [ -n "$unformatted" ]; then
   echo "test: gofmt would change: $unformatted" >&2
