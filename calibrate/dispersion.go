@@ -22,6 +22,7 @@ type Point struct {
 	PX      float64 // position along the profile, px
 	SigmaPX float64 // its 1σ uncertainty, px
 	NM      float64 // reference air wavelength, nm
+	SigmaNM float64 // uncertainty of the reference (bands); 0 means FitOptions.RefSigmaNM
 	Line    string  // reference line name
 }
 
@@ -56,8 +57,9 @@ type Dispersion struct {
 	Scale     float64     `json:"scale_px,omitempty"`
 	ChiSq     float64     `json:"chi2"`
 	DOF       int         `json:"dof"`
-	Birge     float64     `json:"birge_ratio"` // sqrt(χ²/DOF); 1 when DOF is 0
-	AICc      Float       `json:"aicc"`        // +Inf (null in JSON) when no degree of freedom is left
+	Birge     float64     `json:"birge_ratio"`       // sqrt(χ²/DOF); 1 when DOF is 0
+	FloorPX   float64     `json:"position_floor_px"` // see FitOptions.EstimateFloor
+	AICc      Float       `json:"aicc"`              // +Inf (null in JSON) when no degree of freedom is left
 	RMSNM     float64     `json:"rms_nm"`
 	MinPX     float64     `json:"min_px"` // calibrated range
 	MaxPX     float64     `json:"max_px"`
@@ -197,6 +199,18 @@ type FitOptions struct {
 	// point, used by the grating model; NaN or 0 with no better knowledge
 	// means the middle of the calibrated range.
 	OpticalCenterPX float64
+	// LinesPerMM, when set, is the grating's nominal ruling: the grating
+	// model then takes d = 1/LinesPerMM (first order) as a measurement with
+	// relative uncertainty LinesPerMMTolerance (0 means 3 %, a typical
+	// tolerance of replica gratings, from memory). Polynomials ignore it.
+	LinesPerMM, LinesPerMMTolerance float64
+	// EstimateFloor, when the chosen fit's χ²/DOF is significantly above 1, finds the
+	// position uncertainty f (px) that, added in quadrature to every
+	// point's SigmaPX, brings χ²/DOF to 1, refits with it and reports it as
+	// Dispersion.FloorPX: the centroid scatter the fit's own σ do not cover
+	// (JPEG, resampling, line-shape mismatch), which then applies to other
+	// photos of the same setup too.
+	EstimateFloor bool
 	// RefSigmaNM is the uncertainty given to each reference wavelength; 0
 	// means 0.001 nm (lamp-type and hyperfine spread of Hg lines are below
 	// this, REFERENCE-DATA.md section 1).
@@ -265,6 +279,24 @@ func FitDispersion(pts []Point, opt FitOptions) (Dispersion, error) {
 		}
 	}
 	out := fits[best]
+	// Only a χ² beyond its ordinary range (DOF + 2·sqrt(2·DOF)) shows a
+	// floor; widening every σ whenever χ² happens to exceed DOF would
+	// overstate the errors in half of all calibrations.
+	if opt.EstimateFloor && out.DOF >= 2 && out.ChiSq > float64(out.DOF)+2*math.Sqrt(2*float64(out.DOF)) {
+		if f := floorFor(pts, out, opt); f > 0 {
+			fl := make([]Point, len(pts))
+			for i, p := range pts {
+				fl[i] = p
+				fl[i].SigmaPX = math.Hypot(p.SigmaPX, f)
+			}
+			o := opt
+			o.Model, o.EstimateFloor = out.Model, false
+			if d, err := fitModel(fl, out.Model, o); err == nil {
+				d.FloorPX = f
+				out = d
+			}
+		}
+	}
 	for _, f := range fits {
 		out.Compared = append(out.Compared, ModelFit{Model: f.Model, ChiSq: f.ChiSq, DOF: f.DOF, AICc: f.AICc, RMSNM: f.RMSNM})
 	}
@@ -324,10 +356,28 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 	for iter := 0; iter < 2; iter++ {
 		for i, p := range pts {
 			s := slope(p.PX) * p.SigmaPX
-			sig[i] = math.Sqrt(s*s + refSig*refSig)
+			rs := refSig
+			if p.SigmaNM > 0 {
+				rs = p.SigmaNM
+			}
+			sig[i] = math.Sqrt(s*s + rs*rs)
 		}
 		dd := d
-		res, err = lsq.Fit(lsq.Problem{Y: y, Sigma: sig, Model: func(i int, params, grad []float64) float64 {
+		yy, ss := y, sig
+		prior := model == ModelGrating && opt.LinesPerMM > 0
+		if prior {
+			tol := opt.LinesPerMMTolerance
+			if tol == 0 {
+				tol = 0.03
+			}
+			dNom := 1e6 / opt.LinesPerMM
+			yy = append(append([]float64(nil), y...), dNom)
+			ss = append(append([]float64(nil), sig...), dNom*tol)
+		}
+		res, err = lsq.Fit(lsq.Problem{Y: yy, Sigma: ss, Model: func(i int, params, grad []float64) float64 {
+			if i == n {
+				return gratingD(params, grad)
+			}
 			return dd.eval(pts[i].PX, params, grad)
 		}}, init)
 		if err != nil {
@@ -404,4 +454,57 @@ func (d Dispersion) Physical() (dNM, alphaDeg, focalPX float64, ok bool) {
 	f := d.Scale / math.Sqrt(c)
 	dc := math.Abs(b) * f / d.Scale // D cos α; the sign of b is the direction of dispersion
 	return math.Hypot(a, dc), math.Atan2(a, dc) * 180 / math.Pi, f, true
+}
+
+// gratingD returns D = d/m = sqrt(a² + b²/c) of grating-model parameters
+// [a, b, c] and its gradient; NaN when c ≤ 0 (no physical grating).
+func gratingD(p, grad []float64) float64 {
+	a, b, c := p[0], p[1], p[2]
+	if c <= 0 {
+		return math.NaN()
+	}
+	D := math.Sqrt(a*a + b*b/c)
+	if grad != nil {
+		grad[0] = a / D
+		grad[1] = b / (c * D)
+		grad[2] = -b * b / (2 * c * c * D)
+	}
+	return D
+}
+
+// floorFor returns f ≥ 0 such that χ² of d's residuals with every σ_px
+// widened to sqrt(σ_px² + f²) equals DOF (bisection; parameters held).
+func floorFor(pts []Point, d Dispersion, opt FitOptions) float64 {
+	refSig := opt.RefSigmaNM
+	if refSig == 0 {
+		refSig = 0.001
+	}
+	chi2 := func(f float64) float64 {
+		var s float64
+		for _, p := range pts {
+			sl := d.Slope(p.PX)
+			rs := refSig
+			if p.SigmaNM > 0 {
+				rs = p.SigmaNM
+			}
+			v := sl*sl*(p.SigmaPX*p.SigmaPX+f*f) + rs*rs
+			r := p.NM - d.Wavelength(p.PX)
+			s += r * r / v
+		}
+		return s
+	}
+	target := float64(d.DOF)
+	lo, hi := 0.0, 10.0
+	if chi2(hi) > target {
+		return hi
+	}
+	for i := 0; i < 50; i++ {
+		mid := (lo + hi) / 2
+		if chi2(mid) > target {
+			lo = mid
+		} else {
+			hi = mid
+		}
+	}
+	return hi
 }

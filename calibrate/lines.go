@@ -1,9 +1,12 @@
 package calibrate
 
 import (
+	"encoding/csv"
 	"fmt"
+	"io"
 	"math"
 	"sort"
+	"strconv"
 	"strings"
 )
 
@@ -13,6 +16,7 @@ type Line struct {
 	NM       float64 // air wavelength, nm (standard air, the NIST ASD convention 200-2000 nm)
 	Strength float64 // relative strength within its lamp, 0..1 (qualitative, see Source)
 	N        int     // upper principal quantum number for a Balmer line, 0 otherwise
+	SigmaNM  float64 // uncertainty of NM when it is a broad band rather than a line; 0 for atomic lines
 	Source   string  // where NM comes from
 }
 
@@ -109,16 +113,34 @@ func Sodium() Lamp {
 	}}
 }
 
+// CFL returns the sharp features of a compact fluorescent lamp: its mercury
+// lines and the peaks of its rare-earth phosphors. The phosphor peaks are
+// bands known to about ±1 nm (REFERENCE-DATA.md section 6: NJSAS credits
+// Stanford Materials; peterhers.co.za CFL spectra), so they weigh little in
+// a dispersion fit; the Eu²⁺ blue band near 450 nm is too broad to use.
+func CFL() Lamp {
+	return Lamp{Name: "cfl", Lines: []Line{
+		{Name: "Hg 404.66", NM: 404.6563, Strength: 0.3, Source: srcBAL50},
+		{Name: "Hg 435.83", NM: 435.8328, Strength: 0.8, Source: srcBAL50},
+		{Name: "Tb 488", NM: 488, Strength: 0.3, SigmaNM: 1, Source: "Tb³⁺ phosphor band (peterhers.co.za CFL spectra)"},
+		{Name: "Tb 542", NM: 542, Strength: 0.6, SigmaNM: 1, Source: "Tb³⁺ phosphor band (NJSAS, Stanford Materials)"},
+		{Name: "Hg 546.07", NM: 546.0735, Strength: 1.0, Source: srcBAL50},
+		{Name: "Hg 576.96", NM: 576.9598, Strength: 0.15, Source: srcBAL50},
+		{Name: "Hg 579.07", NM: 579.0663, Strength: 0.15, Source: srcBAL50},
+		{Name: "Eu 611", NM: 611, Strength: 1.0, SigmaNM: 1, Source: "Eu³⁺ phosphor band (NJSAS, Stanford Materials)"},
+	}}
+}
+
 // Lamps returns every built-in lamp, calibration lamps first.
 func Lamps() []Lamp {
-	return []Lamp{Mercury(), Helium(), Neon(), Sodium(), Hydrogen()}
+	return []Lamp{Mercury(), Helium(), Neon(), Sodium(), CFL(), Hydrogen()}
 }
 
 // LampByName returns the built-in lamp with the given name (case-insensitive;
 // chemical symbols work too).
 func LampByName(name string) (Lamp, error) {
 	key := strings.ToLower(strings.TrimSpace(name))
-	alias := map[string]string{"hg": "mercury", "h": "hydrogen", "h2": "hydrogen", "he": "helium", "ne": "neon", "na": "sodium"}
+	alias := map[string]string{"hg": "mercury", "h": "hydrogen", "h2": "hydrogen", "he": "helium", "ne": "neon", "na": "sodium", "fluorescent": "cfl"}
 	if a, ok := alias[key]; ok {
 		key = a
 	}
@@ -149,4 +171,85 @@ func (l Lamp) sorted() []Line {
 	s := append([]Line(nil), l.Lines...)
 	sort.Slice(s, func(i, j int) bool { return s[i].NM < s[j].NM })
 	return s
+}
+
+// ReadLines reads a user's reference line list: CSV with a header naming
+// at least the columns "nm" (air wavelength) and optionally "name",
+// "strength" (relative, default 1), "sigma_nm" and "source". Lines starting
+// with # are comments. The lamp takes the given name. Errors name the row.
+func ReadLines(r io.Reader, lampName string) (Lamp, error) {
+	cr := csv.NewReader(r)
+	cr.Comment = '#'
+	cr.FieldsPerRecord = -1
+	cr.TrimLeadingSpace = true
+	head, err := cr.Read()
+	if err != nil {
+		return Lamp{}, fmt.Errorf("calibrate: line list: no header row: %v", err)
+	}
+	col := map[string]int{}
+	for i, h := range head {
+		col[strings.ToLower(strings.TrimSpace(h))] = i
+	}
+	nmCol, ok := col["nm"]
+	if !ok {
+		return Lamp{}, fmt.Errorf("calibrate: line list: the header %q has no \"nm\" column", strings.Join(head, ","))
+	}
+	get := func(rec []string, name string) (string, bool) {
+		i, ok := col[name]
+		if !ok || i >= len(rec) {
+			return "", false
+		}
+		return strings.TrimSpace(rec[i]), true
+	}
+	lamp := Lamp{Name: lampName}
+	for row := 2; ; row++ {
+		rec, err := cr.Read()
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			return Lamp{}, fmt.Errorf("calibrate: line list row %d: %v", row, err)
+		}
+		if nmCol >= len(rec) {
+			return Lamp{}, fmt.Errorf("calibrate: line list row %d: no nm value", row)
+		}
+		nm, err := strconv.ParseFloat(strings.TrimSpace(rec[nmCol]), 64)
+		if err != nil || !(nm >= 100 && nm <= 3000) {
+			return Lamp{}, fmt.Errorf("calibrate: line list row %d: wavelength %q is not a number of nm between 100 and 3000", row, rec[nmCol])
+		}
+		l := Line{NM: nm, Strength: 1, Name: fmt.Sprintf("%s %.2f", lampName, nm), Source: "user line list"}
+		if v, ok := get(rec, "name"); ok && v != "" {
+			l.Name = v
+		}
+		if v, ok := get(rec, "source"); ok && v != "" {
+			l.Source = v
+		}
+		for _, f := range []struct {
+			name string
+			dst  *float64
+		}{{"strength", &l.Strength}, {"sigma_nm", &l.SigmaNM}} {
+			if v, ok := get(rec, f.name); ok && v != "" {
+				x, err := strconv.ParseFloat(v, 64)
+				if err != nil || x < 0 || math.IsInf(x, 0) {
+					return Lamp{}, fmt.Errorf("calibrate: line list row %d: %s %q is not a non-negative number", row, f.name, v)
+				}
+				*f.dst = x
+			}
+		}
+		lamp.Lines = append(lamp.Lines, l)
+	}
+	if len(lamp.Lines) < 2 {
+		return Lamp{}, fmt.Errorf("calibrate: line list has %d lines; at least 2 are needed", len(lamp.Lines))
+	}
+	sort.Slice(lamp.Lines, func(i, j int) bool { return lamp.Lines[i].NM < lamp.Lines[j].NM })
+	var max float64
+	for _, l := range lamp.Lines {
+		max = math.Max(max, l.Strength)
+	}
+	for i := range lamp.Lines {
+		if max > 0 {
+			lamp.Lines[i].Strength /= max
+		}
+	}
+	return lamp, nil
 }

@@ -6,10 +6,11 @@
 // (applying its EXIF orientation), reduces it for the band search and
 // straightens the band with an affine warp. The band search itself is plain
 // Go on float32 slices: the sRGB transfer curve is undone with a lookup
-// table, the dispersion direction is the principal axis of the bright
-// pixels refined by maximising the sharpness of the lines' projection, and
-// the band's centre and height come from the half-maximum edges of its
-// cross-profile. Only the band region is linearised and warped, so a 12 MP
+// table, the dispersion direction starts as the principal axis of the
+// bright pixels, the band's centre and height come from the half-maximum
+// edges of its cross-profile, and after each straightening the centre line
+// measured across the strongest lines corrects direction and offset until
+// the band lies flat. Only the band region is linearised and warped, so a 12 MP
 // frame costs little more than its decoding.
 //
 // No gocv.Mat leaves the package; every Mat made here is closed here.

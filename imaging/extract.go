@@ -219,76 +219,63 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 		return Strip{}, fmt.Errorf("%w: only %d bright pixels", ErrNoBand, len(pts))
 	}
 	ang := principalAngle(pts)
-	ang = sharpestAngle(pts, ang, 3, 0.1, 1, float64(sw+sh))
 	sx, sy := float64(fr.w)/float64(sw), float64(fr.h)/float64(sh)
-	// Bright points in full-frame coordinates (reduced pixel centre i maps
-	// to (i + 0.5)·scale − 0.5).
-	full := make([]point, len(pts))
-	for i, p := range pts {
-		full[i] = point{(p.x+0.5)*sx - 0.5, (p.y+0.5)*sy - 0.5, p.w}
-	}
 	vc, hh, ok := crossBand(sp, ang, bg, sx, sy)
 	if !ok {
 		return Strip{}, fmt.Errorf("%w: the bright pixels form no band (cut off by the frame edge?)", ErrNoBand)
 	}
 
-	// 2. Refine on the full frame inside a region around the band.
+	// 2. On the full frame, in a region around the band: measure the band's
+	// centre and height, straighten it with OpenCV, measure the centre
+	// line of the straightened band at its strongest lines, and correct the
+	// direction and offset by it until the line lies flat (at most four
+	// rounds; the last slope is the residual tilt).
 	side := math.Max(12, 0.6*hh)
-	roi, err := bandROI(fr.w, fr.h, ang, vc, hh+side+4)
-	if err != nil {
-		return Strip{}, err
-	}
-	rp, rgb, clip := linearRegion(fr, roi, lut, clipAt, newLumaLUT(nLevels, opt.Linear))
-	rbg, _, _ := levels(rp)
-	rthr := rbg + math.Max(8*noise, 0.05*(peak-bg))
-	var band []point
-	sn, cs := math.Sincos(ang * math.Pi / 180)
-	for _, p := range brightPoints(rp, rbg, rthr) {
-		x, y := p.x+float64(roi.Min.X), p.y+float64(roi.Min.Y)
-		if v := -x*sn + y*cs; math.Abs(v-vc) <= hh {
-			band = append(band, point{x, y, p.w})
+	var s Strip
+	var roi image.Rectangle
+	var rp plane
+	var rgb []float32
+	var clip []bool
+	luma := newLumaLUT(nLevels, opt.Linear)
+	for round := 0; round < 4; round++ {
+		r, err := bandROI(fr.w, fr.h, ang, vc, hh+side+4)
+		if err != nil {
+			return Strip{}, err
 		}
-	}
-	if len(band) >= 10 {
-		ang = sharpestAngle(band, ang, 0.6, 0.05, 0.5, float64(fr.w+fr.h))
-		ang = sharpestAngle(band, ang, 0.06, 0.005, 0.5, float64(fr.w+fr.h))
-	}
-	vc2, hh2, ok := crossBandRegion(rp, roi, ang, rbg, vc, hh+side)
-	if ok {
-		vc, hh = vc2, hh2
-	}
-	u0, u1, ok := chord(fr.w, fr.h, ang, vc)
-	if !ok || u1-u0 < 16 {
-		return Strip{}, fmt.Errorf("%w: the band's centre line leaves the frame", ErrNoBand)
-	}
-
-	// 3. Straighten the band with OpenCV and collapse it. The band's centre
-	// line, measured on the straightened strip at its strongest lines,
-	// corrects the direction and offset once; the second pass's centre line
-	// is the residual tilt.
-	s, fit, err := straighten(rgb, clip, roi, ang, vc, hh, side, u0, u1, opt.KeepImage, opt.Profile)
-	if err != nil {
-		return Strip{}, err
-	}
-	if fit.ok {
+		if r != roi {
+			roi = r
+			rp, rgb, clip = linearRegion(fr, roi, lut, clipAt, luma)
+		}
+		rbg, _, _ := levels(rp)
+		if vc2, hh2, ok := crossBandRegion(rp, roi, ang, rbg, vc, hh+side); ok {
+			vc, hh = vc2, hh2
+		}
+		u0, u1, ok := chord(fr.w, fr.h, ang, vc)
+		if !ok || u1-u0 < 16 {
+			return Strip{}, fmt.Errorf("%w: the band's centre line leaves the frame", ErrNoBand)
+		}
+		st, fit, err := straighten(rgb, clip, roi, ang, vc, hh, side, u0, u1, opt.KeepImage, opt.Profile)
+		if err != nil {
+			return Strip{}, err
+		}
+		s = st
+		if !fit.ok {
+			break
+		}
 		b := fit.slope
-		nang := ang + math.Atan(b)*180/math.Pi
-		v0 := vc - float64(int(math.Ceil(hh))+int(math.Ceil(side)))
-		nvc := (v0 + fit.offset - b*u0) / math.Sqrt(1+b*b)
-		if nu0, nu1, ok := chord(fr.w, fr.h, nang, nvc); ok && nu1-nu0 >= 16 {
-			s2, fit2, err := straighten(rgb, clip, roi, nang, nvc, hh, side, nu0, nu1, opt.KeepImage, opt.Profile)
-			if err == nil {
-				s, ang, vc = s2, nang, nvc
-				if fit2.ok {
-					s.ResidualTiltDeg = math.Atan(fit2.slope) * 180 / math.Pi
-				}
-			}
+		s.ResidualTiltDeg = math.Atan(b) * 180 / math.Pi
+		if math.Abs(b) < 2e-5 {
+			break
 		}
+		v0 := vc - float64(int(math.Ceil(hh))+int(math.Ceil(side)))
+		ang += math.Atan(b) * 180 / math.Pi
+		vc = (v0 + fit.offset - b*u0) / math.Sqrt(1+b*b)
 	}
+	ang = s.AngleDeg
 	s.FrameW, s.FrameH = fr.w, fr.h
 	s.Background, s.Noise = bg/3, noise/3
 	cx, cy := float64(fr.w-1)/2, float64(fr.h-1)/2
-	sn, cs = math.Sincos(ang * math.Pi / 180)
+	sn, cs := math.Sincos(ang * math.Pi / 180)
 	s.OpticalCenter = (cx-s.Origin[0])*cs + (cy-s.Origin[1])*sn
 	return s, nil
 }
@@ -680,7 +667,7 @@ func fitCentreLine(px []float32, L, H int, prof []float64) centreFit {
 		return centreFit{}
 	}
 	slope := (sw*sxy - sx*sy) / d
-	return centreFit{slope: slope, offset: (sy - slope*sx) / sw, ok: math.Abs(slope) < 0.02}
+	return centreFit{slope: slope, offset: (sy - slope*sx) / sw, ok: math.Abs(slope) < 0.1}
 }
 
 func abs(x int) int {

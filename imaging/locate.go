@@ -75,60 +75,6 @@ func principalAngle(pts []point) float64 {
 	return a
 }
 
-// sharpness is Σ h² of the histogram of the points projected on the
-// direction deg (bins of width bin, weights split linearly between bins).
-// Lines perpendicular to that direction give the sharpest histogram when
-// deg is the true dispersion direction.
-func sharpness(pts []point, deg, bin float64, hist []float64) float64 {
-	s, c := math.Sincos(deg * math.Pi / 180)
-	for i := range hist {
-		hist[i] = 0
-	}
-	n := len(hist)
-	for _, p := range pts {
-		u := (p.x*c + p.y*s) / bin
-		i := int(math.Floor(u))
-		f := u - float64(i)
-		i = ((i % n) + n) % n
-		j := (i + 1) % n
-		hist[i] += p.w * (1 - f)
-		hist[j] += p.w * f
-	}
-	var ss float64
-	for _, h := range hist {
-		ss += h * h
-	}
-	return ss
-}
-
-// sharpestAngle searches deg0 ± span in steps of step for the sharpest
-// projection and refines the best step by a parabola through its
-// neighbours.
-func sharpestAngle(pts []point, deg0, span, step, bin float64, extent float64) float64 {
-	n := int(extent/bin) + 8
-	hist := make([]float64, n)
-	best, bestV := deg0, -1.0
-	var vals []float64
-	var angs []float64
-	for a := deg0 - span; a <= deg0+span+1e-9; a += step {
-		v := sharpness(pts, a, bin, hist)
-		vals = append(vals, v)
-		angs = append(angs, a)
-		if v > bestV {
-			best, bestV = a, v
-		}
-	}
-	for k := 1; k+1 < len(vals); k++ {
-		if angs[k] == best {
-			y0, y1, y2 := vals[k-1], vals[k], vals[k+1]
-			if d := y0 - 2*y1 + y2; d < 0 {
-				best += 0.5 * step * (y0 - y2) / d
-			}
-		}
-	}
-	return best
-}
-
 // bandEdges finds the band in a cross-profile prof (index = row offset
 // from v0): the half-maximum crossings either side of its maximum,
 // interpolated linearly. It returns the centre and half-height in the

@@ -34,42 +34,93 @@ Examples:
 `
 
 type measureConfig struct {
-	lamp      string
-	calLamp   string
-	pins      []calibrate.Pin
-	model     string
-	minSNR    float64
-	linear    bool
-	tolNM     float64
-	floorPX   float64
-	imageOpts imaging.Options
+	lamp       string
+	calLamp    string
+	pins       []calibrate.Pin
+	model      string
+	minSNR     float64
+	linear     bool
+	tolNM      float64
+	floorPX    float64
+	linesPerMM float64
+	extra      []calibrate.Lamp // from --lines files
+	imageOpts  imaging.Options
+}
+
+// lamps returns the built-in lamps and the user's.
+func (c measureConfig) lamps() []calibrate.Lamp { return append(calibrate.Lamps(), c.extra...) }
+
+// lampByName looks among the user's lamps, then the built-in ones.
+func (c measureConfig) lampByName(name string) (calibrate.Lamp, error) {
+	for _, l := range c.extra {
+		if strings.EqualFold(l.Name, name) {
+			return l, nil
+		}
+	}
+	return calibrate.LampByName(name)
+}
+
+// calibrationLamps are the candidates for a calibration photo: the named
+// one, or every lamp with sharp known lines (hydrogen only when named).
+func (c measureConfig) calibrationLamps() []calibrate.Lamp {
+	if c.calLamp != "" {
+		l, _ := c.lampByName(c.calLamp)
+		return []calibrate.Lamp{l}
+	}
+	return append([]calibrate.Lamp{calibrate.Mercury(), calibrate.Helium(), calibrate.Neon(), calibrate.Sodium(), calibrate.CFL()}, c.extra...)
+}
+
+func readLampFile(path string) (calibrate.Lamp, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return calibrate.Lamp{}, err
+	}
+	defer f.Close()
+	name := strings.TrimSuffix(filepath.Base(path), filepath.Ext(path))
+	l, err := calibrate.ReadLines(f, name)
+	if err != nil {
+		return calibrate.Lamp{}, fmt.Errorf("%s: %w", path, err)
+	}
+	return l, nil
 }
 
 func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("measure", measureUsage, stderr)
-	calFrom := fs.StringP("calibration-from", "c", "", "calibration photo of the same setup, or a calibration JSON saved earlier")
+	calFrom := fs.StringArrayP("calibration-from", "c", nil, "calibration photo of the same setup (repeat for several lamps: one fit), or a calibration JSON saved earlier")
 	saveCal := fs.String("save-calibration", "", "write the calibration to this JSON file")
 	lamp := fs.StringP("lamp", "l", "", "lamp of the measured photos (mercury, hydrogen, helium, neon, sodium); default: recognised")
 	calLamp := fs.String("calibration-lamp", "", "lamp of the calibration photo; default: recognised among mercury, helium, neon, sodium")
 	pins := fs.StringArray("line", nil, "pin a line as NM@PX (air nm at profile position px); repeatable")
 	model := fs.String("model", "", "dispersion model: poly1, poly2, poly3 or grating; default: chosen by AICc")
+	lpm := fs.Float64("lines-per-mm", 0, "nominal grating ruling; the grating model then treats it as a measurement (±3 %)")
+	lineFiles := fs.StringArray("lines", nil, "extra reference lamp from a CSV line list (header with nm[,name,strength,sigma_nm,source]); the lamp is named after the file; repeatable")
 	minSNR := fs.Float64("min-snr", 5, "least line height and prominence, in units of the profile noise")
 	tol := fs.Float64("match-tolerance", 1.0, "largest distance in nm between a calibrated line and its reference line")
-	floor := fs.Float64("position-floor", 0.02, "systematic centroid uncertainty added in quadrature, px (JPEG and resampling effects)")
+	floor := fs.Float64("position-floor", 0, "least systematic centroid uncertainty, px, added in quadrature; the calibration estimates its own from its residuals")
 	linear := fs.Bool("linear", false, "pixel values are linear in intensity (do not undo the sRGB curve)")
 	asJSON := fs.Bool("json", false, "print a JSON document instead of tables")
 	if err := parse(fs, args); err != nil {
 		return err
 	}
-	if fs.NArg() == 0 && (*calFrom == "" || *saveCal == "") {
+	if fs.NArg() == 0 && (len(*calFrom) == 0 || *saveCal == "") {
 		fs.Usage()
 		return usagef("measure: no photo given")
 	}
 	if *floor < 0 || *floor > 5 {
 		return usagef("measure: --position-floor %g outside 0-5 px", *floor)
 	}
+	if *lpm < 0 || *lpm > 10000 {
+		return usagef("measure: --lines-per-mm %g outside 0-10000", *lpm)
+	}
 	cfg := measureConfig{lamp: *lamp, calLamp: *calLamp, model: *model, minSNR: *minSNR, linear: *linear, tolNM: *tol, floorPX: *floor,
-		imageOpts: imaging.Options{Linear: *linear}}
+		linesPerMM: *lpm, imageOpts: imaging.Options{Linear: *linear}}
+	for _, p := range *lineFiles {
+		l, err := readLampFile(p)
+		if err != nil {
+			return err
+		}
+		cfg.extra = append(cfg.extra, l)
+	}
 	for _, s := range *pins {
 		p, err := parsePin(s)
 		if err != nil {
@@ -79,7 +130,7 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	}
 	for _, l := range []string{cfg.lamp, cfg.calLamp} {
 		if l != "" {
-			if _, err := calibrate.LampByName(l); err != nil {
+			if _, err := cfg.lampByName(l); err != nil {
 				return usagef("measure: %v", err)
 			}
 		}
@@ -92,11 +143,9 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 
 	doc := document{Tool: "lineshot", Schema: 1}
 	var cal *calibration
-	if *calFrom != "" {
-		c, res, err := loadOrMeasureCalibration(*calFrom, cfg)
-		if res != nil {
-			doc.Calibrations = append(doc.Calibrations, *res)
-		}
+	if len(*calFrom) > 0 {
+		c, res, err := buildCalibration(*calFrom, cfg)
+		doc.Calibrations = append(doc.Calibrations, res...)
 		if err != nil {
 			if !*asJSON {
 				printResults(stdout, doc)
@@ -169,28 +218,59 @@ func (c calibration) position(x, y float64) float64 {
 	return (x-c.Origin[0])*cs + (y-c.Origin[1])*sn
 }
 
-// loadOrMeasureCalibration reads a saved calibration (.json) or measures a
-// calibration photo. For a photo it also returns its image result.
-func loadOrMeasureCalibration(path string, cfg measureConfig) (calibration, *imageResult, error) {
-	if strings.EqualFold(filepath.Ext(path), ".json") {
-		c, err := readCalibration(path)
+// buildCalibration reads a saved calibration (one .json) or measures one
+// or more calibration photos of the same setup (several lamps: one fit
+// over all their lines, expressed in the first photo's band geometry).
+// It also returns the photos' results.
+func buildCalibration(paths []string, cfg measureConfig) (calibration, []imageResult, error) {
+	if len(paths) == 1 && strings.EqualFold(filepath.Ext(paths[0]), ".json") {
+		c, err := readCalibration(paths[0])
 		return c, nil, err
 	}
-	ccfg := cfg
-	ccfg.lamp = cfg.calLamp
-	r, c := measureSelf(path, ccfg, calibrationLamps(cfg.calLamp))
-	if r.Error != "" {
-		return calibration{}, &r, fmt.Errorf("calibration %s", r.Error)
+	var ids []selfID
+	var results []imageResult
+	for _, p := range paths {
+		if strings.EqualFold(filepath.Ext(p), ".json") {
+			return calibration{}, results, usagef("measure: %s: a saved calibration cannot be combined with other calibration inputs", p)
+		}
+		ccfg := cfg
+		ccfg.lamp = cfg.calLamp
+		id, r := identifySelf(p, ccfg, cfg.calibrationLamps())
+		if r.Error != "" {
+			results = append(results, r)
+			return calibration{}, results, fmt.Errorf("calibration %s", r.Error)
+		}
+		ids = append(ids, id)
+		results = append(results, r)
 	}
-	return *c, &r, nil
-}
-
-func calibrationLamps(name string) []calibrate.Lamp {
-	if name != "" {
-		l, _ := calibrate.LampByName(name)
-		return []calibrate.Lamp{l}
+	first := ids[0].m.strip
+	cal := calibration{Schema: 1, Source: strings.Join(paths, " + "), AngleDeg: first.AngleDeg, Origin: first.Origin,
+		FrameW: first.FrameW, FrameH: first.FrameH}
+	var pts []calibrate.Point
+	var lamps []string
+	for k, id := range ids {
+		lamps = append(lamps, id.id.Lamp)
+		for _, mt := range id.id.Matches {
+			p := id.m.found.Peaks[mt.Peak]
+			x, y := id.m.strip.ToImage(p.Center)
+			pts = append(pts, calibrate.Point{PX: cal.position(x, y), SigmaPX: p.Sigma, NM: mt.Line.NM, SigmaNM: mt.Line.SigmaNM, Line: mt.Line.Name})
+		}
+		if k > 0 {
+			results[k].Warnings = append(results[k].Warnings, setupMoved(id.m.strip, cal)...)
+		}
 	}
-	return []calibrate.Lamp{calibrate.Mercury(), calibrate.Helium(), calibrate.Neon(), calibrate.Sodium()}
+	cal.Lamp = strings.Join(lamps, "+")
+	d, err := calibrate.FitDispersion(pts, calibrate.FitOptions{Model: cfg.model, OpticalCenterPX: cal.position(float64(first.FrameW-1)/2, float64(first.FrameH-1)/2),
+		LinesPerMM: cfg.linesPerMM, EstimateFloor: true})
+	if err != nil {
+		results[0].Error = fmt.Sprintf("%s: dispersion fit: %v", paths[0], err)
+		return calibration{}, results, fmt.Errorf("calibration %s", results[0].Error)
+	}
+	cal.Dispersion = d
+	for k, id := range ids {
+		applyCalibration(&results[k], cal, id.lamp, cfg, id.id.Matches)
+	}
+	return cal, results, nil
 }
 
 func readCalibration(path string) (calibration, error) {
@@ -319,9 +399,8 @@ func extractAndFind(path string, cfg measureConfig) (measured, error) {
 	if len(r.Peaks) == 0 {
 		return measured{}, fmt.Errorf("%s: no line stands above the noise (threshold %.1fσ)", path, cfg.minSNR)
 	}
-	// The fit's σ is the statistical part; resampling in the warp and JPEG
-	// quantisation add a systematic part, about 0.02 px on the simulator's
-	// photos (imaging tests), added in quadrature.
+	// The fit's σ is the statistical part; a user-given floor adds a
+	// systematic part (the calibration adds the one it measures).
 	for i := range r.Peaks {
 		r.Peaks[i].Sigma = math.Hypot(r.Peaks[i].Sigma, cfg.floorPX)
 	}
@@ -352,44 +431,66 @@ func (m measured) calPeaks() []calibrate.Peak {
 	return out
 }
 
-// measureSelf measures a photo that calibrates itself: its lines are
-// identified against the candidate lamps with no hints, and the dispersion
-// is fitted to them.
-func measureSelf(path string, cfg measureConfig, lamps []calibrate.Lamp) (imageResult, *calibration) {
+// selfID is a photo identified against reference lamps with no hints.
+type selfID struct {
+	m    measured
+	id   calibrate.Identification
+	lamp calibrate.Lamp
+}
+
+// identifySelf measures a photo's lines and identifies them against the
+// candidate lamps (the one named by cfg.lamp when set). On failure the
+// result carries the error.
+func identifySelf(path string, cfg measureConfig, lamps []calibrate.Lamp) (selfID, imageResult) {
 	m, err := extractAndFind(path, cfg)
 	if err != nil {
-		return imageResult{File: path, Error: err.Error()}, nil
+		return selfID{}, imageResult{File: path, Error: err.Error()}
 	}
 	r := m.baseResult(path)
 	if cfg.lamp != "" {
-		l, _ := calibrate.LampByName(cfg.lamp)
+		l, _ := cfg.lampByName(cfg.lamp)
 		lamps = []calibrate.Lamp{l}
 	}
 	ids := calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{Pins: cfg.pins})
 	if len(ids) == 0 {
 		r.Error = fmt.Sprintf("%s: the %d lines found match no known lamp's pattern (name the lamp with --lamp, or pin a line with --line)", path, len(m.found.Peaks))
-		return r, nil
+		return selfID{}, r
 	}
-	id := ids[0]
-	lamp, _ := calibrate.LampByName(id.Lamp)
-	r.Lamp, r.LampScore = id.Lamp, confidence(ids)
+	var lamp calibrate.Lamp
+	for _, l := range lamps {
+		if l.Name == ids[0].Lamp {
+			lamp = l
+		}
+	}
+	r.Lamp, r.LampScore = ids[0].Lamp, confidence(ids)
+	return selfID{m: m, id: ids[0], lamp: lamp}, r
+}
+
+// measureSelf measures a photo that calibrates itself: its lines are
+// identified with no hints and the dispersion is fitted to them.
+func measureSelf(path string, cfg measureConfig) imageResult {
+	s, r := identifySelf(path, cfg, cfg.lamps())
+	if r.Error != "" {
+		return r
+	}
 	var pts []calibrate.Point
-	for _, mt := range id.Matches {
-		p := m.found.Peaks[mt.Peak]
-		pts = append(pts, calibrate.Point{PX: p.Center, SigmaPX: p.Sigma, NM: mt.Line.NM, Line: mt.Line.Name})
+	for _, mt := range s.id.Matches {
+		p := s.m.found.Peaks[mt.Peak]
+		pts = append(pts, calibrate.Point{PX: p.Center, SigmaPX: p.Sigma, NM: mt.Line.NM, SigmaNM: mt.Line.SigmaNM, Line: mt.Line.Name})
 	}
-	d, err := calibrate.FitDispersion(pts, calibrate.FitOptions{Model: cfg.model, OpticalCenterPX: m.strip.OpticalCenter})
+	d, err := calibrate.FitDispersion(pts, calibrate.FitOptions{Model: cfg.model, OpticalCenterPX: s.m.strip.OpticalCenter,
+		LinesPerMM: cfg.linesPerMM, EstimateFloor: true})
 	if err != nil {
 		r.Error = fmt.Sprintf("%s: dispersion fit: %v", path, err)
-		return r, nil
+		return r
 	}
-	cal := &calibration{Schema: 1, Source: path, Lamp: id.Lamp, AngleDeg: m.strip.AngleDeg, Origin: m.strip.Origin,
-		FrameW: m.strip.FrameW, FrameH: m.strip.FrameH, Dispersion: d}
-	applyCalibration(&r, *cal, lamp, cfg, id.Matches)
-	if id.Lamp == "hydrogen" {
+	cal := calibration{Schema: 1, Source: path, Lamp: s.id.Lamp, AngleDeg: s.m.strip.AngleDeg, Origin: s.m.strip.Origin,
+		FrameW: s.m.strip.FrameW, FrameH: s.m.strip.FrameH, Dispersion: d}
+	applyCalibration(&r, cal, s.lamp, cfg, s.id.Matches)
+	if s.id.Lamp == "hydrogen" {
 		r.Warnings = append(r.Warnings, "calibrated on its own Balmer lines, so no Rydberg constant is fitted: calibrate with a mercury (or helium) photo of the same setup (--calibration-from)")
 	}
-	return r, cal
+	return r
 }
 
 // confidence turns the best two lamp scores into a plain 0-1 figure: the
@@ -409,8 +510,7 @@ func confidence(ids []calibrate.Identification) float64 {
 // is given.
 func measureOne(path string, cal *calibration, cfg measureConfig) imageResult {
 	if cal == nil {
-		r, _ := measureSelf(path, cfg, calibrate.Lamps())
-		return r
+		return measureSelf(path, cfg)
 	}
 	m, err := extractAndFind(path, cfg)
 	if err != nil {
@@ -420,9 +520,9 @@ func measureOne(path string, cal *calibration, cfg measureConfig) imageResult {
 	r.Warnings = append(r.Warnings, setupMoved(m.strip, *cal)...)
 	// Which lamp is it? The one whose lines the calibrated wavelengths hit
 	// best, weighted by the heights of the lines they explain.
-	lamps := calibrate.Lamps()
+	lamps := cfg.lamps()
 	if cfg.lamp != "" {
-		l, _ := calibrate.LampByName(cfg.lamp)
+		l, _ := cfg.lampByName(cfg.lamp)
 		lamps = []calibrate.Lamp{l}
 	}
 	nm, sig := make([]float64, len(r.Lines)), make([]float64, len(r.Lines))
@@ -470,6 +570,9 @@ func applyCalibration(r *imageResult, cal calibration, lamp calibrate.Lamp, cfg 
 	for i := range r.Lines {
 		l := &r.Lines[i]
 		p := cal.position(l.X, l.Y)
+		// The centroid scatter the calibration found beyond the fits' own
+		// σ applies to every photo of the setup.
+		l.PositionErrPX = math.Hypot(l.PositionErrPX, d.FloorPX)
 		l.WavelengthNM, l.WavelengthErrNM = d.Wavelength(p), d.Sigma(p, l.PositionErrPX)
 		l.VacuumNM = calibrate.AirToVacuum(l.WavelengthNM)
 		nm[i], sig[i] = l.WavelengthNM, l.WavelengthErrNM
@@ -498,6 +601,9 @@ func applyCalibration(r *imageResult, cal calibration, lamp calibrate.Lamp, cfg 
 		out.Grating = &gratingOut{DNM: D, LinesMM: 1e6 / D, AngleDeg: a, FocalPX: f}
 	}
 	r.Calibration = out
+	if d.Birge > 3 {
+		r.Warnings = append(r.Warnings, fmt.Sprintf("the calibration lines do not follow one smooth dispersion (χ²/dof = %.1f): a line may be misidentified, or the calibration photos are not of one setup", d.Birge*d.Birge))
+	}
 	if outside > 0 {
 		r.Warnings = append(r.Warnings, fmt.Sprintf("%d line(s) lie outside the calibrated range %.0f-%.0f nm: their wavelengths are extrapolated (the uncertainty says by how much)",
 			outside, d.Wavelength(lo), d.Wavelength(hi)))

@@ -31,7 +31,7 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("simulate", simulateUsage, stderr)
 	out := fs.StringP("output", "o", "", "photo to write (.jpg, .jpeg or .png)")
 	truthPath := fs.String("truth", "", "truth JSON to write; default: PHOTO with .truth.json")
-	lamp := fs.StringP("lamp", "l", "mercury", "lamp: mercury, hydrogen, helium, neon, sodium")
+	lamp := fs.StringP("lamp", "l", "mercury", "lamp: mercury, hydrogen, helium, neon, sodium, cfl")
 	lpm := fs.Float64("lines-per-mm", 600, "grating lines per mm")
 	order := fs.Int("order", 1, "diffraction order")
 	size := fs.String("size", "1920x1080", "image size WIDTHxHEIGHT in px")
@@ -105,8 +105,18 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 	return nil
 }
 
-// emissions turns a lamp's reference lines into lines to render.
+// emissions turns a lamp's reference lines into lines to render. A
+// compact fluorescent lamp is rendered as its mercury lines plus phosphor
+// bands; band widths and all strengths are demo values (from memory).
 func emissions(l calibrate.Lamp) []synth.Emission {
+	if l.Name == "cfl" {
+		return []synth.Emission{
+			{NM: 404.6563, Strength: 0.25, Name: "Hg 404.66"}, {NM: 435.8328, Strength: 0.7, Name: "Hg 435.83"},
+			{NM: 488, Strength: 0.25, Name: "Tb 488", FWHMNM: 6}, {NM: 542, Strength: 0.5, Name: "Tb 542", FWHMNM: 6},
+			{NM: 546.0735, Strength: 1, Name: "Hg 546.07"}, {NM: 576.9598, Strength: 0.12, Name: "Hg 576.96"},
+			{NM: 579.0663, Strength: 0.12, Name: "Hg 579.07"}, {NM: 611, Strength: 0.9, Name: "Eu 611", FWHMNM: 4},
+		}
+	}
 	var e []synth.Emission
 	for _, ln := range l.Lines {
 		e = append(e, synth.Emission{NM: ln.NM, Strength: ln.Strength, Name: ln.Name})

@@ -33,8 +33,9 @@ import (
 // Emission is one line of the lamp to render.
 type Emission struct {
 	NM       float64 `json:"nm"`       // air wavelength, nm
-	Strength float64 `json:"strength"` // relative, any scale
+	Strength float64 `json:"strength"` // relative peak height, any scale
 	Name     string  `json:"name,omitempty"`
+	FWHMNM   float64 `json:"fwhm_nm,omitempty"` // intrinsic width (phosphor bands), Gaussian; 0 for a line
 }
 
 // Params describes the lamp, grating and camera. The zero value of each
@@ -166,6 +167,7 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 		nm, amp float64
 		rgb     [3]float64
 		xu      float64 // unrolled x of the line at η = 0
+		sigNM   float64 // intrinsic Gaussian σ, nm
 	}
 	var lines []ln
 	var truth Truth
@@ -190,7 +192,7 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 		}
 		xu := cx + f*math.Tan(th-tc)
 		r := response(e.NM)
-		l := ln{nm: e.NM, amp: e.Strength * k, rgb: r, xu: xu}
+		l := ln{nm: e.NM, amp: e.Strength * k, rgb: r, xu: xu, sigNM: e.FWHMNM / 2.3548200450309493}
 		lines = append(lines, l)
 		x := cx + (xu-cx)*ct
 		y := cy + (xu-cx)*st
@@ -250,7 +252,7 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 			slit := 0.5 * (math.Erf((eta+halfH)/(math.Sqrt2*sEta)) - math.Erf((eta-halfH)/(math.Sqrt2*sEta)))
 			base := 3 * (j*W + i)
 			for _, l := range lines {
-				d := (w - l.nm) / sw
+				d := (w - l.nm) / math.Sqrt(sw*sw+l.sigNM*l.sigNM)
 				if d > 7 || d < -7 {
 					continue
 				}
