@@ -63,6 +63,8 @@ Commands:
   measure    find, identify and calibrate the lines in one or more photos;
              fit the Rydberg constant when the lamp is hydrogen
   peaks      find and measure the lines of a 1-D profile given as CSV
+  vernier    check a class's spectrometer readings: wavelengths, R per observer,
+             misreadings diagnosed
   simulate   render a synthetic photo of a lamp through a grating, with its truth
   lines      list the built-in reference lines and their sources
   help       show this text, or 'lineshot help COMMAND'
@@ -72,6 +74,7 @@ Examples:
   lineshot measure --calibration-from mercury.jpg hydrogen.jpg
   lineshot measure --json --calibration-from bench2-cal.json h1.jpg h2.jpg > results.json
   lineshot peaks --profile scan.csv --json
+  lineshot vernier --lines-per-mm 600 class.csv
   lineshot simulate --lamp hydrogen --lines-per-mm 600 -o h.jpg
 
 Exit status: 0 all measured, 1 some input failed, 2 usage error.
@@ -90,6 +93,8 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		return runSimulate(rest, stdout, stderr)
 	case "peaks":
 		return runPeaks(rest, stdout, stderr)
+	case "vernier":
+		return runVernier(rest, stdout, stderr)
 	case "lines":
 		return runLines(rest, stdout, stderr)
 	case "help", "-h", "--help":

@@ -1,0 +1,185 @@
+package main
+
+import (
+	"encoding/csv"
+	"encoding/json"
+	"fmt"
+	"io"
+	"os"
+	"strconv"
+	"strings"
+
+	"lineshot/calibrate/vernier"
+)
+
+const vernierUsage = `Usage: lineshot vernier [options] READINGS.csv
+
+Checks a class's spectrometer readings (circular scale and vernier, first
+order, both sides of the straight-through position): angles to wavelengths
+with d·sin θ = m·λ, the grating spacing d from the calibration line (mercury
+green unless told), a Rydberg constant per observer, and for every line more
+than 3σ from its reference the usual misreading that explains it, with the
+corrected reading and the wavelength it gives.
+
+READINGS.csv has a header and at least the columns
+bench,observer,lamp,line,side,reading; optional vernier (A/B), order, note.
+See README.md for the format and an example class.
+
+Examples:
+  lineshot vernier --lines-per-mm 600 class-tuesday.csv
+  lineshot vernier --least-count 0.5 --csv checked.csv --json class.csv > class.json
+`
+
+func runVernier(args []string, stdout, stderr io.Writer) error {
+	fs := newFlags("vernier", vernierUsage, stderr)
+	lpm := fs.Float64("lines-per-mm", 0, "nominal grating ruling (used where no calibration line was read, and as a check)")
+	dUM := fs.Float64("d-um", 0, "nominal grating spacing in µm, instead of --lines-per-mm")
+	lc := fs.Float64("least-count", 1, "vernier least count, arc-minutes")
+	cal := fs.Float64Slice("calibration-line", []float64{546.0735}, "reference line(s) that fix d, air nm")
+	csvOut := fs.String("csv", "", "also write the per-line table to this CSV file")
+	asJSON := fs.Bool("json", false, "print JSON instead of tables")
+	if err := parse(fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() != 1 {
+		fs.Usage()
+		return usagef("vernier: give one readings file")
+	}
+	if *dUM > 0 {
+		if *lpm > 0 {
+			return usagef("vernier: give --lines-per-mm or --d-um, not both")
+		}
+		*lpm = 1e3 / *dUM
+	}
+	if *lc <= 0 || *lc > 30 {
+		return usagef("vernier: --least-count %g outside (0, 30] arc-minutes", *lc)
+	}
+	path := fs.Arg(0)
+	f, err := os.Open(path)
+	if err != nil {
+		return err
+	}
+	defer f.Close()
+	rs, err := vernier.ReadCSV(f)
+	if err != nil {
+		return fmt.Errorf("%s: %v", path, err)
+	}
+	obs, err := vernier.Analyze(rs, vernier.Options{LinesPerMM: *lpm, LeastCountArcmin: *lc, CalibrationNM: *cal})
+	if err != nil {
+		return fmt.Errorf("%s: %v", path, err)
+	}
+	if *csvOut != "" {
+		if err := writeFileAtomic(*csvOut, func(w io.Writer) error { return vernierCSV(w, obs) }); err != nil {
+			return err
+		}
+	}
+	if *asJSON {
+		enc := json.NewEncoder(stdout)
+		enc.SetIndent("", "  ")
+		return enc.Encode(map[string]any{"file": path, "observers": obs, "summary": classSummary(obs)})
+	}
+	printVernier(stdout, path, obs)
+	return nil
+}
+
+func printVernier(w io.Writer, path string, obs []vernier.Observer) {
+	for _, o := range obs {
+		fmt.Fprintf(w, "%s / %s: d = %.2f ± %.2f nm (%.1f lines/mm)", o.Bench, o.Name, o.DNM, o.DSigma, 1e6/o.DNM)
+		if o.DFromNominal {
+			fmt.Fprint(w, " (nominal)")
+		}
+		fmt.Fprintln(w)
+		fmt.Fprintf(w, "  %-10s %-12s %9s %7s %10s %7s %10s %6s  %s\n", "line", "reference", "θ", "±′", "λ air nm", "±nm", "ref nm", "z", "check")
+		for _, l := range o.Lines {
+			check := "ok"
+			switch {
+			case l.Calibration:
+				check = "calibrates d"
+			case l.Flag != nil:
+				check = l.Flag.Kind
+			}
+			fmt.Fprintf(w, "  %-10s %-12s %9s %7.2f %10.3f %7.3f %10.4f %+6.1f  %s\n", l.Asked, l.Name, vernier.FormatAngle(l.ThetaDeg),
+				l.ThetaSigma*60, l.NM, l.SigmaNM, l.RefNM, l.Z, check)
+		}
+		for _, l := range o.Lines {
+			if l.Flag != nil {
+				fmt.Fprintf(w, "  flag: %s", l.Flag.Explain)
+				if l.Flag.Kind != vernier.KindUnexplained && l.Flag.Kind != vernier.KindSides {
+					fmt.Fprintf(w, " → %.3f nm", l.Flag.CorrectedNM)
+				}
+				fmt.Fprintln(w)
+			}
+		}
+		if r := o.Rydberg; r != nil {
+			fmt.Fprintf(w, "  R = %.0f ± %.0f m⁻¹ from n = %v: %+.2f %% (%+.1fσ) from CODATA 2018 R_H\n", r.R, r.Sigma, r.LinesUsed, r.DevPercent, r.DevSigma)
+		}
+		if o.RydbergNote != "" {
+			fmt.Fprintf(w, "  %s\n", o.RydbergNote)
+		}
+		for _, n := range o.Notes {
+			fmt.Fprintf(w, "  note: %s\n", n)
+		}
+		fmt.Fprintln(w)
+	}
+	seen := map[string]bool{}
+	var names []string
+	for _, o := range obs {
+		for _, l := range o.Lines {
+			if l.Resolved != "" && !seen[l.Resolved] {
+				seen[l.Resolved] = true
+				names = append(names, l.Resolved)
+			}
+		}
+	}
+	if len(names) > 0 {
+		fmt.Fprintf(w, "line names resolved: %s\n\n", strings.Join(names, "; "))
+	}
+	fmt.Fprintf(w, "class summary (%s):\n", path)
+	for _, s := range classSummary(obs) {
+		fmt.Fprintf(w, "  %s\n", s)
+	}
+}
+
+// classSummary says in one line per observer who is fine and who must
+// re-measure which line and why.
+func classSummary(obs []vernier.Observer) []string {
+	var out []string
+	for _, o := range obs {
+		if o.Fine() {
+			out = append(out, fmt.Sprintf("%s / %s: fine", o.Bench, o.Name))
+			continue
+		}
+		var todo []string
+		for _, l := range o.Lines {
+			if l.Flag == nil || l.Flag.Kind == vernier.KindSides {
+				continue
+			}
+			what := l.Flag.Kind
+			if l.Flag.Row > 0 && l.Flag.Corrected != "" {
+				what += fmt.Sprintf(" (row %d: %s → %s)", l.Flag.Row, l.Flag.Was, l.Flag.Corrected)
+			}
+			todo = append(todo, fmt.Sprintf("%s: %s", l.Asked, what))
+		}
+		out = append(out, fmt.Sprintf("%s / %s: check or re-measure %s", o.Bench, o.Name, strings.Join(todo, "; ")))
+	}
+	return out
+}
+
+func vernierCSV(w io.Writer, obs []vernier.Observer) error {
+	cw := csv.NewWriter(w)
+	cw.Write([]string{"bench", "observer", "line", "reference", "ref_nm", "order", "theta_deg", "theta_err_deg", "wavelength_nm", "wavelength_err_nm", "z", "flag", "row", "recorded", "corrected", "corrected_nm", "explain"})
+	f := func(v float64, p int) string { return strconv.FormatFloat(v, 'f', p, 64) }
+	for _, o := range obs {
+		for _, l := range o.Lines {
+			rec := []string{o.Bench, o.Name, l.Asked, l.Name, f(l.RefNM, 4), strconv.Itoa(l.Order), f(l.ThetaDeg, 5), f(l.ThetaSigma, 5), f(l.NM, 4), f(l.SigmaNM, 4), f(l.Z, 2), "", "", "", "", "", ""}
+			if fl := l.Flag; fl != nil {
+				rec[11], rec[12], rec[13], rec[14], rec[15], rec[16] = fl.Kind, strconv.Itoa(fl.Row), fl.Was, fl.Corrected, f(fl.CorrectedNM, 4), fl.Explain
+			}
+			if err := cw.Write(rec); err != nil {
+				return err
+			}
+		}
+	}
+	cw.Flush()
+	return cw.Error()
+}
