@@ -20,8 +20,10 @@ type Balmer struct {
 
 // Rydberg is the result of fitting 1/λ_vac = R·(1/4 − 1/n²).
 type Rydberg struct {
-	R         float64   `json:"value_per_m"` // m⁻¹
-	Sigma     float64   `json:"err_per_m"`   // 1σ, m⁻¹, from the wavelength covariance (not scaled by χ²)
+	R         float64   `json:"value_per_m"`    // m⁻¹
+	Sigma     float64   `json:"err_per_m"`      // 1σ, m⁻¹: SigmaStat, times sqrt(χ²/DOF) when χ² is beyond its 2σ range
+	SigmaStat float64   `json:"err_stat_per_m"` // 1σ from the wavelength covariance alone
+	Scaled    bool      `json:"err_scaled"`     // Sigma was widened by the Birge ratio
 	ChiSq     float64   `json:"chi2"`
 	DOF       int       `json:"dof"`
 	LinesUsed []int     `json:"lines_used"` // upper levels n
@@ -101,7 +103,15 @@ func FitRydberg(lines []Balmer, cov *mat.SymDense) (Rydberg, error) {
 	if err != nil {
 		return Rydberg{}, err
 	}
-	out.R, out.Sigma, out.ChiSq, out.DOF = beta[0], math.Sqrt(bcov.At(0, 0)), chi2, n-1
+	out.R, out.SigmaStat, out.ChiSq, out.DOF = beta[0], math.Sqrt(bcov.At(0, 0)), chi2, n-1
+	out.Sigma = out.SigmaStat
+	// When the lines scatter more than their errors allow, say so by
+	// widening σ (the Birge ratio, common practice); ordinary fluctuations
+	// of χ² leave it alone.
+	if out.DOF > 0 && chi2 > float64(out.DOF)+2*math.Sqrt(2*float64(out.DOF)) {
+		out.Sigma *= math.Sqrt(chi2 / float64(out.DOF))
+		out.Scaled = true
+	}
 	for i := range out.X {
 		out.Residuals = append(out.Residuals, out.Y[i]-out.R*out.X[i])
 	}

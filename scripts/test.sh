@@ -3,7 +3,8 @@
 # go vet and the whole test suite. CI runs exactly this (.ci/run).
 set -euo pipefail
 cd "$(dirname "$0")/.."
-source scripts/setup.sh python3-scipy   # SciPy: the outside check of peaks/ (TestAgainstSciPy)
+# SciPy: the outside check of peaks/ (TestAgainstSciPy); Chromium: the report in a real browser (TestReportInBrowser)
+source scripts/setup.sh python3-scipy chromium
 unformatted=$(gofmt -l $(git ls-files '*.go' 2>/dev/null || find . -name '*.go'))
 if [ -n "$unformatted" ]; then
   echo "test: gofmt would change: $unformatted" >&2

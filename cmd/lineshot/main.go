@@ -62,6 +62,9 @@ const topUsage = `lineshot measures emission lines in photographs of spectra.
 Commands:
   measure    find, identify and calibrate the lines in one or more photos;
              fit the Rydberg constant when the lamp is hydrogen
+  batch      measure a folder of benches' photos: calibration per bench, R per
+             bench, CSV/JSON results and an HTML report; resumable
+  merge      join the outputs of sharded batch runs
   peaks      find and measure the lines of a 1-D profile given as CSV
   vernier    check a class's spectrometer readings: wavelengths, R per observer,
              misreadings diagnosed
@@ -75,6 +78,7 @@ Examples:
   lineshot measure --json --calibration-from bench2-cal.json h1.jpg h2.jpg > results.json
   lineshot peaks --profile scan.csv --json
   lineshot vernier --lines-per-mm 600 class.csv
+  lineshot batch --out results/ photos/
   lineshot simulate --lamp hydrogen --lines-per-mm 600 -o h.jpg
 
 Exit status: 0 all measured, 1 some input failed, 2 usage error.
@@ -95,6 +99,10 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		return runPeaks(rest, stdout, stderr)
 	case "vernier":
 		return runVernier(rest, stdout, stderr)
+	case "batch":
+		return runBatch(ctx, rest, stdout, stderr)
+	case "merge":
+		return runMerge(rest, stdout, stderr)
 	case "lines":
 		return runLines(rest, stdout, stderr)
 	case "help", "-h", "--help":

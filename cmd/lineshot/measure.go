@@ -243,6 +243,13 @@ func buildCalibration(paths []string, cfg measureConfig) (calibration, []imageRe
 		ids = append(ids, id)
 		results = append(results, r)
 	}
+	return combineCalibration(ids, results, paths, cfg)
+}
+
+// combineCalibration fits one dispersion to the identified lines of one or
+// more calibration photos of a setup, in the first photo's band geometry,
+// and applies it to each photo's result.
+func combineCalibration(ids []selfID, results []imageResult, paths []string, cfg measureConfig) (calibration, []imageResult, error) {
 	first := ids[0].m.strip
 	cal := calibration{Schema: 1, Source: strings.Join(paths, " + "), AngleDeg: first.AngleDeg, Origin: first.Origin,
 		FrameW: first.FrameW, FrameH: first.FrameH}
@@ -446,6 +453,11 @@ func identifySelf(path string, cfg measureConfig, lamps []calibrate.Lamp) (selfI
 	if err != nil {
 		return selfID{}, imageResult{File: path, Error: err.Error()}
 	}
+	return identify(m, path, cfg, lamps)
+}
+
+// identify is identifySelf on a photo already measured.
+func identify(m measured, path string, cfg measureConfig, lamps []calibrate.Lamp) (selfID, imageResult) {
 	r := m.baseResult(path)
 	if cfg.lamp != "" {
 		l, _ := cfg.lampByName(cfg.lamp)
@@ -516,8 +528,14 @@ func measureOne(path string, cal *calibration, cfg measureConfig) imageResult {
 	if err != nil {
 		return imageResult{File: path, Error: err.Error()}
 	}
+	return measureWith(m, path, *cal, cfg)
+}
+
+// measureWith applies a setup's calibration to a photo already measured,
+// recognises its lamp and fits R when it is hydrogen.
+func measureWith(m measured, path string, cal calibration, cfg measureConfig) imageResult {
 	r := m.baseResult(path)
-	r.Warnings = append(r.Warnings, setupMoved(m.strip, *cal)...)
+	r.Warnings = append(r.Warnings, setupMoved(m.strip, cal)...)
 	// Which lamp is it? The one whose lines the calibrated wavelengths hit
 	// best, weighted by the heights of the lines they explain.
 	lamps := cfg.lamps()
@@ -550,9 +568,9 @@ func measureOne(path string, cal *calibration, cfg measureConfig) imageResult {
 	if bestScore+second > 0 {
 		r.LampScore = bestScore / (bestScore + second)
 	}
-	applyCalibration(&r, *cal, best, cfg, nil)
+	applyCalibration(&r, cal, best, cfg, nil)
 	if best.Name == "hydrogen" {
-		fitBalmer(&r, *cal)
+		fitBalmer(&r, cal)
 	}
 	return r
 }

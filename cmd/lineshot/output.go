@@ -117,6 +117,9 @@ func printImage(w io.Writer, r imageResult) {
 	if y := r.Rydberg; y != nil {
 		fmt.Fprintf(w, "  Rydberg constant from %d Balmer lines (vacuum wavelengths, IAU/Morton 2000):\n", len(y.LinesUsed))
 		fmt.Fprintf(w, "    R = %.0f ± %.0f m⁻¹   χ²/dof %.2f/%d\n", y.R, y.Sigma, y.ChiSq, y.DOF)
+		if y.Scaled {
+			fmt.Fprintf(w, "    (σ widened from %.0f by sqrt(χ²/dof): the lines scatter more than their errors say)\n", y.SigmaStat)
+		}
 		fmt.Fprintf(w, "    CODATA 2018 R_H = %.2f m⁻¹: deviation %+.2fσ (%+.4f %%); against R∞ %+.4f %%\n",
 			y.RH, y.DevSigma, y.DevPercent, y.DevRInfPct)
 		if y.RRef != 0 {

@@ -1,0 +1,802 @@
+package main
+
+import (
+	"bufio"
+	"context"
+	"crypto/sha256"
+	"encoding/csv"
+	"encoding/hex"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"hash/fnv"
+	"io"
+	"io/fs"
+	"math"
+	"os"
+	"path/filepath"
+	"runtime"
+	"sort"
+	"strconv"
+	"strings"
+	"sync"
+	"unicode/utf8"
+
+	"github.com/schollz/progressbar/v3"
+	"golang.org/x/sync/errgroup"
+	"golang.org/x/term"
+
+	"lineshot/calibrate"
+	"lineshot/imaging"
+	"lineshot/peaks"
+)
+
+const batchUsage = `Usage: lineshot batch [options] --out OUTDIR DIR
+
+Measures a whole lab's photos. Every folder under DIR that holds images is one
+fixed setup (a bench). lineshot sorts each bench's photos by lamp on its own,
+calibrates the bench from its calibration-lamp photos (all of them in one fit),
+measures the hydrogen photos and fits R per photo and per bench. Results go to
+OUTDIR: results.csv (a row per line), results.json (everything), one
+calibration file per bench, and report.html (one page, opens offline).
+Nothing is written into DIR. Running again skips photos already measured and
+unchanged; Ctrl-C stops cleanly and keeps what was finished.
+
+A bench folder may hold a settings file named lineshot-bench.txt:
+  # comments start with #
+  lines-per-mm: 600               # nominal grating (the grating model uses it)
+  calibration: hg1.jpg hg2.jpg    # these files calibrate, whatever they look like
+  lamp: odd.jpg helium            # this file shows this lamp
+  exclude: blurred.jpg            # leave this file out
+
+Examples:
+  lineshot batch --out results/ photos/
+  lineshot batch -j 2 --quiet --out results/ photos/
+  lineshot batch --shard 2/4 --out part2/ photos/ && lineshot merge --out all/ part1/ part2/ part3/ part4/
+`
+
+// settingsFile is the per-bench settings file's name.
+const settingsFile = "lineshot-bench.txt"
+
+// imageExts are the file endings taken as photos.
+var imageExts = map[string]bool{".jpg": true, ".jpeg": true, ".png": true, ".tif": true, ".tiff": true, ".bmp": true, ".webp": true}
+
+func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	return batchMain(ctx, args, stdout, stderr, nil)
+}
+
+// batchMain is runBatch with a hook called after each photo (with the
+// number finished so far), which tests use to interrupt a run midway.
+func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onPhoto func(done int)) error {
+	fsf := newFlags("batch", batchUsage, stderr)
+	out := fsf.StringP("out", "o", "", "output folder (created if missing)")
+	jobs := fsf.IntP("jobs", "j", runtime.GOMAXPROCS(0), "photos measured at once")
+	quiet := fsf.BoolP("quiet", "q", false, "no progress bar")
+	shard := fsf.String("shard", "", "measure only part i of n of the benches (i/n, 1-based), for spreading a large archive over machines")
+	minSNR := fsf.Float64("min-snr", 5, "least line height and prominence, in units of the profile noise")
+	if err := parse(fsf, args); err != nil {
+		return err
+	}
+	if fsf.NArg() != 1 || *out == "" {
+		fsf.Usage()
+		return usagef("batch: give --out OUTDIR and one input folder")
+	}
+	if *jobs < 1 || *jobs > 256 {
+		return usagef("batch: --jobs %d outside 1-256", *jobs)
+	}
+	si, sn, err := parseShard(*shard)
+	if err != nil {
+		return usagef("batch: --shard %q: %v", *shard, err)
+	}
+	root := fsf.Arg(0)
+	if st, err := os.Stat(root); err != nil {
+		return err
+	} else if !st.IsDir() {
+		return fmt.Errorf("%s: not a folder", root)
+	}
+	if err := os.MkdirAll(filepath.Join(*out, "cache"), 0o755); err != nil {
+		return fmt.Errorf("%s: cannot write the output folder: %w", *out, err)
+	}
+	if err := os.MkdirAll(filepath.Join(*out, "calibrations"), 0o755); err != nil {
+		return fmt.Errorf("%s: cannot write the output folder: %w", *out, err)
+	}
+	cfg := measureConfig{minSNR: *minSNR, tolNM: 1, imageOpts: imaging.Options{KeepImage: true}}
+	benches, failures := discover(root, *out)
+	if sn > 1 {
+		var mine []bench
+		for _, b := range benches {
+			if shardOf(b.Name, sn) == si {
+				mine = append(mine, b)
+			}
+		}
+		benches = mine
+	}
+	var jobsList []photoJob
+	for bi, b := range benches {
+		for _, p := range b.Photos {
+			jobsList = append(jobsList, photoJob{bench: bi, path: p})
+		}
+	}
+	if len(jobsList) == 0 && len(failures) == 0 {
+		return fmt.Errorf("%s: no photos found (looked for %s)", root, strings.Join(sortedKeys(imageExts), " "))
+	}
+	run := batchRun{out: *out, cfg: cfg}
+	var bar *progressbar.ProgressBar
+	if f, ok := stderr.(*os.File); ok && !*quiet && term.IsTerminal(int(f.Fd())) {
+		bar = progressbar.NewOptions(len(jobsList), progressbar.OptionSetWriter(stderr), progressbar.OptionSetDescription("measuring"),
+			progressbar.OptionShowCount(), progressbar.OptionClearOnFinish(), progressbar.OptionThrottle(100e6))
+	}
+	recs := make([]photoRecord, len(jobsList))
+	done := make([]bool, len(jobsList))
+	var finished, fromCache int
+	var mu sync.Mutex
+	var g errgroup.Group
+	g.SetLimit(*jobs)
+	for i, j := range jobsList {
+		if ctx.Err() != nil {
+			break
+		}
+		g.Go(func() error {
+			if ctx.Err() != nil {
+				return nil
+			}
+			rec, cached := run.process(j.path, benches[j.bench])
+			mu.Lock()
+			recs[i], done[i] = rec, true
+			finished++
+			if cached {
+				fromCache++
+			}
+			n := finished
+			mu.Unlock()
+			if bar != nil {
+				bar.Add(1)
+			}
+			if onPhoto != nil {
+				onPhoto(n)
+			}
+			return nil
+		})
+	}
+	g.Wait()
+	if bar != nil {
+		bar.Finish()
+	}
+	interrupted := ctx.Err() != nil
+	doc := batchDoc{Tool: "lineshot", Schema: 1, Root: displayName(root), Failures: failures}
+	for bi, b := range benches {
+		var br []photoRecord
+		complete := true
+		for i, j := range jobsList {
+			if j.bench != bi {
+				continue
+			}
+			if !done[i] {
+				complete = false
+				continue
+			}
+			br = append(br, recs[i])
+		}
+		if !complete {
+			continue // resumed next run; its photos are cached
+		}
+		doc.Benches = append(doc.Benches, assembleBench(b, br, cfg))
+	}
+	for _, b := range doc.Benches {
+		for _, f := range b.Failures {
+			doc.Failures = append(doc.Failures, f)
+		}
+	}
+	if err := writeBatchOutputs(*out, doc); err != nil {
+		return err
+	}
+	for _, f := range doc.Failures {
+		fmt.Fprintf(stderr, "lineshot: %s: %s\n", f.File, f.Reason)
+	}
+	nPhotos := 0
+	for _, d := range done {
+		if d {
+			nPhotos++
+		}
+	}
+	if interrupted {
+		fmt.Fprintf(stderr, "lineshot: interrupted: %d of %d photos measured and kept; run the same command again to finish\n", nPhotos, len(jobsList))
+		return errReported
+	}
+	fmt.Fprintf(stdout, "measured %d photos (%d unchanged since the last run, taken from the cache) on %d benches into %s (report: %s)\n",
+		nPhotos, fromCache, len(doc.Benches), *out, filepath.Join(*out, "report.html"))
+	for _, b := range doc.Benches {
+		fmt.Fprintf(stdout, "  %s\n", b.summaryLine())
+	}
+	if len(doc.Failures) > 0 {
+		return errReported
+	}
+	return nil
+}
+
+func parseShard(s string) (int, int, error) {
+	if s == "" {
+		return 1, 1, nil
+	}
+	a, b, ok := strings.Cut(s, "/")
+	i, err1 := strconv.Atoi(a)
+	n, err2 := strconv.Atoi(b)
+	if !ok || err1 != nil || err2 != nil || n < 1 || i < 1 || i > n {
+		return 0, 0, errors.New("want i/n with 1 ≤ i ≤ n")
+	}
+	return i, n, nil
+}
+
+// shardOf assigns a bench to one of n shards (1-based) by a hash of its
+// name, so that every machine agrees without talking to the others and a
+// bench's photos stay together.
+func shardOf(name string, n int) int {
+	h := fnv.New32a()
+	h.Write([]byte(name))
+	return int(h.Sum32()%uint32(n)) + 1
+}
+
+func sortedKeys(m map[string]bool) []string {
+	var k []string
+	for s := range m {
+		k = append(k, s)
+	}
+	sort.Strings(k)
+	return k
+}
+
+// displayName makes a file name printable and JSON-safe: names that are
+// not UTF-8 are shown quoted with escapes.
+func displayName(p string) string {
+	if utf8.ValidString(p) {
+		return p
+	}
+	return strconv.QuoteToASCII(p)
+}
+
+type bench struct {
+	Name     string
+	Dir      string
+	Photos   []string
+	Settings benchSettings
+}
+
+type failure struct {
+	File   string `json:"file"`
+	Reason string `json:"reason"`
+}
+
+type photoJob struct {
+	bench int
+	path  string
+}
+
+// discover finds the benches under root: every folder with image files.
+// It does not follow links to folders (so link loops cannot trap it),
+// skips the output folder, and reports what it cannot read.
+func discover(root, out string) ([]bench, []failure) {
+	var benches []bench
+	var fails []failure
+	absOut, _ := filepath.Abs(out)
+	byDir := map[string]*bench{}
+	var order []string
+	filepath.WalkDir(root, func(p string, d fs.DirEntry, err error) error {
+		if err != nil {
+			fails = append(fails, failure{File: displayName(p), Reason: "cannot read: " + errText(err)})
+			if d != nil && d.IsDir() {
+				return fs.SkipDir
+			}
+			return nil
+		}
+		if d.IsDir() {
+			if a, _ := filepath.Abs(p); a == absOut {
+				return fs.SkipDir
+			}
+			return nil
+		}
+		if !imageExts[strings.ToLower(filepath.Ext(p))] {
+			return nil
+		}
+		if d.Type()&fs.ModeSymlink != 0 {
+			st, err := os.Stat(p)
+			if err != nil {
+				fails = append(fails, failure{File: displayName(p), Reason: "broken or looping link: " + errText(err)})
+				return nil
+			}
+			if st.IsDir() {
+				return nil
+			}
+		}
+		dir := filepath.Dir(p)
+		b, ok := byDir[dir]
+		if !ok {
+			name, _ := filepath.Rel(root, dir)
+			if name == "." {
+				name = filepath.Base(filepath.Clean(root))
+			}
+			b = &bench{Name: displayName(filepath.ToSlash(name)), Dir: dir}
+			st, err := readSettings(filepath.Join(dir, settingsFile))
+			if err != nil {
+				fails = append(fails, failure{File: displayName(filepath.Join(dir, settingsFile)), Reason: err.Error()})
+			}
+			b.Settings = st
+			byDir[dir] = b
+			order = append(order, dir)
+		}
+		if !b.Settings.Exclude[filepath.Base(p)] {
+			b.Photos = append(b.Photos, p)
+		}
+		return nil
+	})
+	sort.Strings(order)
+	for _, d := range order {
+		b := byDir[d]
+		sort.Strings(b.Photos)
+		benches = append(benches, *b)
+	}
+	return benches, fails
+}
+
+// errText is an error's text without the path the caller prints anyway.
+func errText(err error) string {
+	var pe *fs.PathError
+	if errors.As(err, &pe) {
+		return pe.Err.Error()
+	}
+	return err.Error()
+}
+
+// benchSettings is what a bench's settings file can say.
+type benchSettings struct {
+	LinesPerMM  float64           `json:"lines_per_mm,omitempty"`
+	Calibration []string          `json:"calibration,omitempty"`
+	Lamps       map[string]string `json:"lamps,omitempty"`
+	Exclude     map[string]bool   `json:"exclude,omitempty"`
+}
+
+// readSettings reads a bench settings file; a missing file is no error.
+func readSettings(path string) (benchSettings, error) {
+	st := benchSettings{Lamps: map[string]string{}, Exclude: map[string]bool{}}
+	f, err := os.Open(path)
+	if errors.Is(err, fs.ErrNotExist) {
+		return st, nil
+	}
+	if err != nil {
+		return st, errors.New("cannot read: " + errText(err))
+	}
+	defer f.Close()
+	st, err = parseSettings(f)
+	return st, err
+}
+
+func parseSettings(r io.Reader) (benchSettings, error) {
+	st := benchSettings{Lamps: map[string]string{}, Exclude: map[string]bool{}}
+	sc := bufio.NewScanner(r)
+	n := 0
+	for sc.Scan() {
+		n++
+		line := sc.Text()
+		if i := strings.IndexByte(line, '#'); i >= 0 {
+			line = line[:i]
+		}
+		line = strings.TrimSpace(line)
+		if line == "" {
+			continue
+		}
+		key, val, ok := strings.Cut(line, ":")
+		if !ok {
+			return st, fmt.Errorf("line %d: want 'key: value', got %q", n, line)
+		}
+		key, fields := strings.ToLower(strings.TrimSpace(key)), strings.Fields(val)
+		switch key {
+		case "lines-per-mm":
+			v, err := strconv.ParseFloat(strings.TrimSpace(val), 64)
+			if err != nil || v <= 0 || v > 10000 {
+				return st, fmt.Errorf("line %d: lines-per-mm %q is not a number in (0, 10000]", n, strings.TrimSpace(val))
+			}
+			st.LinesPerMM = v
+		case "calibration":
+			if len(fields) == 0 {
+				return st, fmt.Errorf("line %d: calibration names no file", n)
+			}
+			st.Calibration = append(st.Calibration, fields...)
+		case "lamp":
+			if len(fields) != 2 {
+				return st, fmt.Errorf("line %d: want 'lamp: FILE LAMP'", n)
+			}
+			if _, err := calibrate.LampByName(fields[1]); err != nil {
+				return st, fmt.Errorf("line %d: %v", n, err)
+			}
+			st.Lamps[fields[0]] = fields[1]
+		case "exclude":
+			for _, f := range fields {
+				st.Exclude[f] = true
+			}
+		default:
+			return st, fmt.Errorf("line %d: unknown setting %q (lines-per-mm, calibration, lamp, exclude)", n, key)
+		}
+	}
+	if err := sc.Err(); err != nil {
+		return st, err
+	}
+	return st, nil
+}
+
+// photoRecord is one photo measured and its lamp recognised: what the
+// bench-level steps need, cached in OUTDIR/cache so a rerun skips it.
+type photoRecord struct {
+	File    string                     `json:"file"`
+	Size    int64                      `json:"size"`
+	ModTime int64                      `json:"mtime_ns"`
+	Options string                     `json:"options"`
+	Error   string                     `json:"error,omitempty"`
+	Strip   stripRecord                `json:"strip"`
+	Peaks   []peaks.Peak               `json:"peaks"`
+	Noise   float64                    `json:"profile_noise"`
+	IDs     []calibrate.Identification `json:"identifications"`
+	Image   string                     `json:"image,omitempty"` // straightened band PNG, relative to OUTDIR
+}
+
+// stripRecord is the part of an imaging.Strip worth keeping.
+type stripRecord struct {
+	AngleDeg, BandHalfHeight, OpticalCenter float64
+	Origin                                  [2]float64
+	Band                                    [4][2]float64
+	FrameW, FrameH                          int
+	Background, Noise, Saturated            float64
+	ResidualTiltDeg                         float64
+	Profile                                 []float32
+}
+
+func toRecord(s imaging.Strip) stripRecord {
+	r := stripRecord{AngleDeg: s.AngleDeg, BandHalfHeight: s.BandHalfHeight, OpticalCenter: s.OpticalCenter, Origin: s.Origin, Band: s.Band,
+		FrameW: s.FrameW, FrameH: s.FrameH, Background: s.Background, Noise: s.Noise, Saturated: s.Saturated, ResidualTiltDeg: s.ResidualTiltDeg}
+	r.Profile = make([]float32, len(s.Profile))
+	for i, v := range s.Profile {
+		r.Profile[i] = float32(v)
+	}
+	return r
+}
+
+func (r stripRecord) strip() imaging.Strip {
+	s := imaging.Strip{AngleDeg: r.AngleDeg, BandHalfHeight: r.BandHalfHeight, OpticalCenter: r.OpticalCenter, Origin: r.Origin, Band: r.Band,
+		FrameW: r.FrameW, FrameH: r.FrameH, Background: r.Background, Noise: r.Noise, Saturated: r.Saturated, ResidualTiltDeg: r.ResidualTiltDeg}
+	s.Profile = make([]float64, len(r.Profile))
+	for i, v := range r.Profile {
+		s.Profile[i] = float64(v)
+	}
+	return s
+}
+
+func (p photoRecord) measured() measured {
+	return measured{strip: p.Strip.strip(), found: peaks.Result{Peaks: p.Peaks, Noise: p.Noise}}
+}
+
+type batchRun struct {
+	out string
+	cfg measureConfig
+}
+
+// optionsKey changes whenever an option that changes a photo's result
+// changes, so that cached results are not reused across them.
+func (b *batchRun) optionsKey() string {
+	return fmt.Sprintf("v1 snr=%g", b.cfg.minSNR)
+}
+
+func cacheName(path string) string {
+	abs, err := filepath.Abs(path)
+	if err != nil {
+		abs = path
+	}
+	h := sha256.Sum256([]byte(abs))
+	return hex.EncodeToString(h[:12])
+}
+
+// process measures one photo, or takes it from the cache when the file
+// is unchanged (and then reports true).
+func (b *batchRun) process(path string, bn bench) (photoRecord, bool) {
+	rec := photoRecord{File: path, Options: b.optionsKey()}
+	st, err := os.Stat(path)
+	if err != nil {
+		rec.Error = fmt.Sprintf("%s: cannot read: %s", displayName(path), errText(err))
+		return rec, false
+	}
+	rec.Size, rec.ModTime = st.Size(), st.ModTime().UnixNano()
+	key := cacheName(path)
+	cachePath := filepath.Join(b.out, "cache", key+".json")
+	if old, err := os.ReadFile(cachePath); err == nil {
+		var c photoRecord
+		if json.Unmarshal(old, &c) == nil && c.File == path && c.Size == rec.Size && c.ModTime == rec.ModTime && c.Options == rec.Options {
+			return c, true
+		}
+	}
+	m, err := extractAndFind(path, b.cfg)
+	if err != nil {
+		rec.Error = displayErr(err.Error())
+	} else {
+		rec.Strip, rec.Peaks, rec.Noise = toRecord(m.strip), m.found.Peaks, m.found.Noise
+		lamps := b.cfg.lamps()
+		if l, ok := bn.Settings.Lamps[filepath.Base(path)]; ok {
+			ll, _ := calibrate.LampByName(l)
+			lamps = []calibrate.Lamp{ll}
+		}
+		rec.IDs = calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{})
+		if m.strip.Image != nil {
+			name := filepath.Join("images", key+".png")
+			if err := writeStripPNG(filepath.Join(b.out, name), m); err == nil {
+				rec.Image = name
+			}
+		}
+	}
+	if err := writeJSONAtomic(cachePath, rec); err != nil {
+		rec.Error = err.Error()
+	}
+	return rec, false
+}
+
+func displayErr(s string) string {
+	if utf8.ValidString(s) {
+		return s
+	}
+	return strings.ToValidUTF8(s, "�")
+}
+
+// benchResult is one bench's results.
+type benchResult struct {
+	Name        string               `json:"bench"`
+	Dir         string               `json:"folder"`
+	Settings    benchSettings        `json:"settings"`
+	Calibration *calibration         `json:"calibration,omitempty"`
+	CalPhotos   []imageResult        `json:"calibration_photos"`
+	Photos      []imageResult        `json:"photos"`
+	Rydberg     *calibrate.Rydberg   `json:"rydberg,omitempty"` // all hydrogen photos of the bench together
+	Failures    []failure            `json:"failures,omitempty"`
+	Warnings    []string             `json:"warnings,omitempty"`
+	Images      map[string]string    `json:"band_images,omitempty"` // file → PNG under OUTDIR
+	Profiles    map[string][]float32 `json:"profiles,omitempty"`    // file → profile, for the report's plots
+}
+
+func (b benchResult) summaryLine() string {
+	s := fmt.Sprintf("%s: %d calibration, %d other photos", b.Name, len(b.CalPhotos), len(b.Photos))
+	if b.Rydberg != nil {
+		s += fmt.Sprintf("; R = %.0f ± %.0f m⁻¹ (%+.4f %% from R_H)", b.Rydberg.R, b.Rydberg.Sigma, b.Rydberg.DevPercent)
+	}
+	if len(b.Warnings) > 0 {
+		s += "; " + b.Warnings[0]
+	}
+	return s
+}
+
+// assembleBench calibrates a bench from its calibration photos and
+// measures the rest with that calibration.
+func assembleBench(b bench, recs []photoRecord, cfg measureConfig) benchResult {
+	out := benchResult{Name: b.Name, Dir: displayName(b.Dir), Settings: b.Settings, Images: map[string]string{}, Profiles: map[string][]float32{}}
+	bcfg := cfg
+	bcfg.linesPerMM = b.Settings.LinesPerMM
+	pinnedCal := map[string]bool{}
+	for _, c := range b.Settings.Calibration {
+		pinnedCal[c] = true
+	}
+	var calIDs []selfID
+	var calRes []imageResult
+	var calNames []string
+	var others []photoRecord
+	for _, r := range recs {
+		name := displayName(r.File)
+		if r.Error != "" {
+			out.Failures = append(out.Failures, failure{File: name, Reason: strings.TrimPrefix(r.Error, name+": ")})
+			continue
+		}
+		if r.Image != "" {
+			out.Images[name] = r.Image
+		}
+		out.Profiles[name] = r.Strip.Profile
+		m := r.measured()
+		base := filepath.Base(r.File)
+		isCal := pinnedCal[base]
+		if len(pinnedCal) == 0 && len(r.IDs) > 0 && r.IDs[0].Lamp != "hydrogen" {
+			isCal = true
+		}
+		if !isCal {
+			others = append(others, r)
+			continue
+		}
+		if len(r.IDs) == 0 {
+			out.Failures = append(out.Failures, failure{File: name, Reason: fmt.Sprintf("named as a calibration photo, but its %d lines match no lamp", len(r.Peaks))})
+			continue
+		}
+		lamp, _ := bcfg.lampByName(r.IDs[0].Lamp)
+		res := m.baseResult(name)
+		res.Lamp, res.LampScore = r.IDs[0].Lamp, confidence(r.IDs)
+		calIDs = append(calIDs, selfID{m: m, id: r.IDs[0], lamp: lamp})
+		calRes = append(calRes, res)
+		calNames = append(calNames, name)
+	}
+	var cal *calibration
+	if len(calIDs) > 0 {
+		c, res, err := combineCalibration(calIDs, calRes, calNames, bcfg)
+		out.CalPhotos = res
+		if err != nil {
+			out.Warnings = append(out.Warnings, "calibration failed: "+err.Error())
+		} else {
+			cal = &c
+			out.Calibration = &c
+		}
+	} else {
+		out.Warnings = append(out.Warnings, "no calibration photo: lines are given in pixels only; add a mercury (or helium, neon) photo of the same setup")
+	}
+	var ps, sps []float64
+	var balmer []calibrate.Balmer
+	for _, r := range others {
+		name := displayName(r.File)
+		m := r.measured()
+		if cal == nil {
+			res := m.baseResult(name)
+			if len(r.IDs) > 0 {
+				res.Lamp, res.LampScore = r.IDs[0].Lamp, confidence(r.IDs)
+			}
+			res.Warnings = append(res.Warnings, "uncalibrated: positions in pixels only")
+			out.Photos = append(out.Photos, res)
+			continue
+		}
+		res := measureWith(m, name, *cal, bcfg)
+		out.Photos = append(out.Photos, res)
+		if res.Lamp == "hydrogen" {
+			for _, l := range res.Lines {
+				if l.N >= 3 {
+					balmer = append(balmer, calibrate.Balmer{N: l.N, AirNM: l.WavelengthNM, SigmaNM: l.WavelengthErrNM})
+					ps = append(ps, cal.position(l.X, l.Y))
+					sps = append(sps, l.PositionErrPX)
+				}
+			}
+		}
+	}
+	if cal != nil && len(balmer) >= 2 {
+		if r, err := calibrate.FitRydberg(balmer, cal.Dispersion.Covariance(ps, sps)); err == nil {
+			out.Rydberg = &r
+		}
+	}
+	for _, p := range append(append([]imageResult(nil), out.CalPhotos...), out.Photos...) {
+		for _, w := range p.Warnings {
+			if strings.Contains(w, "moved") || strings.Contains(w, "smooth dispersion") || strings.Contains(w, "poorly") || strings.Contains(w, "systematic") {
+				out.Warnings = append(out.Warnings, p.File+": "+w)
+			}
+		}
+	}
+	return out
+}
+
+// batchDoc is results.json.
+type batchDoc struct {
+	Tool     string        `json:"tool"`
+	Schema   int           `json:"schema"`
+	Root     string        `json:"input"`
+	Benches  []benchResult `json:"benches"`
+	Failures []failure     `json:"failures,omitempty"`
+}
+
+func writeBatchOutputs(out string, doc batchDoc) error {
+	if err := writeJSONAtomic(filepath.Join(out, "results.json"), doc); err != nil {
+		return err
+	}
+	if err := writeFileAtomic(filepath.Join(out, "results.csv"), func(w io.Writer) error { return resultsCSV(w, doc) }); err != nil {
+		return err
+	}
+	for _, b := range doc.Benches {
+		if b.Calibration != nil {
+			name := strings.NewReplacer("/", "_", "\\", "_", " ", "_").Replace(b.Name) + ".json"
+			if err := writeJSONAtomic(filepath.Join(out, "calibrations", name), b.Calibration); err != nil {
+				return err
+			}
+		}
+	}
+	return writeFileAtomic(filepath.Join(out, "report.html"), func(w io.Writer) error { return writeReport(w, out, doc) })
+}
+
+func resultsCSV(w io.Writer, doc batchDoc) error {
+	cw := csv.NewWriter(w)
+	cw.Write([]string{"bench", "file", "role", "lamp", "x", "y", "position_px", "position_err_px", "wavelength_nm", "wavelength_err_nm",
+		"vacuum_nm", "fwhm_px", "snr", "saturated", "id", "ref_nm", "delta_nm"})
+	f := func(v float64, p int) string {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return ""
+		}
+		return strconv.FormatFloat(v, 'f', p, 64)
+	}
+	for _, b := range doc.Benches {
+		for _, set := range []struct {
+			role string
+			rs   []imageResult
+		}{{"calibration", b.CalPhotos}, {"measured", b.Photos}} {
+			for _, r := range set.rs {
+				for _, l := range r.Lines {
+					wl, we, vac := f(l.WavelengthNM, 4), f(l.WavelengthErrNM, 4), f(l.VacuumNM, 4)
+					if r.Calibration == nil {
+						wl, we, vac = "", "", ""
+					}
+					cw.Write([]string{b.Name, r.File, set.role, r.Lamp, f(l.X, 3), f(l.Y, 3), f(l.PositionPX, 3), f(l.PositionErrPX, 4),
+						wl, we, vac, f(l.FWHMPX, 3), f(l.SNR, 1), strconv.FormatBool(l.Saturated), l.ID, f(l.RefNM, 4), f(l.DeltaNM, 4)})
+				}
+			}
+		}
+	}
+	cw.Flush()
+	return cw.Error()
+}
+
+const mergeUsage = `Usage: lineshot merge --out OUTDIR PART...
+
+Joins the output folders of several 'lineshot batch --shard i/n' runs into one
+results.csv, results.json, calibration set and report.
+
+Example:
+  lineshot merge --out all/ part1/ part2/ part3/
+`
+
+func runMerge(args []string, stdout, stderr io.Writer) error {
+	fsf := newFlags("merge", mergeUsage, stderr)
+	out := fsf.StringP("out", "o", "", "output folder")
+	if err := parse(fsf, args); err != nil {
+		return err
+	}
+	if *out == "" || fsf.NArg() == 0 {
+		fsf.Usage()
+		return usagef("merge: give --out OUTDIR and the batch output folders to join")
+	}
+	for _, d := range []string{"images", "calibrations"} {
+		if err := os.MkdirAll(filepath.Join(*out, d), 0o755); err != nil {
+			return fmt.Errorf("%s: cannot write the output folder: %w", *out, err)
+		}
+	}
+	merged := batchDoc{Tool: "lineshot", Schema: 1}
+	seen := map[string]string{}
+	var roots []string
+	for _, part := range fsf.Args() {
+		path := filepath.Join(part, "results.json")
+		raw, err := os.ReadFile(path)
+		if err != nil {
+			return err
+		}
+		var d batchDoc
+		if err := json.Unmarshal(raw, &d); err != nil || d.Tool != "lineshot" || d.Schema != 1 {
+			return fmt.Errorf("%s: not a lineshot batch result", path)
+		}
+		roots = append(roots, d.Root)
+		for _, b := range d.Benches {
+			if prev, dup := seen[b.Name]; dup {
+				return fmt.Errorf("%s: bench %q is also in %s: the parts overlap", path, b.Name, prev)
+			}
+			seen[b.Name] = part
+			for _, img := range b.Images {
+				src, err := os.ReadFile(filepath.Join(part, img))
+				if err != nil {
+					continue // the report then shows no band for that photo
+				}
+				if err := writeFileAtomic(filepath.Join(*out, img), func(w io.Writer) error { _, err := w.Write(src); return err }); err != nil {
+					return err
+				}
+			}
+			merged.Benches = append(merged.Benches, b)
+		}
+		merged.Failures = append(merged.Failures, d.Failures...)
+	}
+	merged.Root = strings.Join(dedupe(roots), ", ")
+	sort.SliceStable(merged.Benches, func(i, j int) bool { return merged.Benches[i].Name < merged.Benches[j].Name })
+	if err := writeBatchOutputs(*out, merged); err != nil {
+		return err
+	}
+	fmt.Fprintf(stdout, "merged %d benches from %d parts into %s\n", len(merged.Benches), fsf.NArg(), *out)
+	return nil
+}
+
+func dedupe(s []string) []string {
+	var out []string
+	seen := map[string]bool{}
+	for _, x := range s {
+		if !seen[x] {
+			seen[x] = true
+			out = append(out, x)
+		}
+	}
+	return out
+}

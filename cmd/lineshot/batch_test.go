@@ -1,0 +1,263 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"crypto/sha256"
+	"encoding/csv"
+	"encoding/json"
+	"io/fs"
+	"math"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"lineshot/calibrate"
+)
+
+// makeLab builds an invented lab folder: bench-a (600/mm, one mercury and
+// two hydrogen photos), bench-b (300/mm, settings file, bad files), bench-c
+// (hydrogen only, no calibration), an empty folder, a folder named like a
+// photo, and a link that loops.
+func makeLab(t *testing.T) string {
+	t.Helper()
+	root := filepath.Join(t.TempDir(), "lab")
+	a, b, c := setups[1], setups[0], setups[1]
+	for _, d := range []string{"bench-a", "bench-b", "bench-c", "empty", "bench-b/fake.jpg"} {
+		os.MkdirAll(filepath.Join(root, d), 0o755)
+	}
+	mv := func(src, dst string) {
+		if err := os.Rename(src, filepath.Join(root, dst)); err != nil {
+			t.Fatal(err)
+		}
+	}
+	tmp := t.TempDir()
+	p, _ := a.render(t, tmp, "mercury", 61)
+	mv(p, "bench-a/IMG_0001.jpg")
+	p, _ = a.render(t, tmp, "hydrogen", 62)
+	mv(p, "bench-a/IMG_0002.jpg")
+	p, _ = a.render(t, tmp, "hydrogen", 63)
+	mv(p, "bench-a/IMG_0003.jpg")
+	p, _ = b.render(t, tmp, "mercury", 64)
+	mv(p, "bench-b/cal.jpg")
+	p, _ = b.render(t, tmp, "hydrogen", 65)
+	mv(p, "bench-b/h.jpg")
+	p, _ = c.render(t, tmp, "hydrogen", 66)
+	mv(p, "bench-c/h-only.jpg")
+	os.WriteFile(filepath.Join(root, "bench-b", "empty.jpg"), nil, 0o644)
+	os.WriteFile(filepath.Join(root, "bench-b", "notes.jpg"), []byte("lamp 2 flickers, ask Ms Okafor"), 0o644)
+	os.WriteFile(filepath.Join(root, "bench-b", "blurry.jpg"), []byte("excluded by the settings file"), 0o644)
+	os.WriteFile(filepath.Join(root, "bench-b", settingsFile), []byte("# bench B, the old 300/mm grating\nlines-per-mm: 300\nexclude: blurry.jpg\n"), 0o644)
+	if err := os.Symlink("loop.jpg", filepath.Join(root, "bench-b", "loop.jpg")); err != nil {
+		t.Fatal(err)
+	}
+	return root
+}
+
+// treeDigest hashes every file under root (names and contents).
+func treeDigest(t *testing.T, root string) [32]byte {
+	h := sha256.New()
+	filepath.WalkDir(root, func(p string, d fs.DirEntry, err error) error {
+		h.Write([]byte(p))
+		if err == nil && d.Type().IsRegular() {
+			b, _ := os.ReadFile(p)
+			h.Write(b)
+		}
+		return nil
+	})
+	var out [32]byte
+	copy(out[:], h.Sum(nil))
+	return out
+}
+
+func readBatch(t *testing.T, out string) batchDoc {
+	t.Helper()
+	raw, err := os.ReadFile(filepath.Join(out, "results.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var d batchDoc
+	if err := json.Unmarshal(raw, &d); err != nil {
+		t.Fatal(err)
+	}
+	return d
+}
+
+func TestBatchOverALab(t *testing.T) {
+	root := makeLab(t)
+	before := treeDigest(t, root)
+	out := filepath.Join(t.TempDir(), "results")
+	stdout, stderr, code := runCLI(t, "batch", "-j", "2", "--quiet", "--out", out, root)
+	if code != exitFailed {
+		t.Fatalf("exit %d, want %d (some files are bad)\n%s\n%s", code, exitFailed, stdout, stderr)
+	}
+	if treeDigest(t, root) != before {
+		t.Error("the input folder changed")
+	}
+	for _, bad := range []string{"empty.jpg: empty file", "notes.jpg: not an image", "loop.jpg: broken or looping link"} {
+		if !strings.Contains(stderr, bad) {
+			t.Errorf("stderr lacks %q:\n%s", bad, stderr)
+		}
+	}
+	if strings.Contains(stderr, "blurry.jpg") || strings.Contains(stderr, "panic") {
+		t.Errorf("stderr: %s", stderr)
+	}
+	d := readBatch(t, out)
+	byName := map[string]benchResult{}
+	for _, b := range d.Benches {
+		byName[b.Name] = b
+	}
+	for _, name := range []string{"bench-a", "bench-b"} {
+		b, ok := byName[name]
+		if !ok || b.Rydberg == nil {
+			t.Errorf("%s: no bench R (%+v)", name, b.Warnings)
+			continue
+		}
+		if rel := b.Rydberg.R/calibrate.RHydrogen() - 1; math.Abs(rel) > 0.0005 {
+			t.Errorf("%s: R %.0f ± %.0f, %.4f %% from R_H", name, b.Rydberg.R, b.Rydberg.Sigma, 100*rel)
+		}
+		if len(b.CalPhotos) != 1 || b.CalPhotos[0].Lamp != "mercury" {
+			t.Errorf("%s: calibration photos %d", name, len(b.CalPhotos))
+		}
+	}
+	if n := len(byName["bench-a"].Rydberg.LinesUsed); n < 8 {
+		t.Errorf("bench-a R uses %d lines; two hydrogen photos give at least 8", n)
+	}
+	if b := byName["bench-b"]; b.Calibration == nil || b.Settings.LinesPerMM != 300 {
+		t.Errorf("bench-b settings not applied: %+v", b.Settings)
+	}
+	c := byName["bench-c"]
+	if c.Calibration != nil || len(c.Photos) != 1 || !strings.Contains(strings.Join(c.Warnings, " "), "no calibration photo") {
+		t.Errorf("bench-c: %+v", c.Warnings)
+	}
+	if _, ok := byName["empty"]; ok {
+		t.Error("an empty folder became a bench")
+	}
+	// One CSV row per line measured, plus the header.
+	f, _ := os.Open(filepath.Join(out, "results.csv"))
+	rows, err := csv.NewReader(f).ReadAll()
+	f.Close()
+	var lines int
+	for _, b := range d.Benches {
+		for _, r := range append(append([]imageResult(nil), b.CalPhotos...), b.Photos...) {
+			lines += len(r.Lines)
+		}
+	}
+	if err != nil || len(rows) != lines+1 {
+		t.Errorf("results.csv: %v, %d rows for %d lines", err, len(rows), lines)
+	}
+	for _, name := range []string{"bench-a.json", "bench-b.json"} {
+		if _, err := readCalibration(filepath.Join(out, "calibrations", name)); err != nil {
+			t.Errorf("calibration file: %v", err)
+		}
+	}
+	// Running again takes every measured photo from the cache.
+	stdout, _, _ = runCLI(t, "batch", "--quiet", "--out", out, root)
+	if !strings.Contains(stdout, "(8 unchanged since the last run") { // 6 photos and 2 bad files; the looping link is never read
+		t.Errorf("second run: %s", stdout)
+	}
+}
+
+// Interrupted midway, a batch keeps what it finished and writes complete
+// outputs; the next run measures only the rest.
+func TestBatchInterruptedAndResumed(t *testing.T) {
+	root := makeLab(t)
+	out := filepath.Join(t.TempDir(), "results")
+	ctx, cancel := context.WithCancel(context.Background())
+	var so, se bytes.Buffer
+	err := batchMain(ctx, []string{"-j", "1", "--quiet", "--out", out, root}, &so, &se, func(done int) {
+		if done == 3 {
+			cancel()
+		}
+	})
+	if code := exitCode(err, &se); code != exitFailed || !strings.Contains(se.String(), "interrupted: 3 of") {
+		t.Fatalf("exit %d: %s", code, se.String())
+	}
+	d := readBatch(t, out) // complete JSON, whatever was finished
+	if len(d.Benches) != 1 || d.Benches[0].Name != "bench-a" {
+		t.Errorf("after the interruption: %d benches", len(d.Benches))
+	}
+	entries, _ := os.ReadDir(out)
+	for _, e := range entries {
+		if strings.Contains(e.Name(), ".tmp-") {
+			t.Errorf("half-written file left: %s", e.Name())
+		}
+	}
+	stdout, _, _ := runCLI(t, "batch", "--quiet", "--out", out, root)
+	if !strings.Contains(stdout, "(3 unchanged since the last run") {
+		t.Errorf("resumed run: %s", stdout)
+	}
+	if d := readBatch(t, out); len(d.Benches) != 3 {
+		t.Errorf("after resuming: %d benches", len(d.Benches))
+	}
+}
+
+// Shards split the benches with no overlap and merge back into the whole.
+func TestBatchShardsMerge(t *testing.T) {
+	root := makeLab(t)
+	dir := t.TempDir()
+	var parts []string
+	total := 0
+	for _, s := range []string{"1/2", "2/2"} {
+		p := filepath.Join(dir, "part"+s[:1])
+		runCLI(t, "batch", "--quiet", "--shard", s, "--out", p, root)
+		total += len(readBatch(t, p).Benches)
+		parts = append(parts, p)
+	}
+	if total != 3 {
+		t.Errorf("the shards hold %d benches, want 3", total)
+	}
+	all := filepath.Join(dir, "all")
+	if _, stderr, code := runCLI(t, append([]string{"merge", "--out", all}, parts...)...); code != 0 {
+		t.Fatalf("merge: exit %d: %s", code, stderr)
+	}
+	if d := readBatch(t, all); len(d.Benches) != 3 {
+		t.Errorf("merged: %d benches", len(d.Benches))
+	}
+	if _, _, code := runCLI(t, "merge", "--out", filepath.Join(dir, "again"), parts[0], parts[0]); code == 0 {
+		t.Error("merging a part with itself should be refused")
+	}
+}
+
+func TestBatchBadArguments(t *testing.T) {
+	dir := t.TempDir()
+	if _, _, code := runCLI(t, "batch", "--out", filepath.Join(dir, "o"), filepath.Join(dir, "missing")); code != exitFailed {
+		t.Errorf("missing input: exit %d", code)
+	}
+	if _, stderr, code := runCLI(t, "batch", "--out", filepath.Join(dir, "o"), dir); code != exitFailed || !strings.Contains(stderr, "no photos") {
+		t.Errorf("empty input: exit %d %s", code, stderr)
+	}
+	if _, _, code := runCLI(t, "batch", "--shard", "3/2", "--out", filepath.Join(dir, "o"), dir); code != exitUsage {
+		t.Errorf("bad shard: exit %d", code)
+	}
+	ro := filepath.Join(dir, "ro")
+	os.MkdirAll(ro, 0o555)
+	if os.Getuid() != 0 { // root writes anywhere
+		if _, stderr, code := runCLI(t, "batch", "--out", filepath.Join(ro, "x"), makeLab(t)); code != exitFailed || !strings.Contains(stderr, "cannot write") {
+			t.Errorf("unwritable output: exit %d %s", code, stderr)
+		}
+	}
+}
+
+func TestParseSettings(t *testing.T) {
+	st, err := parseSettings(strings.NewReader("lines-per-mm: 600 # the new grating\ncalibration: a.jpg b.jpg\nlamp: c.jpg helium\nexclude: d.jpg e.jpg\n"))
+	if err != nil || st.LinesPerMM != 600 || len(st.Calibration) != 2 || st.Lamps["c.jpg"] != "helium" || !st.Exclude["e.jpg"] {
+		t.Errorf("%+v %v", st, err)
+	}
+	for _, bad := range []string{"lines-per-mm: many\n", "lamp: x.jpg plasma\n", "colour: blue\n", "just words\n", "calibration:\n"} {
+		if _, err := parseSettings(strings.NewReader(bad)); err == nil || !strings.Contains(err.Error(), "line 1") {
+			t.Errorf("%q: %v", bad, err)
+		}
+	}
+}
+
+func FuzzParseSettings(f *testing.F) {
+	f.Add("lines-per-mm: 600\ncalibration: a.jpg\nlamp: b.jpg hg\nexclude: c.jpg\n")
+	f.Fuzz(func(t *testing.T, s string) {
+		st, err := parseSettings(strings.NewReader(s))
+		if err == nil && (st.LinesPerMM < 0 || math.IsNaN(st.LinesPerMM)) {
+			t.Fatalf("accepted %v", st.LinesPerMM)
+		}
+	})
+}

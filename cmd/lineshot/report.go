@@ -1,0 +1,399 @@
+package main
+
+import (
+	"bytes"
+	"encoding/base64"
+	"fmt"
+	"html/template"
+	"image"
+	"image/color"
+	"image/png"
+	"io"
+	"math"
+	"os"
+	"path/filepath"
+	"sort"
+
+	"gonum.org/v1/plot"
+	"gonum.org/v1/plot/plotter"
+	"gonum.org/v1/plot/vg"
+	"gonum.org/v1/plot/vg/draw"
+
+	"lineshot/calibrate"
+)
+
+// The report's palette, our own: ink, slate, teal accent, amber warnings.
+var (
+	inkColor    = color.RGBA{0x1f, 0x29, 0x33, 0xff}
+	tealColor   = color.RGBA{0x0f, 0x76, 0x6e, 0xff}
+	amberColor  = color.RGBA{0xb4, 0x53, 0x09, 0xff}
+	mutedColor  = color.RGBA{0x94, 0xa3, 0xb8, 0xff}
+	markerColor = color.RGBA{0xf5, 0x9e, 0x0b, 0xff}
+)
+
+// writeStripPNG saves the straightened band with a tick above and below
+// every measured line (amber when identified, grey when not), scaled to at
+// most 1600 px wide.
+func writeStripPNG(path string, m measured) error {
+	src := m.strip.Image
+	if src == nil {
+		return nil
+	}
+	b := src.Bounds()
+	scale := math.Min(1, 1600/float64(b.Dx()))
+	w, h := max(1, int(float64(b.Dx())*scale)), max(1, int(float64(b.Dy())*scale))
+	const tick = 10
+	dst := image.NewRGBA(image.Rect(0, 0, w, h+2*tick))
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			dst.Set(x, y+tick, src.At(int(float64(x)/scale), int(float64(y)/scale)))
+		}
+	}
+	for _, p := range m.found.Peaks {
+		x := int(p.Center*scale + 0.5)
+		for y := 0; y < tick-2; y++ {
+			if x >= 0 && x < w {
+				dst.Set(x, y, markerColor)
+				dst.Set(x, h+2*tick-1-y, markerColor)
+			}
+		}
+	}
+	if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
+		return err
+	}
+	return writeFileAtomic(path, func(wr io.Writer) error { return png.Encode(wr, dst) })
+}
+
+// pngData renders a plot to a data: URI.
+func pngData(p *plot.Plot, w, h vg.Length) (template.URL, error) {
+	wt, err := p.WriterTo(w, h, "png")
+	if err != nil {
+		return "", err
+	}
+	var buf bytes.Buffer
+	if _, err := wt.WriteTo(&buf); err != nil {
+		return "", err
+	}
+	return template.URL("data:image/png;base64," + base64.StdEncoding.EncodeToString(buf.Bytes())), nil
+}
+
+func styled(title, x, y string) *plot.Plot {
+	p := plot.New()
+	p.Title.Text = title
+	p.X.Label.Text = x
+	p.Y.Label.Text = y
+	p.Title.TextStyle.Color = inkColor
+	p.BackgroundColor = color.White
+	return p
+}
+
+// profileXY adapts a profile to plotter.XYer without copying.
+type profileXY []float32
+
+func (p profileXY) Len() int                    { return len(p) }
+func (p profileXY) XY(i int) (float64, float64) { return float64(i), float64(p[i]) }
+
+// profilePlot draws a photo's profile with each line labelled by its
+// wavelength (or position when uncalibrated).
+func profilePlot(r imageResult, prof []float32) (template.URL, error) {
+	p := styled(filepath.Base(r.File), "position along the band (px)", "intensity (linear)")
+	l, err := plotter.NewLine(profileXY(prof))
+	if err != nil {
+		return "", err
+	}
+	l.Color = tealColor
+	p.Add(l)
+	var pts plotter.XYs
+	var labels []string
+	for _, ln := range r.Lines {
+		i := int(math.Round(ln.PositionPX))
+		if i < 0 || i >= len(prof) {
+			continue
+		}
+		pts = append(pts, plotter.XY{X: ln.PositionPX, Y: float64(prof[i])})
+		switch {
+		case r.Calibration != nil && ln.ID != "":
+			labels = append(labels, fmt.Sprintf("%.2f %s", ln.WavelengthNM, ln.ID))
+		case r.Calibration != nil:
+			labels = append(labels, fmt.Sprintf("%.2f", ln.WavelengthNM))
+		default:
+			labels = append(labels, fmt.Sprintf("%.1f px", ln.PositionPX))
+		}
+	}
+	if len(pts) > 0 {
+		s, err := plotter.NewScatter(pts)
+		if err != nil {
+			return "", err
+		}
+		s.GlyphStyle.Color = amberColor
+		s.GlyphStyle.Shape = draw.TriangleGlyph{}
+		p.Add(s)
+		lb, err := plotter.NewLabels(plotter.XYLabels{XYs: pts, Labels: labels})
+		if err != nil {
+			return "", err
+		}
+		for i := range lb.TextStyle {
+			lb.TextStyle[i].Color = inkColor
+			lb.TextStyle[i].Rotation = math.Pi / 2
+			lb.TextStyle[i].Font.Size = vg.Points(7)
+		}
+		lb.Offset = vg.Point{X: -3, Y: 4}
+		p.Add(lb)
+	}
+	return pngData(p, 22*vg.Centimeter, 8*vg.Centimeter)
+}
+
+// residualPlot draws the calibration residuals per reference line.
+func residualPlot(c *calibration) (template.URL, error) {
+	p := styled("calibration residuals ("+c.Dispersion.Model+")", "reference wavelength (nm, air)", "reference − fit (nm)")
+	var pts plotter.XYs
+	for _, r := range c.Dispersion.Residuals {
+		pts = append(pts, plotter.XY{X: r.RefNM, Y: r.ResidNM})
+	}
+	if len(pts) == 0 {
+		return "", nil
+	}
+	s, err := plotter.NewScatter(pts)
+	if err != nil {
+		return "", err
+	}
+	s.GlyphStyle.Color = tealColor
+	s.GlyphStyle.Radius = vg.Points(3)
+	zero := plotter.NewFunction(func(float64) float64 { return 0 })
+	zero.Color = mutedColor
+	p.Add(zero, s)
+	return pngData(p, 11*vg.Centimeter, 7*vg.Centimeter)
+}
+
+// rydbergPlot draws 1/λ_vac against 1/4 − 1/n² with the fitted line,
+// and the residuals (which is where the uncertainty can be seen).
+func rydbergPlot(r *calibrate.Rydberg) (template.URL, error) {
+	p := styled(fmt.Sprintf("Balmer residuals about R = %.0f ± %.0f /m", r.R, r.Sigma), "1/4 − 1/n²", "1/λ − R(1/4 − 1/n²)  (1/m)")
+	var xy plotter.XYs
+	for i := range r.X {
+		xy = append(xy, plotter.XY{X: r.X[i], Y: r.Residuals[i]})
+	}
+	type xyye struct {
+		plotter.XYs
+		plotter.YErrors
+	}
+	ye := make(plotter.YErrors, len(xy))
+	for i := range ye {
+		ye[i].Low, ye[i].High = r.YSigma[i], r.YSigma[i]
+	}
+	eb, err := plotter.NewYErrorBars(xyye{xy, ye})
+	if err != nil {
+		return "", err
+	}
+	eb.Color = tealColor
+	s, err := plotter.NewScatter(xy)
+	if err != nil {
+		return "", err
+	}
+	s.GlyphStyle.Color = tealColor
+	s.GlyphStyle.Radius = vg.Points(3)
+	// The fit's own 1σ band: ±σ_R·x.
+	up := plotter.NewFunction(func(x float64) float64 { return r.Sigma * x })
+	dn := plotter.NewFunction(func(x float64) float64 { return -r.Sigma * x })
+	up.Color, dn.Color = mutedColor, mutedColor
+	up.Dashes = []vg.Length{vg.Points(3), vg.Points(3)}
+	dn.Dashes = up.Dashes
+	zero := plotter.NewFunction(func(float64) float64 { return 0 })
+	zero.Color = inkColor
+	p.Add(zero, up, dn, eb, s)
+	p.X.Min, p.X.Max = 0.1, 0.25
+	return pngData(p, 11*vg.Centimeter, 7*vg.Centimeter)
+}
+
+// summaryPlot draws R per bench with its error bar against CODATA R_H.
+func summaryPlot(doc batchDoc) (template.URL, error) {
+	p := styled("R per bench (orange: CODATA R_H; dashed: the NIST Balmer lines' own value)", "bench", "R − R_H (1/m)")
+	var xy plotter.XYs
+	var ye plotter.YErrors
+	var names []string
+	for _, b := range doc.Benches {
+		if b.Rydberg == nil {
+			continue
+		}
+		xy = append(xy, plotter.XY{X: float64(len(names)), Y: b.Rydberg.R - b.Rydberg.RH})
+		ye = append(ye, struct{ Low, High float64 }{b.Rydberg.Sigma, b.Rydberg.Sigma})
+		names = append(names, b.Name)
+	}
+	if len(xy) == 0 {
+		return "", nil
+	}
+	type xyye struct {
+		plotter.XYs
+		plotter.YErrors
+	}
+	eb, err := plotter.NewYErrorBars(xyye{xy, ye})
+	if err != nil {
+		return "", err
+	}
+	eb.Color = tealColor
+	s, _ := plotter.NewScatter(xy)
+	s.GlyphStyle.Color = tealColor
+	s.GlyphStyle.Radius = vg.Points(3)
+	zero := plotter.NewFunction(func(float64) float64 { return 0 })
+	zero.Color = amberColor
+	p.Add(zero, eb, s)
+	for _, b := range doc.Benches {
+		if b.Rydberg != nil && b.Rydberg.RRef != 0 {
+			off := b.Rydberg.RRef - b.Rydberg.RH
+			ref := plotter.NewFunction(func(float64) float64 { return off })
+			ref.Color = mutedColor
+			ref.Dashes = []vg.Length{vg.Points(4), vg.Points(3)}
+			p.Add(ref)
+			break
+		}
+	}
+	p.NominalX(names...)
+	p.X.Min, p.X.Max = -0.5, float64(len(names))-0.5
+	return pngData(p, 16*vg.Centimeter, 7*vg.Centimeter)
+}
+
+type reportPhoto struct {
+	R       imageResult
+	Band    template.URL
+	Profile template.URL
+}
+
+type reportBench struct {
+	B         benchResult
+	Status    string
+	Attention bool
+	Residuals template.URL
+	Rydberg   template.URL
+	Photos    []reportPhoto
+}
+
+func writeReport(w io.Writer, out string, doc batchDoc) error {
+	data := struct {
+		Doc      batchDoc
+		Benches  []reportBench
+		Summary  template.URL
+		RH       float64
+		Failures []failure
+	}{Doc: doc, RH: calibrate.RHydrogen(), Failures: doc.Failures}
+	var err error
+	if data.Summary, err = summaryPlot(doc); err != nil {
+		return err
+	}
+	for _, b := range doc.Benches {
+		rb := reportBench{B: b, Status: "ok"}
+		var why []string
+		if b.Calibration == nil {
+			why = append(why, "no calibration")
+		}
+		if len(b.Failures) > 0 {
+			why = append(why, fmt.Sprintf("%d photo(s) failed", len(b.Failures)))
+		}
+		if b.Rydberg != nil && math.Abs(b.Rydberg.DevRefSigma) > 3 {
+			why = append(why, fmt.Sprintf("R %.1fσ from the reference-line value", b.Rydberg.DevRefSigma))
+		}
+		if len(b.Warnings) > 0 {
+			why = append(why, fmt.Sprintf("%d warning(s)", len(b.Warnings)))
+		}
+		if len(why) > 0 {
+			rb.Status, rb.Attention = joinWords(why), true
+		}
+		if b.Calibration != nil {
+			if rb.Residuals, err = residualPlot(b.Calibration); err != nil {
+				return err
+			}
+		}
+		if b.Rydberg != nil {
+			if rb.Rydberg, err = rydbergPlot(b.Rydberg); err != nil {
+				return err
+			}
+		}
+		for _, set := range [][]imageResult{b.CalPhotos, b.Photos} {
+			for _, r := range set {
+				ph := reportPhoto{R: r}
+				if img, ok := b.Images[r.File]; ok {
+					if raw, err := os.ReadFile(filepath.Join(out, img)); err == nil {
+						ph.Band = template.URL("data:image/png;base64," + base64.StdEncoding.EncodeToString(raw))
+					}
+				}
+				if prof, ok := b.Profiles[r.File]; ok && len(prof) > 0 {
+					if ph.Profile, err = profilePlot(r, prof); err != nil {
+						return err
+					}
+				}
+				rb.Photos = append(rb.Photos, ph)
+			}
+		}
+		data.Benches = append(data.Benches, rb)
+	}
+	sort.SliceStable(data.Benches, func(i, j int) bool { return data.Benches[i].B.Name < data.Benches[j].B.Name })
+	return reportTmpl.Execute(w, data)
+}
+
+func joinWords(s []string) string {
+	out := ""
+	for i, x := range s {
+		if i > 0 {
+			out += "; "
+		}
+		out += x
+	}
+	return out
+}
+
+var reportTmpl = template.Must(template.New("report").Funcs(template.FuncMap{
+	"f0": func(v float64) string { return fmt.Sprintf("%.0f", v) },
+	"f2": func(v float64) string { return fmt.Sprintf("%.2f", v) },
+	"f3": func(v float64) string { return fmt.Sprintf("%.3f", v) },
+	"f4": func(v float64) string { return fmt.Sprintf("%.4f", v) },
+	"g":  func(v float64) string { return fmt.Sprintf("%.10g", v) },
+}).Parse(`<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8">
+<title>lineshot report: {{.Doc.Root}}</title>
+<style>
+body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;color:#1f2933;margin:0;background:#f8fafc}
+header{background:#1f2933;color:#f8fafc;padding:1.2rem 2rem}
+header h1{margin:0;font-size:1.4rem;font-weight:600}
+header p{margin:.3rem 0 0;color:#cbd5e1}
+main{padding:1rem 2rem;max-width:1200px}
+section{background:#fff;border:1px solid #e2e8f0;border-radius:6px;margin:1rem 0;padding:1rem 1.2rem}
+h2{font-size:1.15rem;margin:.2rem 0 .8rem;color:#0f766e}
+h3{font-size:1rem;margin:1rem 0 .4rem}
+table{border-collapse:collapse;font-size:.9rem}
+th,td{padding:.25rem .6rem;border-bottom:1px solid #e2e8f0;text-align:right}
+th{color:#475569;font-weight:600}
+td.l,th.l{text-align:left}
+.attn{color:#b45309;font-weight:600}
+.ok{color:#0f766e}
+ul.warn li{color:#b45309}
+img{max-width:100%;display:block;margin:.3rem 0}
+.band{border:1px solid #e2e8f0;background:#000}
+.grid{display:flex;flex-wrap:wrap;gap:1rem}
+footer{font-size:.85rem;color:#475569;padding:1rem 2rem 2rem;max-width:1200px}
+</style></head><body>
+<header><h1>lineshot report</h1><p>input: {{.Doc.Root}} · {{len .Benches}} bench(es) · CODATA 2018 R<sub>H</sub> = {{f2 .RH}} m⁻¹</p></header>
+<main>
+<section id="summary"><h2>Summary</h2>
+<table><tr><th class="l">bench</th><th>photos</th><th>calibration</th><th>R (m⁻¹)</th><th>± σ</th><th>R − R<sub>H</sub></th><th>vs NIST-line value</th><th class="l">status</th></tr>
+{{range .Benches}}{{$b := .}}<tr><td class="l">{{.B.Name}}</td><td>{{len .B.CalPhotos}} + {{len .B.Photos}}</td>
+<td>{{with .B.Calibration}}{{.Dispersion.Model}}, rms {{f4 .Dispersion.RMSNM}} nm{{else}}none{{end}}</td>
+{{with .B.Rydberg}}<td class="r-value" data-bench="{{$b.B.Name}}" data-r="{{g .R}}" data-sigma="{{g .Sigma}}">{{f0 .R}}</td><td>{{f0 .Sigma}}</td><td>{{f4 .DevPercent}} %</td><td>{{f2 .DevRefSigma}}σ</td>{{else}}<td colspan="4">no Rydberg fit</td>{{end}}
+<td class="l {{if .Attention}}attn{{else}}ok{{end}}">{{.Status}}</td></tr>
+{{end}}</table>
+{{if .Summary}}<img alt="R per bench against CODATA R_H" src="{{.Summary}}">{{end}}
+{{if .Failures}}<h3>Photos that could not be measured</h3><ul class="warn">{{range .Failures}}<li>{{.File}}: {{.Reason}}</li>{{end}}</ul>{{end}}
+</section>
+{{range .Benches}}<section class="bench" id="bench-{{.B.Name}}"><h2>{{.B.Name}}</h2>
+{{if .B.Warnings}}<ul class="warn">{{range .B.Warnings}}<li>{{.}}</li>{{end}}</ul>{{end}}
+{{with .B.Rydberg}}<p>R = <b>{{f0 .R}} ± {{f0 .Sigma}} m⁻¹</b> from {{len .LinesUsed}} Balmer lines, χ²/dof {{f2 .ChiSq}}/{{.DOF}};
+{{f4 .DevPercent}} % ({{f2 .DevSigma}}σ) from R<sub>H</sub>; ground-state energy {{f4 .EnergyEV}} eV.</p>{{end}}
+<div class="grid">{{if .Residuals}}<img alt="calibration residuals" src="{{.Residuals}}">{{end}}{{if .Rydberg}}<img alt="Rydberg fit residuals" src="{{.Rydberg}}">{{end}}</div>
+{{range .Photos}}<h3>{{.R.File}} — {{if .R.Lamp}}{{.R.Lamp}}{{else}}lamp not recognised{{end}}</h3>
+{{if .Band}}<img class="band" alt="straightened band with the measured lines marked" src="{{.Band}}">{{end}}
+{{if .Profile}}<img alt="profile with lines labelled" src="{{.Profile}}">{{end}}
+{{if .R.Warnings}}<ul class="warn">{{range .R.Warnings}}<li>{{.}}</li>{{end}}</ul>{{end}}
+{{end}}</section>
+{{end}}</main>
+<footer><p><b>Lamp safety.</b> Discharge lamps run from supplies of several kilovolts: switch off and unplug before touching a lamp or its holder. Tubes get hot enough to burn. Mercury lamps emit ultraviolet light: keep the shield in place and do not look into the lamp. A broken mercury lamp releases mercury: follow your institution's spill procedure. Follow your local lab safety rules; these notes do not replace them.</p>
+<p>Made by lineshot. Wavelengths are air wavelengths unless marked vacuum; references: NIST ASD and Handbook; constants: CODATA 2018.</p></footer>
+</body></html>
+`))
