@@ -46,6 +46,7 @@ type Line struct {
 	NM, SigmaNM           float64
 	Z                     float64 // (NM − RefNM)/SigmaNM
 	PhotoNM               float64 // objective measurement of the same bench, 0 if none
+	PhotoZ                float64 // (NM − PhotoNM)/SigmaNM when PhotoNM is known
 	Calibration           bool    // used to find d
 	Flag                  *Diagnosis
 	Rows                  []int
@@ -332,8 +333,9 @@ func (s *session) compute() (Observer, error) {
 			l.SigmaNM = math.Max(l.SigmaNM, a) // the line defines d: its own scatter is its reading error
 		}
 		l.Z = (l.NM - l.RefNM) / l.SigmaNM
-		if p, ok := s.opt.Photo[s.bench]; ok {
+		if p, ok := s.opt.Photo[s.bench]; ok && p[l.RefNM] > 0 {
 			l.PhotoNM = p[l.RefNM]
+			l.PhotoZ = (l.NM - l.PhotoNM) / l.SigmaNM
 		}
 	}
 	return o, nil

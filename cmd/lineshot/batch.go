@@ -27,6 +27,7 @@ import (
 	"golang.org/x/term"
 
 	"lineshot/calibrate"
+	"lineshot/calibrate/vernier"
 	"lineshot/imaging"
 	"lineshot/peaks"
 )
@@ -74,8 +75,22 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	quiet := fsf.BoolP("quiet", "q", false, "no progress bar")
 	shard := fsf.String("shard", "", "measure only part i of n of the benches (i/n, 1-based), for spreading a large archive over machines")
 	minSNR := fsf.Float64("min-snr", 5, "least line height and prominence, in units of the profile noise")
+	readings := fsf.String("readings", "", "a class's vernier readings (CSV, see 'lineshot help vernier'), checked against the photos of the same benches and added to the report")
+	lc := fsf.Float64("least-count", 1, "with --readings: the vernier least count, arc-minutes")
 	if err := parse(fsf, args); err != nil {
 		return err
+	}
+	var class []vernier.Reading
+	if *readings != "" {
+		f, err := os.Open(*readings)
+		if err != nil {
+			return err
+		}
+		class, err = vernier.ReadCSV(f)
+		f.Close()
+		if err != nil {
+			return fmt.Errorf("%s: %v", *readings, err)
+		}
 	}
 	if fsf.NArg() != 1 || *out == "" {
 		fsf.Usage()
@@ -185,6 +200,14 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	for _, b := range doc.Benches {
 		for _, f := range b.Failures {
 			doc.Failures = append(doc.Failures, f)
+		}
+	}
+	if class != nil {
+		obs, err := vernier.Analyze(class, vernier.Options{LeastCountArcmin: *lc, Photo: photoWavelengths(doc)})
+		if err != nil {
+			doc.Failures = append(doc.Failures, failure{File: *readings, Reason: err.Error()})
+		} else {
+			doc.Vernier, doc.VernierSummary = obs, classSummary(obs)
 		}
 	}
 	if err := writeBatchOutputs(*out, doc); err != nil {
@@ -673,6 +696,10 @@ type batchDoc struct {
 	Root     string        `json:"input"`
 	Benches  []benchResult `json:"benches"`
 	Failures []failure     `json:"failures,omitempty"`
+	// Vernier holds the class's readings checked against the photos, when
+	// batch was given --readings.
+	Vernier        []vernier.Observer `json:"vernier,omitempty"`
+	VernierSummary []string           `json:"vernier_summary,omitempty"`
 }
 
 func writeBatchOutputs(out string, doc batchDoc) error {

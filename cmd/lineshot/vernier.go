@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"strconv"
 	"strings"
@@ -37,6 +38,7 @@ func runVernier(args []string, stdout, stderr io.Writer) error {
 	lc := fs.Float64("least-count", 1, "vernier least count, arc-minutes")
 	cal := fs.Float64Slice("calibration-line", []float64{546.0735}, "reference line(s) that fix d, air nm")
 	csvOut := fs.String("csv", "", "also write the per-line table to this CSV file")
+	against := fs.String("against", "", "results.json of 'lineshot batch' for the same benches: compare each line with the photo measurement")
 	asJSON := fs.Bool("json", false, "print JSON instead of tables")
 	if err := parse(fs, args); err != nil {
 		return err
@@ -64,7 +66,19 @@ func runVernier(args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return fmt.Errorf("%s: %v", path, err)
 	}
-	obs, err := vernier.Analyze(rs, vernier.Options{LinesPerMM: *lpm, LeastCountArcmin: *lc, CalibrationNM: *cal})
+	opt := vernier.Options{LinesPerMM: *lpm, LeastCountArcmin: *lc, CalibrationNM: *cal}
+	if *against != "" {
+		raw, err := os.ReadFile(*against)
+		if err != nil {
+			return err
+		}
+		var d batchDoc
+		if err := json.Unmarshal(raw, &d); err != nil || d.Tool != "lineshot" {
+			return fmt.Errorf("%s: not a lineshot batch result", *against)
+		}
+		opt.Photo = photoWavelengths(d)
+	}
+	obs, err := vernier.Analyze(rs, opt)
 	if err != nil {
 		return fmt.Errorf("%s: %v", path, err)
 	}
@@ -89,7 +103,7 @@ func printVernier(w io.Writer, path string, obs []vernier.Observer) {
 			fmt.Fprint(w, " (nominal)")
 		}
 		fmt.Fprintln(w)
-		fmt.Fprintf(w, "  %-10s %-12s %9s %7s %10s %7s %10s %6s  %s\n", "line", "reference", "θ", "±′", "λ air nm", "±nm", "ref nm", "z", "check")
+		fmt.Fprintf(w, "  %-10s %-12s %9s %7s %10s %7s %10s %6s %10s  %s\n", "line", "reference", "θ", "±′", "λ air nm", "±nm", "ref nm", "z", "photo nm", "check")
 		for _, l := range o.Lines {
 			check := "ok"
 			switch {
@@ -98,8 +112,15 @@ func printVernier(w io.Writer, path string, obs []vernier.Observer) {
 			case l.Flag != nil:
 				check = l.Flag.Kind
 			}
-			fmt.Fprintf(w, "  %-10s %-12s %9s %7.2f %10.3f %7.3f %10.4f %+6.1f  %s\n", l.Asked, l.Name, vernier.FormatAngle(l.ThetaDeg),
-				l.ThetaSigma*60, l.NM, l.SigmaNM, l.RefNM, l.Z, check)
+			photo := "-"
+			if l.PhotoNM > 0 {
+				photo = fmt.Sprintf("%.3f", l.PhotoNM)
+				if math.Abs(l.PhotoZ) > 3 && l.Flag == nil {
+					check = fmt.Sprintf("%.1fσ from the photo", l.PhotoZ)
+				}
+			}
+			fmt.Fprintf(w, "  %-10s %-12s %9s %7.2f %10.3f %7.3f %10.4f %+6.1f %10s  %s\n", l.Asked, l.Name, vernier.FormatAngle(l.ThetaDeg),
+				l.ThetaSigma*60, l.NM, l.SigmaNM, l.RefNM, l.Z, photo, check)
 		}
 		for _, l := range o.Lines {
 			if l.Flag != nil {
@@ -165,13 +186,42 @@ func classSummary(obs []vernier.Observer) []string {
 	return out
 }
 
+// photoWavelengths collects, per bench of a batch result, the mean
+// calibrated wavelength of each identified reference line.
+func photoWavelengths(d batchDoc) map[string]map[float64]float64 {
+	out := map[string]map[float64]float64{}
+	for _, b := range d.Benches {
+		sum, n := map[float64]float64{}, map[float64]float64{}
+		for _, r := range append(append([]imageResult(nil), b.CalPhotos...), b.Photos...) {
+			if r.Calibration == nil {
+				continue
+			}
+			for _, l := range r.Lines {
+				if l.RefNM > 0 {
+					sum[l.RefNM] += l.WavelengthNM
+					n[l.RefNM]++
+				}
+			}
+		}
+		m := map[float64]float64{}
+		for k, s := range sum {
+			m[k] = s / n[k]
+		}
+		out[b.Name] = m
+	}
+	return out
+}
+
 func vernierCSV(w io.Writer, obs []vernier.Observer) error {
 	cw := csv.NewWriter(w)
-	cw.Write([]string{"bench", "observer", "line", "reference", "ref_nm", "order", "theta_deg", "theta_err_deg", "wavelength_nm", "wavelength_err_nm", "z", "flag", "row", "recorded", "corrected", "corrected_nm", "explain"})
+	cw.Write([]string{"bench", "observer", "line", "reference", "ref_nm", "order", "theta_deg", "theta_err_deg", "wavelength_nm", "wavelength_err_nm", "z", "flag", "row", "recorded", "corrected", "corrected_nm", "explain", "photo_nm"})
 	f := func(v float64, p int) string { return strconv.FormatFloat(v, 'f', p, 64) }
 	for _, o := range obs {
 		for _, l := range o.Lines {
-			rec := []string{o.Bench, o.Name, l.Asked, l.Name, f(l.RefNM, 4), strconv.Itoa(l.Order), f(l.ThetaDeg, 5), f(l.ThetaSigma, 5), f(l.NM, 4), f(l.SigmaNM, 4), f(l.Z, 2), "", "", "", "", "", ""}
+			rec := []string{o.Bench, o.Name, l.Asked, l.Name, f(l.RefNM, 4), strconv.Itoa(l.Order), f(l.ThetaDeg, 5), f(l.ThetaSigma, 5), f(l.NM, 4), f(l.SigmaNM, 4), f(l.Z, 2), "", "", "", "", "", "", ""}
+			if l.PhotoNM > 0 {
+				rec[17] = f(l.PhotoNM, 4)
+			}
 			if fl := l.Flag; fl != nil {
 				rec[11], rec[12], rec[13], rec[14], rec[15], rec[16] = fl.Kind, strconv.Itoa(fl.Row), fl.Was, fl.Corrected, f(fl.CorrectedNM, 4), fl.Explain
 			}

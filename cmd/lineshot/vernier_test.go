@@ -1,10 +1,14 @@
 package main
 
 import (
+	"fmt"
+	"math"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"lineshot/calibrate/vernier"
 )
 
 // The shipped example class (made by scripts/make-vernier-demo.py with
@@ -34,5 +38,44 @@ func TestVernierCommandOnExampleClass(t *testing.T) {
 	_, stderr, code = runCLI(t, "vernier", bad)
 	if code != exitFailed || !strings.Contains(stderr, bad) || !strings.Contains(stderr, "row 2") || strings.Count(strings.TrimSpace(stderr), "\n") != 0 {
 		t.Errorf("bad readings: exit %d, stderr %q", code, stderr)
+	}
+}
+
+// The class's readings of bench-a are compared with the photos of bench-a,
+// both from the command line (--against) and inside the batch report.
+func TestVernierAgainstPhotos(t *testing.T) {
+	root := makeLab(t)
+	out := filepath.Join(t.TempDir(), "results")
+	var b strings.Builder
+	b.WriteString("bench,observer,lamp,line,side,reading\n")
+	d := 1e6 / 600.0
+	z := 180 + 2.0/60
+	for _, l := range []struct {
+		lamp, name string
+		nm         float64
+	}{{"mercury", "green", 546.0735}, {"mercury", "blue", 435.8328}, {"hydrogen", "H-alpha", 656.2795}, {"hydrogen", "H-beta", 486.1325}} {
+		th := math.Asin(l.nm/d) * 180 / math.Pi
+		fmt.Fprintf(&b, "bench-a,Nia,%s,%s,right,%s\n", l.lamp, l.name, vernier.FormatAngle(z+th))
+		fmt.Fprintf(&b, "bench-a,Nia,%s,%s,left,%s\n", l.lamp, l.name, vernier.FormatAngle(z-th))
+	}
+	readings := filepath.Join(t.TempDir(), "class.csv")
+	os.WriteFile(readings, []byte(b.String()), 0o644)
+	runCLI(t, "batch", "--quiet", "--readings", readings, "--out", out, root)
+	doc := readBatch(t, out)
+	if len(doc.Vernier) != 1 || len(doc.VernierSummary) != 1 || !strings.Contains(doc.VernierSummary[0], "fine") {
+		t.Fatalf("vernier in results.json: %+v", doc.VernierSummary)
+	}
+	for _, l := range doc.Vernier[0].Lines {
+		if l.PhotoNM == 0 || math.Abs(l.PhotoNM-l.RefNM) > 0.1 {
+			t.Errorf("%s: photo %.4f nm, reference %.4f", l.Asked, l.PhotoNM, l.RefNM)
+		}
+	}
+	html, _ := os.ReadFile(filepath.Join(out, "report.html"))
+	if !strings.Contains(string(html), "Vernier readings checked") {
+		t.Error("the report has no vernier section")
+	}
+	stdout, stderr, code := runCLI(t, "vernier", "--against", filepath.Join(out, "results.json"), readings)
+	if code != 0 || !strings.Contains(stdout, "photo nm") {
+		t.Errorf("vernier --against: exit %d %s", code, stderr)
 	}
 }
