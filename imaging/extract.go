@@ -1,12 +1,14 @@
 package imaging
 
 import (
+	"bytes"
 	"errors"
 	"fmt"
 	"image"
 	"image/color"
 	_ "image/jpeg" // header checks before OpenCV decodes
 	_ "image/png"
+	"io"
 	"math"
 	"os"
 	"sort"
@@ -135,7 +137,40 @@ func checkFile(path string, opt Options) (string, error) {
 	if err == nil && cfg.Width*cfg.Height > capPx {
 		return "", fmt.Errorf("%s: %dx%d pixels exceeds the limit of %d megapixels", path, cfg.Width, cfg.Height, capPx/1_000_000)
 	}
+	if err == nil && !hasEndMarker(f, st.Size(), format) {
+		// A file cut short (an interrupted copy): libjpeg and libpng would
+		// decode what is there and print their own complaints. Go's decoder
+		// decides instead, quietly; some cameras append data after the end
+		// marker, and those files still decode.
+		if _, err := f.Seek(0, io.SeekStart); err == nil {
+			if _, _, err := image.Decode(f); err != nil {
+				return "", fmt.Errorf("%s: truncated or damaged %s file (%v)", path, format, err)
+			}
+		}
+	}
 	return format, nil
+}
+
+// hasEndMarker reports whether a JPEG ends with its EOI marker or a PNG
+// with its IEND chunk (other formats: true).
+func hasEndMarker(f *os.File, size int64, format string) bool {
+	var want []byte
+	switch format {
+	case "jpeg":
+		want = []byte{0xff, 0xd9}
+	case "png":
+		want = []byte{0, 0, 0, 0, 'I', 'E', 'N', 'D', 0xae, 0x42, 0x60, 0x82}
+	default:
+		return true
+	}
+	if size < int64(len(want)) {
+		return false
+	}
+	tail := make([]byte, len(want))
+	if _, err := f.ReadAt(tail, size-int64(len(want))); err != nil {
+		return false
+	}
+	return bytes.Equal(tail, want)
 }
 
 // frame holds the decoded image's pixels as Go slices, without copying.

@@ -1,10 +1,12 @@
 package imaging
 
 import (
+	"bytes"
 	"image/jpeg"
 	"math"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"lineshot/imaging/synth"
@@ -106,4 +108,22 @@ func indexOf(s, sub string) int {
 		}
 	}
 	return -1
+}
+
+// Any bytes, named like a photo: Extract returns a strip or an error that
+// names the file; it never panics or aborts inside OpenCV.
+func FuzzExtractBytes(f *testing.F) {
+	img, _, _ := synth.Render(synth.Params{Width: 64, Height: 48, Emissions: mercury, NoNoise: true})
+	var buf bytes.Buffer
+	jpeg.Encode(&buf, img, nil)
+	f.Add(buf.Bytes())
+	f.Add([]byte("\xff\xd8\xff\xe0 not really"))
+	f.Add([]byte("\x89PNG\r\n\x1a\n"))
+	f.Fuzz(func(t *testing.T, b []byte) {
+		p := filepath.Join(t.TempDir(), "photo.jpg")
+		os.WriteFile(p, b, 0o644)
+		if _, err := Extract(p, Options{MaxPixels: 4_000_000}); err != nil && !strings.Contains(err.Error(), p) {
+			t.Fatalf("error does not name the file: %v", err)
+		}
+	})
 }

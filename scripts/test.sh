@@ -1,6 +1,7 @@
 #!/usr/bin/env bash
 # Installs what is missing and runs every check the project has: gofmt,
-# go vet and the whole test suite. CI runs exactly this (.ci/run).
+# go vet, the whole test suite, the race detector on the batch code and a
+# short run of every fuzz target. CI runs exactly this (.ci/run).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 # SciPy: the outside check of peaks/ (TestAgainstSciPy); Chromium: the report in a real browser (TestReportInBrowser)
@@ -12,3 +13,8 @@ if [ -n "$unformatted" ]; then
 fi
 go vet ./...
 go test -count=1 ./...
+# The concurrent batch code under the race detector (the other packages
+# run no goroutines of their own).
+go test -count=1 -race -run 'TestBatch(OverALab|InterruptedAndResumed)' ./cmd/lineshot
+# Every fuzz target briefly; found crashers land in testdata/fuzz/.
+FUZZTIME=${FUZZTIME:-3s} scripts/fuzz.sh

@@ -200,3 +200,55 @@ func TestUserLineList(t *testing.T) {
 		}
 	}
 }
+
+func FuzzCalibrationJSON(f *testing.F) {
+	dir := f.TempDir()
+	s := setups[1]
+	hg, _ := s.render(f, dir, "mercury", 990)
+	cal, _, err := buildCalibration([]string{hg}, defaultCfg)
+	if err != nil {
+		f.Fatal(err)
+	}
+	good := filepath.Join(dir, "good.json")
+	if err := writeJSONAtomic(good, cal); err != nil {
+		f.Fatal(err)
+	}
+	raw, _ := os.ReadFile(good)
+	f.Add(raw)
+	f.Add([]byte(`{"lineshot_calibration":1}`))
+	f.Fuzz(func(t *testing.T, b []byte) {
+		p := filepath.Join(t.TempDir(), "c.json")
+		os.WriteFile(p, b, 0o644)
+		c, err := readCalibration(p)
+		if err != nil {
+			if !strings.Contains(err.Error(), p) {
+				t.Fatalf("error does not name the file: %v", err)
+			}
+			return
+		}
+		// Accepted: it must be usable everywhere in its range.
+		d := c.Dispersion
+		for _, x := range []float64{d.MinPX, d.MaxPX} {
+			if w := d.Wavelength(x); math.IsNaN(w) {
+				t.Fatalf("accepted calibration gives NaN at %g", x)
+			}
+			d.Sigma(x, 0.1)
+		}
+	})
+}
+
+func FuzzLineList(f *testing.F) {
+	f.Add("name,nm,strength\nviolet,404.6563,0.5\ngreen,546.0735,1\n")
+	f.Add("nm\n500\n600\n")
+	f.Fuzz(func(t *testing.T, s string) {
+		l, err := calibrate.ReadLines(strings.NewReader(s), "x")
+		if err != nil {
+			return
+		}
+		for _, ln := range l.Lines {
+			if !(ln.NM >= 100 && ln.NM <= 3000) || math.IsNaN(ln.Strength) || ln.Strength < 0 {
+				t.Fatalf("accepted %+v", ln)
+			}
+		}
+	})
+}

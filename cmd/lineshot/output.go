@@ -68,8 +68,7 @@ func printResults(w io.Writer, doc document) {
 
 func printImage(w io.Writer, r imageResult) {
 	if r.Error != "" && len(r.Lines) == 0 {
-		fmt.Fprintf(w, "%s: failed: %s\n\n", r.File, r.Error)
-		return
+		return // said on stderr, once
 	}
 	lamp := r.Lamp
 	if lamp == "" {
