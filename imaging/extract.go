@@ -12,6 +12,7 @@ import (
 	"math"
 	"os"
 	"sort"
+	"time"
 	"unsafe"
 
 	"gocv.io/x/gocv"
@@ -74,6 +75,7 @@ type Strip struct {
 	// straightening, degrees (0 when it could not be measured).
 	ResidualTiltDeg float64
 	Image           *image.RGBA
+	Timing          Timing
 }
 
 // ToImage maps profile position p to original-image coordinates.
@@ -95,16 +97,37 @@ func Extract(path string, opt Options) (Strip, error) {
 			opt.Profile = ProfileLuma
 		}
 	}
+	t0 := time.Now()
 	m := gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
 	defer m.Close()
 	if m.Empty() {
 		return Strip{}, fmt.Errorf("%s: not an image OpenCV can decode", path)
 	}
+	decoded := time.Since(t0)
 	s, err := extractMat(m, opt)
 	if err != nil {
 		return Strip{}, fmt.Errorf("%s: %w", path, err)
 	}
+	s.Timing.Decode = decoded
 	return s, nil
+}
+
+// Decode decodes the photo at path as Extract does and discards it,
+// returning its size: the floor under Extract's time, for benchmarks.
+func Decode(path string) (w, h int, err error) {
+	m := gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
+	defer m.Close()
+	if m.Empty() {
+		return 0, 0, fmt.Errorf("%s: not an image OpenCV can decode", path)
+	}
+	return m.Cols(), m.Rows(), nil
+}
+
+// Timing is how long each stage of Extract took.
+type Timing struct {
+	Decode     time.Duration // OpenCV's imread
+	Locate     time.Duration // reduce the frame, find the band's direction and place
+	Straighten time.Duration // linearise the band region, warp, collapse (all rounds)
 }
 
 // checkFile rejects what need not reach the decoder: missing files,
@@ -208,21 +231,26 @@ func linearLUT(levels int, linear bool) []float32 {
 	for i := range lut {
 		v := float64(i) / float64(levels-1)
 		if !linear {
-			if v <= 0.04045 {
-				v /= 12.92
-			} else {
-				v = math.Pow((v+0.055)/1.055, 2.4)
-			}
+			v = srgbToLinear(v)
 		}
 		lut[i] = float32(v)
 	}
 	return lut
 }
 
+// srgbToLinear undoes the sRGB transfer curve (IEC 61966-2-1), v in [0, 1].
+func srgbToLinear(v float64) float64 {
+	if v <= 0.04045 {
+		return v / 12.92
+	}
+	return math.Pow((v+0.055)/1.055, 2.4)
+}
+
 // searchScale is the longest side of the reduced frame used to find the band.
 const searchScale = 1024
 
 func extractMat(m gocv.Mat, opt Options) (Strip, error) {
+	t0 := time.Now()
 	fr, err := newFrame(m)
 	if err != nil {
 		return Strip{}, err
@@ -235,8 +263,9 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	lut := linearLUT(nLevels, opt.Linear)
 
 	// 1. Find the band roughly on a reduced frame.
-	f := math.Min(1, searchScale/float64(max(fr.w, fr.h)))
-	sw, sh := max(8, int(math.Round(float64(fr.w)*f))), max(8, int(math.Round(float64(fr.h)*f)))
+	// A whole reduction factor keeps OpenCV's area averaging on its fast path.
+	k := max(1, int(math.Ceil(float64(max(fr.w, fr.h))/searchScale)))
+	sw, sh := max(8, fr.w/k), max(8, fr.h/k)
 	small := gocv.NewMat()
 	defer small.Close()
 	gocv.Resize(m, &small, image.Pt(sw, sh), 0, 0, gocv.InterpolationArea)
@@ -260,28 +289,41 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 		return Strip{}, fmt.Errorf("%w: the bright pixels form no band (cut off by the frame edge?)", ErrNoBand)
 	}
 
+	located := time.Since(t0)
+	t1 := time.Now()
 	// 2. On the full frame, in a region around the band: measure the band's
 	// centre and height, straighten it with OpenCV, measure the centre
 	// line of the straightened band at its strongest lines, and correct the
 	// direction and offset by it until the line lies flat (at most four
 	// rounds; the last slope is the residual tilt).
 	side := math.Max(12, 0.6*hh)
-	var s Strip
 	var roi image.Rectangle
 	var rp plane
-	var rgb []float32
+	var rgb, lumaPlane []float32
 	var clip []bool
 	luma := newLumaLUT(nLevels, opt.Linear)
-	for round := 0; round < 4; round++ {
-		r, err := bandROI(fr.w, fr.h, ang, vc, hh+side+4)
+	var rbg float64
+	// prepare makes sure the linearised region holds the band as now
+	// placed: it is linearised once, with room for the corrections (about
+	// a quarter degree across the frame), and again only if the band left it.
+	prepare := func() error {
+		need, err := bandROI(fr.w, fr.h, ang, vc, hh+side+4)
 		if err != nil {
+			return err
+		}
+		if !need.In(roi) {
+			if roi, err = bandROI(fr.w, fr.h, ang, vc, hh+side+4+0.004*float64(fr.w+fr.h)); err != nil {
+				return err
+			}
+			rp, rgb, clip, lumaPlane = linearRegion(fr, roi, lut, clipAt, luma)
+			rbg, _, _ = levels(rp)
+		}
+		return nil
+	}
+	for round := 0; round < 4; round++ {
+		if err := prepare(); err != nil {
 			return Strip{}, err
 		}
-		if r != roi {
-			roi = r
-			rp, rgb, clip = linearRegion(fr, roi, lut, clipAt, luma)
-		}
-		rbg, _, _ := levels(rp)
 		if vc2, hh2, ok := crossBandRegion(rp, roi, ang, rbg, vc, hh+side); ok {
 			vc, hh = vc2, hh2
 		}
@@ -289,24 +331,33 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 		if !ok || u1-u0 < 16 {
 			return Strip{}, fmt.Errorf("%w: the band's centre line leaves the frame", ErrNoBand)
 		}
-		st, fit, err := straighten(rgb, clip, roi, ang, vc, hh, side, u0, u1, opt.KeepImage, opt.Profile)
-		if err != nil {
-			return Strip{}, err
-		}
-		s = st
-		if !fit.ok {
+		fit := centreOnly(lumaPlane, roi, ang, vc, hh, side, u0, u1)
+		// Flat enough when the centre line rises less than 0.1 px from one
+		// end of the band to the other.
+		if !fit.ok || math.Abs(fit.slope)*(u1-u0) < 0.1 {
 			break
 		}
 		b := fit.slope
-		s.ResidualTiltDeg = math.Atan(b) * 180 / math.Pi
-		if math.Abs(b) < 2e-5 {
-			break
-		}
 		v0 := vc - float64(int(math.Ceil(hh))+int(math.Ceil(side)))
 		ang += math.Atan(b) * 180 / math.Pi
 		vc = (v0 + fit.offset - b*u0) / math.Sqrt(1+b*b)
 	}
+	if err := prepare(); err != nil {
+		return Strip{}, err
+	}
+	u0, u1, ok := chord(fr.w, fr.h, ang, vc)
+	if !ok || u1-u0 < 16 {
+		return Strip{}, fmt.Errorf("%w: the band's centre line leaves the frame", ErrNoBand)
+	}
+	s, fit, err := straighten(rgb, clip, roi, ang, vc, hh, side, u0, u1, opt.KeepImage, opt.Profile)
+	if err != nil {
+		return Strip{}, err
+	}
+	if fit.ok {
+		s.ResidualTiltDeg = math.Atan(fit.slope) * 180 / math.Pi
+	}
 	ang = s.AngleDeg
+	s.Timing.Locate, s.Timing.Straighten = located, time.Since(t1)
 	s.FrameW, s.FrameH = fr.w, fr.h
 	s.Background, s.Noise = bg/3, noise/3
 	cx, cy := float64(fr.w-1)/2, float64(fr.h-1)/2
@@ -365,9 +416,11 @@ func crossBandRegion(p plane, roi image.Rectangle, ang, bg, vc, reach float64) (
 	sn, cs := math.Sincos(ang * math.Pi / 180)
 	v0 := vc - reach
 	prof := make([]float64, int(2*reach)+2)
-	// Linear splatting into 1 px bins keeps the sub-pixel centre.
+	// Linear splatting into 1 px bins keeps the sub-pixel centre; every
+	// column is not needed for the band's cross-profile.
+	step := max(1, p.w/1024)
 	for y := 0; y < p.h; y++ {
-		for x := 0; x < p.w; x++ {
+		for x := 0; x < p.w; x += step {
 			fx, fy := float64(x+roi.Min.X), float64(y+roi.Min.Y)
 			t := -fx*sn + fy*cs - v0
 			if t < 0 || t >= float64(len(prof)-1) {
@@ -418,9 +471,10 @@ func bandROI(w, h int, ang, vc, reach float64) (image.Rectangle, error) {
 // linearRegion copies the region of the frame into linear float32 R, G, B
 // and linearised luma (interleaved, four values a pixel), the channel sum
 // and a per-pixel clip mask.
-func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma lumaLUT) (plane, []float32, []bool) {
+func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma lumaLUT) (plane, []float32, []bool, []float32) {
 	w, h := roi.Dx(), roi.Dy()
 	sum := plane{w: w, h: h, pix: make([]float32, w*h)}
+	lp := make([]float32, w*h)
 	rgb := make([]float32, 4*w*h)
 	clip := make([]bool, w*h)
 	for y := 0; y < h; y++ {
@@ -434,12 +488,17 @@ func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma
 				b, g, r = int(fr.words16[src]), int(fr.words16[src+1]), int(fr.words16[src+2])
 			}
 			rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2] = lut[r], lut[g], lut[b]
-			rgb[4*dst+3] = luma.at(0.299*float64(r) + 0.587*float64(g) + 0.114*float64(b))
+			if luma.exact != nil {
+				rgb[4*dst+3] = luma.exact[299*r+587*g+114*b]
+			} else {
+				rgb[4*dst+3] = luma.at(0.299*float64(r) + 0.587*float64(g) + 0.114*float64(b))
+			}
+			lp[dst] = rgb[4*dst+3]
 			sum.pix[dst] = lut[r] + lut[g] + lut[b]
 			clip[dst] = r >= clipAt || g >= clipAt || b >= clipAt
 		}
 	}
-	return sum, rgb, clip
+	return sum, rgb, clip, lp
 }
 
 // straighten warps the band into a strip whose columns run along the
@@ -448,94 +507,93 @@ func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma
 // band rows into profiles.
 func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, keep bool, profile string) (Strip, centreFit, error) {
 	w, h := roi.Dx(), roi.Dy()
-	src, err := gocv.NewMatFromBytes(h, w, gocv.MatTypeCV32FC4, unsafe.Slice((*byte)(unsafe.Pointer(&rgb[0])), 4*len(rgb)))
-	if err != nil {
-		return Strip{}, centreFit{}, fmt.Errorf("straighten: %w", err)
-	}
-	defer src.Close()
 	L := int(math.Floor(u1-u0)) + 1
 	half := int(math.Ceil(hh))
 	sd := int(math.Ceil(side))
 	H := 2*(half+sd) + 1
 	v0 := vc - float64(half+sd)
 	sn, cs := math.Sincos(ang * math.Pi / 180)
-	// Strip pixel (i, j) ↦ frame (x, y) = (u0+i)·e_u + (v0+j)·e_v, minus
-	// the region's offset.
-	M := gocv.NewMatWithSize(2, 3, gocv.MatTypeCV64F)
-	defer M.Close()
-	M.SetDoubleAt(0, 0, cs)
-	M.SetDoubleAt(0, 1, -sn)
-	M.SetDoubleAt(0, 2, u0*cs-v0*sn-float64(roi.Min.X))
-	M.SetDoubleAt(1, 0, sn)
-	M.SetDoubleAt(1, 1, cs)
-	M.SetDoubleAt(1, 2, u0*sn+v0*cs-float64(roi.Min.Y))
-	dst := gocv.NewMat()
-	defer dst.Close()
-	gocv.WarpAffineWithParams(src, &dst, M, image.Pt(L, H), gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderConstant, color.RGBA{})
-	if dst.Empty() || dst.Cols() != L || dst.Rows() != H {
-		return Strip{}, centreFit{}, errors.New("straighten: OpenCV returned no strip")
+	dst, err := warp(rgb, 4, roi, ang, u0, v0, L, H)
+	if err != nil {
+		return Strip{}, centreFit{}, err
 	}
+	defer dst.Close()
 	px, err := dst.DataPtrFloat32()
 	if err != nil {
 		return Strip{}, centreFit{}, fmt.Errorf("straighten: %w", err)
-	}
-	inside := func(i, j int) (int, int, bool) {
-		x := (u0+float64(i))*cs - (v0+float64(j))*sn - float64(roi.Min.X)
-		y := (u0+float64(i))*sn + (v0+float64(j))*cs - float64(roi.Min.Y)
-		if x < 0 || y < 0 || x > float64(w-1) || y > float64(h-1) {
-			return 0, 0, false
-		}
-		return int(x + 0.5), int(y + 0.5), true
 	}
 	s := Strip{AngleDeg: ang, BandHalfHeight: hh}
 	s.Origin = [2]float64{u0*cs - vc*sn, u0*sn + vc*cs}
 	for k, c := range [][2]float64{{u0, vc - hh}, {u1, vc - hh}, {u1, vc + hh}, {u0, vc + hh}} {
 		s.Band[k] = [2]float64{c[0]*cs - c[1]*sn, c[0]*sn + c[1]*cs}
 	}
+	// Row by row (the strip's memory order): band rows add into per-column
+	// sums; at most 12 evenly spaced rows on each side feed the per-column
+	// background median. A strip pixel whose source lies outside the frame
+	// counts for nothing.
 	var acc [4][]float64 // R, G, B, luma
 	for c := range acc {
 		acc[c] = make([]float64, L)
 	}
+	nIn := make([]int, L)
 	s.Clipped = make([]bool, L)
 	var nBand, nClip int
-	bgRows := make([][]float64, 4)
-	for i := 0; i < L; i++ {
-		for c := range bgRows {
-			bgRows[c] = bgRows[c][:0]
+	every := max(1, sd/12)
+	nbg := 2 * ((sd + every - 1) / every)
+	bg := make([]float32, 4*L*nbg) // column-major: bg[(c*L+i)*nbg + k]
+	nb := make([]int, L)
+	for j := 0; j < H; j++ {
+		inBand := j >= sd && j <= H-1-sd
+		if !inBand && (min(j, H-1-j)%every != 0) {
+			continue
 		}
-		var sums [4]float64
-		nIn := 0
-		for j := 0; j < H; j++ {
-			inBand := j >= sd && j <= H-1-sd
-			x, y, ok := inside(i, j)
-			if !ok {
-				continue
+		fy := v0 + float64(j)
+		// Source x(i) = ax + i·cs, y(i) = ay + i·sn: the columns whose
+		// source lies inside the region form one range.
+		ax := u0*cs - fy*sn - float64(roi.Min.X)
+		ay := u0*sn + fy*cs - float64(roi.Min.Y)
+		ilo, ihi := colRange(ax, cs, float64(w-1), L)
+		jlo, jhi := colRange(ay, sn, float64(h-1), L)
+		ilo, ihi = max(ilo, jlo), min(ihi, jhi)
+		for i := ilo; i <= ihi; i++ {
+			x := ax + float64(i)*cs
+			y := ay + float64(i)*sn
+			if x < 0 || y < 0 || x > float64(w-1) || y > float64(h-1) {
+				continue // rounding at the range's ends
 			}
 			base := 4 * (j*L + i)
 			if inBand {
-				nIn++
+				nIn[i]++
 				nBand++
-				if clip[y*w+x] {
+				if clip[int(y+0.5)*w+int(x+0.5)] {
 					s.Clipped[i] = true
 					nClip++
 				}
 				for c := 0; c < 4; c++ {
-					sums[c] += float64(px[base+c])
+					acc[c][i] += float64(px[base+c])
 				}
-			} else {
+			} else if nb[i] < nbg {
 				for c := 0; c < 4; c++ {
-					bgRows[c] = append(bgRows[c], float64(px[base+c]))
+					bg[(c*L+i)*nbg+nb[i]] = px[base+c]
 				}
+				nb[i]++
 			}
 		}
-		rows := float64(2*half + 1)
+	}
+	rows := float64(2*half + 1)
+	tmp := make([]float64, nbg)
+	for i := 0; i < L; i++ {
 		for c := 0; c < 4; c++ {
 			bgv := 0.0
-			if len(bgRows[c]) > 0 {
-				bgv = medianOf(bgRows[c])
+			if nb[i] > 0 {
+				v := tmp[:nb[i]]
+				for k := range v {
+					v[k] = float64(bg[(c*L+i)*nbg+k])
+				}
+				bgv = medianOf(v)
 			}
-			if nIn > 0 {
-				acc[c][i] = (sums[c] - float64(nIn)*bgv) * rows / float64(nIn)
+			if nIn[i] > 0 {
+				acc[c][i] = (acc[c][i] - float64(nIn[i])*bgv) * rows / float64(nIn[i])
 			}
 		}
 	}
@@ -555,7 +613,24 @@ func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, si
 	if keep {
 		s.Image = stripImage(px, L, H)
 	}
-	return s, fitCentreLine(px, L, H, s.Luma), nil
+	return s, fitCentreLine(px, 4, 3, L, H, s.Luma), nil
+}
+
+// colRange returns the columns i in [0, L) with 0 ≤ a + i·d ≤ lim.
+func colRange(a, d, lim float64, L int) (int, int) {
+	if math.Abs(d) < 1e-12 {
+		if a < 0 || a > lim {
+			return 0, -1
+		}
+		return 0, L - 1
+	}
+	t0, t1 := -a/d, (lim-a)/d
+	if t0 > t1 {
+		t0, t1 = t1, t0
+	}
+	lo := max(0, int(math.Ceil(t0-1e-9)))
+	hi := min(L-1, int(math.Floor(t1+1e-9)))
+	return lo, hi
 }
 
 func medianOf(v []float64) float64 {
@@ -600,21 +675,28 @@ func stripImage(px []float32, L, H int) *image.RGBA {
 // the same transfer curve, so the linearised luma is proportional to its
 // intensity.
 type lumaLUT struct {
-	step float64
-	tab  []float32
+	step  float64
+	tab   []float32
+	exact []float32 // 8-bit: indexed by 299R′+587G′+114B′ (1000 × luma)
 }
 
 func newLumaLUT(levels int, linear bool) lumaLUT {
 	n := 4097
 	t := lumaLUT{step: float64(levels-1) / float64(n-1), tab: make([]float32, n)}
+	if levels == 256 {
+		t.exact = make([]float32, 1000*255+1)
+		for i := range t.exact {
+			v := float64(i) / (1000 * 255)
+			if !linear {
+				v = srgbToLinear(v)
+			}
+			t.exact[i] = float32(v)
+		}
+	}
 	for i := range t.tab {
 		v := float64(i) / float64(n-1)
 		if !linear {
-			if v <= 0.04045 {
-				v /= 12.92
-			} else {
-				v = math.Pow((v+0.055)/1.055, 2.4)
-			}
+			v = srgbToLinear(v)
 		}
 		t.tab[i] = float32(v)
 	}
@@ -631,6 +713,66 @@ func (t lumaLUT) at(code float64) float32 {
 	return t.tab[i]*(1-f) + t.tab[i+1]*f
 }
 
+// warp returns the strip, L×H pixels of ch float32 channels, whose pixel
+// (i, j) samples the region's data at frame point (u0+i)·e_u + (v0+j)·e_v
+// (OpenCV warpAffine, bilinear, zero outside). The caller closes it.
+func warp(data []float32, ch int, roi image.Rectangle, ang, u0, v0 float64, L, H int) (gocv.Mat, error) {
+	w, h := roi.Dx(), roi.Dy()
+	types := map[int]gocv.MatType{1: gocv.MatTypeCV32FC1, 4: gocv.MatTypeCV32FC4}
+	if len(data) != ch*w*h || types[ch] == 0 || L < 1 || H < 1 {
+		return gocv.Mat{}, errors.New("straighten: region and strip sizes disagree")
+	}
+	src, err := gocv.NewMatFromBytes(h, w, types[ch], unsafe.Slice((*byte)(unsafe.Pointer(&data[0])), 4*len(data)))
+	if err != nil {
+		return gocv.Mat{}, fmt.Errorf("straighten: %w", err)
+	}
+	defer src.Close()
+	sn, cs := math.Sincos(ang * math.Pi / 180)
+	M := gocv.NewMatWithSize(2, 3, gocv.MatTypeCV64F)
+	defer M.Close()
+	M.SetDoubleAt(0, 0, cs)
+	M.SetDoubleAt(0, 1, -sn)
+	M.SetDoubleAt(0, 2, u0*cs-v0*sn-float64(roi.Min.X))
+	M.SetDoubleAt(1, 0, sn)
+	M.SetDoubleAt(1, 1, cs)
+	M.SetDoubleAt(1, 2, u0*sn+v0*cs-float64(roi.Min.Y))
+	dst := gocv.NewMat()
+	gocv.WarpAffineWithParams(src, &dst, M, image.Pt(L, H), gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderConstant, color.RGBA{})
+	if dst.Empty() || dst.Cols() != L || dst.Rows() != H {
+		dst.Close()
+		return gocv.Mat{}, errors.New("straighten: OpenCV returned no strip")
+	}
+	return dst, nil
+}
+
+// centreOnly straightens only the luma of the band and measures its
+// centre line: the cheap pass that settles the geometry before the full
+// straightening.
+func centreOnly(luma []float32, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64) centreFit {
+	L := int(math.Floor(u1-u0)) + 1
+	half, sd := int(math.Ceil(hh)), int(math.Ceil(side))
+	H := 2*(half+sd) + 1
+	dst, err := warp(luma, 1, roi, ang, u0, vc-float64(half+sd), L, H)
+	if err != nil {
+		return centreFit{}
+	}
+	defer dst.Close()
+	px, err := dst.DataPtrFloat32()
+	if err != nil {
+		return centreFit{}
+	}
+	prof := make([]float64, L)
+	for j := sd; j <= H-1-sd; j++ {
+		for i := 0; i < L; i++ {
+			prof[i] += float64(px[j*L+i])
+		}
+	}
+	for i := 0; i < L; i++ {
+		prof[i] -= float64(H-2*sd) * float64(px[i]+px[(H-1)*L+i]) / 2
+	}
+	return fitCentreLine(px, 1, 0, L, H, prof)
+}
+
 // centreFit is a straight line j = offset + slope·i through the vertical
 // centres (strip rows) of the strongest lines in a strip.
 type centreFit struct {
@@ -643,7 +785,7 @@ type centreFit struct {
 // (midpoint of its half-maximum edges, on the luma channel) and fits a
 // straight line through them weighted by line strength. It needs two lines
 // at least a fifth of the strip apart.
-func fitCentreLine(px []float32, L, H int, prof []float64) centreFit {
+func fitCentreLine(px []float32, stride, off, L, H int, prof []float64) centreFit {
 	var maxima []int
 	for i := 2; i < L-2; i++ {
 		if prof[i] > prof[i-1] && prof[i] >= prof[i+1] && prof[i] > 0 {
@@ -673,7 +815,7 @@ func fitCentreLine(px []float32, L, H int, prof []float64) centreFit {
 		for j := 0; j < H; j++ {
 			vp[j] = 0
 			for i := m - 2; i <= m+2; i++ {
-				vp[j] += float64(px[4*(j*L+i)+3])
+				vp[j] += float64(px[stride*(j*L+i)+off])
 			}
 		}
 		// Subtract the level beside the band (first and last rows).

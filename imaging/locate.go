@@ -17,16 +17,20 @@ func (p plane) at(x, y int) float32 { return p.pix[y*p.w+x] }
 type point struct{ x, y, w float64 }
 
 // levels returns the median and the robust σ (1.4826·MAD) of p, from at
-// most about 200 000 evenly spread samples, and the maximum.
+// most about 20 000 evenly spread samples, and the maximum.
 func levels(p plane) (med, sigma, peak float64) {
-	step := max(1, len(p.pix)/200000)
+	step := max(1, len(p.pix)/20000)
 	s := make([]float64, 0, len(p.pix)/step+1)
 	for i := 0; i < len(p.pix); i += step {
 		s = append(s, float64(p.pix[i]))
 	}
+	var top float32
 	for _, v := range p.pix {
-		peak = math.Max(peak, float64(v))
+		if v > top {
+			top = v
+		}
 	}
+	peak = float64(top)
 	sort.Float64s(s)
 	med = s[len(s)/2]
 	for i := range s {

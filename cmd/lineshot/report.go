@@ -13,6 +13,7 @@ import (
 	"os"
 	"path/filepath"
 	"sort"
+	"strconv"
 
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
@@ -345,7 +346,7 @@ var reportTmpl = template.Must(template.New("report").Funcs(template.FuncMap{
 	"f2": func(v float64) string { return fmt.Sprintf("%.2f", v) },
 	"f3": func(v float64) string { return fmt.Sprintf("%.3f", v) },
 	"f4": func(v float64) string { return fmt.Sprintf("%.4f", v) },
-	"g":  func(v float64) string { return fmt.Sprintf("%.10g", v) },
+	"g":  func(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }, // exact: tests compare it with results.json
 }).Parse(`<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8">
 <title>lineshot report: {{.Doc.Root}}</title>

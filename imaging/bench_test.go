@@ -1,0 +1,75 @@
+package imaging
+
+import (
+	"fmt"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"lineshot/imaging/synth"
+)
+
+// benchPhoto renders (once per machine, into the temp folder) a JPEG of the
+// mercury lamp at the given size, quality 90.
+func benchPhoto(b *testing.B, w, h int) string {
+	p := filepath.Join(os.TempDir(), fmt.Sprintf("lineshot-bench-%dx%d.jpg", w, h))
+	if _, err := os.Stat(p); err == nil {
+		return p
+	}
+	b.StopTimer()
+	defer b.StartTimer()
+	src, _ := writeJPEG(b, synth.Params{Width: w, Height: h, TiltDeg: 3, Seed: 5, Emissions: mercury}, 90)
+	raw, err := os.ReadFile(src)
+	if err != nil {
+		b.Fatal(err)
+	}
+	if err := os.WriteFile(p, raw, 0o644); err != nil {
+		b.Fatal(err)
+	}
+	return p
+}
+
+var benchSizes = []struct {
+	name string
+	w, h int
+}{{"phone12MP", 4032, 3024}, {"webcam1080p", 1920, 1080}}
+
+// BenchmarkDecode is the floor: OpenCV's imread alone.
+func BenchmarkDecode(b *testing.B) {
+	for _, s := range benchSizes {
+		b.Run(s.name, func(b *testing.B) {
+			p := benchPhoto(b, s.w, s.h)
+			b.ResetTimer()
+			for i := 0; i < b.N; i++ {
+				if _, _, err := Decode(p); err != nil {
+					b.Fatal(err)
+				}
+			}
+		})
+	}
+}
+
+// BenchmarkExtract is decode + locate + straighten + profile, with the
+// stages reported as metrics (ms).
+func BenchmarkExtract(b *testing.B) {
+	for _, s := range benchSizes {
+		b.Run(s.name, func(b *testing.B) {
+			p := benchPhoto(b, s.w, s.h)
+			b.ResetTimer()
+			var t Timing
+			for i := 0; i < b.N; i++ {
+				st, err := Extract(p, Options{})
+				if err != nil {
+					b.Fatal(err)
+				}
+				t.Decode += st.Timing.Decode
+				t.Locate += st.Timing.Locate
+				t.Straighten += st.Timing.Straighten
+			}
+			n := float64(b.N) * 1e6
+			b.ReportMetric(float64(t.Decode)/n, "decode-ms")
+			b.ReportMetric(float64(t.Locate)/n, "locate-ms")
+			b.ReportMetric(float64(t.Straighten)/n, "straighten-ms")
+		})
+	}
+}
