@@ -652,14 +652,26 @@ func stripImage(px []float32, L, H int) *image.RGBA {
 	sort.Float64s(vals)
 	top := math.Max(vals[int(0.999*float64(len(vals)-1))], 1e-6)
 	img := image.NewRGBA(image.Rect(0, 0, L, H))
-	enc := func(v float64) uint8 {
-		v = math.Max(0, math.Min(1, v/top))
+	// sRGB encoding through a table over [0, top].
+	var tab [4096]uint8
+	for k := range tab {
+		v := float64(k) / float64(len(tab)-1)
 		if v <= 0.0031308 {
 			v *= 12.92
 		} else {
 			v = 1.055*math.Pow(v, 1/2.4) - 0.055
 		}
-		return uint8(v*255 + 0.5)
+		tab[k] = uint8(v*255 + 0.5)
+	}
+	scale := float64(len(tab)-1) / top
+	enc := func(v float64) uint8 {
+		k := int(v * scale)
+		if k < 0 {
+			k = 0
+		} else if k >= len(tab) {
+			k = len(tab) - 1
+		}
+		return tab[k]
 	}
 	for j := 0; j < H; j++ {
 		for i := 0; i < L; i++ {

@@ -503,7 +503,7 @@ type batchRun struct {
 // optionsKey changes whenever an option that changes a photo's result
 // changes, so that cached results are not reused across them.
 func (b *batchRun) optionsKey() string {
-	return fmt.Sprintf("v1 snr=%g", b.cfg.minSNR)
+	return fmt.Sprintf("v2 snr=%g", b.cfg.minSNR)
 }
 
 func cacheName(path string) string {
@@ -545,8 +545,8 @@ func (b *batchRun) process(path string, bn bench) (photoRecord, bool) {
 		}
 		rec.IDs = calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{})
 		if m.strip.Image != nil {
-			name := filepath.Join("images", key+".png")
-			if err := writeStripPNG(filepath.Join(b.out, name), m); err == nil {
+			name := filepath.Join("images", key+".jpg")
+			if err := writeStripImage(filepath.Join(b.out, name), m); err == nil {
 				rec.Image = name
 			}
 		}

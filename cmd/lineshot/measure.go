@@ -481,7 +481,16 @@ func identify(m measured, path string, cfg measureConfig, lamps []calibrate.Lamp
 // measureSelf measures a photo that calibrates itself: its lines are
 // identified with no hints and the dispersion is fitted to them.
 func measureSelf(path string, cfg measureConfig) imageResult {
-	s, r := identifySelf(path, cfg, cfg.lamps())
+	m, err := extractAndFind(path, cfg)
+	if err != nil {
+		return imageResult{File: path, Error: err.Error()}
+	}
+	return measureSelfFrom(m, path, cfg)
+}
+
+// measureSelfFrom is measureSelf on a photo already measured.
+func measureSelfFrom(m measured, path string, cfg measureConfig) imageResult {
+	s, r := identify(m, path, cfg, cfg.lamps())
 	if r.Error != "" {
 		return r
 	}

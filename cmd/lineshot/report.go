@@ -7,13 +7,16 @@ import (
 	"html/template"
 	"image"
 	"image/color"
-	"image/png"
+	"image/jpeg"
 	"io"
 	"math"
 	"os"
 	"path/filepath"
+	"runtime"
 	"sort"
 	"strconv"
+
+	"golang.org/x/sync/errgroup"
 
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
@@ -32,10 +35,10 @@ var (
 	markerColor = color.RGBA{0xf5, 0x9e, 0x0b, 0xff}
 )
 
-// writeStripPNG saves the straightened band with a tick above and below
+// writeStripImage saves (as JPEG, quality 85) the straightened band with a tick above and below
 // every measured line (amber when identified, grey when not), scaled to at
 // most 1600 px wide.
-func writeStripPNG(path string, m measured) error {
+func writeStripImage(path string, m measured) error {
 	src := m.strip.Image
 	if src == nil {
 		return nil
@@ -62,7 +65,7 @@ func writeStripPNG(path string, m measured) error {
 	if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
 		return err
 	}
-	return writeFileAtomic(path, func(wr io.Writer) error { return png.Encode(wr, dst) })
+	return writeFileAtomic(path, func(wr io.Writer) error { return jpeg.Encode(wr, dst, &jpeg.Options{Quality: 85}) })
 }
 
 // pngData renders a plot to a data: URI.
@@ -310,21 +313,37 @@ func writeReport(w io.Writer, out string, doc batchDoc) error {
 		}
 		for _, set := range [][]imageResult{b.CalPhotos, b.Photos} {
 			for _, r := range set {
-				ph := reportPhoto{R: r}
-				if img, ok := b.Images[r.File]; ok {
-					if raw, err := os.ReadFile(filepath.Join(out, img)); err == nil {
-						ph.Band = template.URL("data:image/png;base64," + base64.StdEncoding.EncodeToString(raw))
-					}
-				}
-				if prof, ok := b.Profiles[r.File]; ok && len(prof) > 0 {
-					if ph.Profile, err = profilePlot(r, prof); err != nil {
-						return err
-					}
-				}
-				rb.Photos = append(rb.Photos, ph)
+				rb.Photos = append(rb.Photos, reportPhoto{R: r})
 			}
 		}
 		data.Benches = append(data.Benches, rb)
+	}
+	// The plots are the slow part: render them on every core.
+	var g errgroup.Group
+	g.SetLimit(runtime.GOMAXPROCS(0))
+	for bi := range data.Benches {
+		b := data.Benches[bi].B
+		for pi := range data.Benches[bi].Photos {
+			ph := &data.Benches[bi].Photos[pi]
+			g.Go(func() error {
+				if img, ok := b.Images[ph.R.File]; ok {
+					if raw, err := os.ReadFile(filepath.Join(out, img)); err == nil {
+						ph.Band = template.URL("data:image/jpeg;base64," + base64.StdEncoding.EncodeToString(raw))
+					}
+				}
+				if prof, ok := b.Profiles[ph.R.File]; ok && len(prof) > 0 {
+					u, err := profilePlot(ph.R, prof)
+					if err != nil {
+						return err
+					}
+					ph.Profile = u
+				}
+				return nil
+			})
+		}
+	}
+	if err := g.Wait(); err != nil {
+		return err
 	}
 	sort.SliceStable(data.Benches, func(i, j int) bool { return data.Benches[i].B.Name < data.Benches[j].B.Name })
 	return reportTmpl.Execute(w, data)

@@ -1,0 +1,105 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"fmt"
+	"os"
+	"path/filepath"
+	"testing"
+	"time"
+
+	"lineshot/imaging"
+)
+
+// benchFile renders (once per machine, in the temp folder) a photo of lamp
+// through a 600 lines/mm grating at w×h, JPEG quality 90.
+func benchFile(b *testing.B, lamp string, w, h int, seed uint64) string {
+	p := filepath.Join(os.TempDir(), fmt.Sprintf("lineshot-bench-%s-%dx%d-%d.jpg", lamp, w, h, seed))
+	if _, err := os.Stat(p); err == nil {
+		return p
+	}
+	b.StopTimer()
+	defer b.StartTimer()
+	s := setup{name: "bench", lpm: 600, w: w, h: h, psf: 1.3, tilt: 2, jpegQ: 90}
+	src, _ := s.render(b, b.TempDir(), lamp, seed)
+	raw, _ := os.ReadFile(src)
+	if err := os.WriteFile(p, raw, 0o644); err != nil {
+		b.Fatal(err)
+	}
+	return p
+}
+
+// BenchmarkMeasure is the whole measurement of one photo (decode, locate,
+// straighten, profile, peaks, identification, dispersion fit), with the
+// decode alone timed in the same run: the ratio is measure/decode.
+func BenchmarkMeasure(b *testing.B) {
+	for _, s := range []struct {
+		name string
+		w, h int
+	}{{"phone12MP", 4032, 3024}, {"webcam1080p", 1920, 1080}} {
+		b.Run(s.name, func(b *testing.B) {
+			p := benchFile(b, "mercury", s.w, s.h, 1)
+			var dec, all, pk, id time.Duration
+			b.ResetTimer()
+			for i := 0; i < b.N; i++ {
+				t0 := time.Now()
+				if _, _, err := imaging.Decode(p); err != nil {
+					b.Fatal(err)
+				}
+				t1 := time.Now()
+				m, err := extractAndFind(p, defaultCfg)
+				if err != nil {
+					b.Fatal(err)
+				}
+				t2 := time.Now()
+				r := measureSelfFrom(m, p, defaultCfg)
+				if r.Error != "" {
+					b.Fatal(r.Error)
+				}
+				t3 := time.Now()
+				dec += t1.Sub(t0)
+				all += t3.Sub(t1)
+				pk += t2.Sub(t1) - m.strip.Timing.Decode - m.strip.Timing.Locate - m.strip.Timing.Straighten
+				id += t3.Sub(t2)
+			}
+			n := float64(b.N)
+			b.ReportMetric(float64(dec.Milliseconds())/n, "decode-ms")
+			b.ReportMetric(float64(pk.Microseconds())/n/1000, "peaks-ms")
+			b.ReportMetric(float64(id.Microseconds())/n/1000, "identify+fit-ms")
+			b.ReportMetric(float64(all)/float64(dec), "measure/decode")
+		})
+	}
+}
+
+// BenchmarkBatch measures 24 photos (12 benches) with 1 and 2 workers;
+// photos/s is the throughput.
+func BenchmarkBatch(b *testing.B) {
+	root := filepath.Join(os.TempDir(), "lineshot-bench-lab")
+	if _, err := os.Stat(filepath.Join(root, "b11", "h.jpg")); err != nil {
+		for k := 0; k < 12; k++ {
+			d := filepath.Join(root, fmt.Sprintf("b%02d", k))
+			os.MkdirAll(d, 0o755)
+			for _, l := range []string{"mercury", "hydrogen"} {
+				raw, _ := os.ReadFile(benchFile(b, l, 1920, 1080, uint64(10+k)))
+				name := map[string]string{"mercury": "hg.jpg", "hydrogen": "h.jpg"}[l]
+				os.WriteFile(filepath.Join(d, name), raw, 0o644)
+			}
+		}
+	}
+	for _, jobs := range []int{1, 2} {
+		b.Run(fmt.Sprintf("jobs=%d", jobs), func(b *testing.B) {
+			var total time.Duration
+			for i := 0; i < b.N; i++ {
+				out := b.TempDir()
+				var so, se bytes.Buffer
+				t0 := time.Now()
+				if err := batchMain(context.Background(), []string{"-j", fmt.Sprint(jobs), "--quiet", "--out", out, root}, &so, &se, nil); err != nil {
+					b.Fatalf("%v: %s", err, se.String())
+				}
+				total += time.Since(t0)
+			}
+			b.ReportMetric(24*float64(b.N)/total.Seconds(), "photos/s")
+		})
+	}
+}

@@ -1,0 +1,39 @@
+#!/usr/bin/env bash
+# Speed and memory, measured in one run on this machine and printed as
+# ratios (absolute times on shared machines are noise):
+#   - whole measurement / decode alone, 12 MP phone JPEG and 1080p JPEG;
+#   - batch throughput with 2 workers / with 1 (24 photos of 12 benches);
+#   - peak resident memory against one decoded frame per worker.
+# The photos are rendered by the simulator into the temp folder once.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+source scripts/setup.sh
+mkdir -p bin
+go build -o bin/lineshot ./cmd/lineshot
+go build -o bin/peakrss ./scripts/peakrss
+tmp=$(mktemp -d)
+trap 'rm -rf "$tmp"' EXIT
+
+echo "== stages (imaging): decode, locate, straighten"
+go test -run '^$' -bench 'BenchmarkDecode|BenchmarkExtract' -benchtime 5x ./imaging | grep Benchmark | tee "$tmp/img.txt"
+echo "== whole measurement against decode (same run)"
+go test -run '^$' -bench 'BenchmarkMeasure' -benchtime 5x ./cmd/lineshot | grep Benchmark | tee "$tmp/measure.txt"
+echo "== batch, 1 and 2 workers"
+go test -run '^$' -bench 'BenchmarkBatch' -benchtime 2x ./cmd/lineshot | grep Benchmark | tee "$tmp/batch.txt"
+
+echo
+echo "== ratios"
+awk '/BenchmarkMeasure/ { for (i = 1; i <= NF; i++) if ($(i+1) == "measure/decode") printf "measure/decode %-22s %.2f (target ≤ 1.5 for 12 MP)\n", $1, $i }' "$tmp/measure.txt"
+awk '/BenchmarkBatch\/jobs=1/ { for (i = 1; i <= NF; i++) if ($(i+1) == "photos/s") one = $i }
+     /BenchmarkBatch\/jobs=2/ { for (i = 1; i <= NF; i++) if ($(i+1) == "photos/s") two = $i }
+     END { printf "batch throughput 2 workers / 1 worker: %.2f (target ≥ 1.7)\n", two / one }' "$tmp/batch.txt"
+
+big=$(ls "${TMPDIR:-/tmp}"/lineshot-bench-mercury-4032x3024-1.jpg)
+frame=$((4032 * 3024 * 3 / 1024)) # KiB of one decoded 8-bit BGR frame
+one=$(bin/peakrss bin/lineshot measure "$big" 2>/dev/null | tail -1)
+mkdir -p "$tmp/lab/b1" "$tmp/lab/b2"
+for b in b1 b2; do for k in 1 2; do cp "$big" "$tmp/lab/$b/hg$k.jpg"; done; done
+two=$(bin/peakrss bin/lineshot batch -j 2 --quiet --out "$tmp/out" "$tmp/lab" 2>/dev/null | tail -1)
+awk -v one="$one" -v two="$two" -v f="$frame" 'BEGIN {
+  printf "peak RSS, measure 12 MP: %.0f MiB = %.2f frames + 60 MiB (target ≤ 2.5 frames per worker + 60 MiB)\n", one/1024, (one - 61440) / f
+  printf "peak RSS, batch -j 2 on 12 MP photos: %.0f MiB = %.2f frames per worker + 60 MiB\n", two/1024, (two - 61440) / f / 2 }'
