@@ -31,6 +31,13 @@ type Options struct {
 	Linear bool
 	// KeepImage keeps the straightened band as an 8-bit image in Strip.Image.
 	KeepImage bool
+	// ROI, when not empty, is the rectangle (original-image pixels) the band
+	// must lie in; everything outside is ignored when looking for it.
+	ROI image.Rectangle
+	// FixAngle makes AngleDeg the dispersion direction instead of the one
+	// found (degrees from +x towards +y).
+	FixAngle bool
+	AngleDeg float64
 	// Profile chooses Strip.Profile: ProfileLuma, ProfileSum, or "" for
 	// luma from JPEG files and the sum from every other format. JPEG keeps
 	// luma at full resolution and quantises it finely, while colour (hence
@@ -71,6 +78,11 @@ type Strip struct {
 	Background float64 // median frame level, linear, fraction of full scale
 	Noise      float64 // robust σ of the frame, same units
 	Saturated  float64 // fraction of band pixels holding a saturated value
+	// CurvaturePX is how far the line images bow at the band's top and
+	// bottom edge relative to its centre row, px (followed in the profile).
+	CurvaturePX float64
+	// Warnings say in plain words what makes this strip doubtful.
+	Warnings []string
 	// ResidualTiltDeg is the slope left in the band's centre line after
 	// straightening, degrees (0 when it could not be measured).
 	ResidualTiltDeg float64
@@ -274,6 +286,21 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 		return Strip{}, err
 	}
 	bg, noise, peak := levels(sp)
+	if !opt.ROI.Empty() {
+		// Only the user's rectangle may hold the band: blank the rest.
+		r := image.Rect(opt.ROI.Min.X/k, opt.ROI.Min.Y/k, (opt.ROI.Max.X+k-1)/k, (opt.ROI.Max.Y+k-1)/k)
+		if r.Intersect(image.Rect(0, 0, sw, sh)).Empty() {
+			return Strip{}, fmt.Errorf("the region %v lies outside the %dx%d frame", opt.ROI, fr.w, fr.h)
+		}
+		for y := 0; y < sh; y++ {
+			for x := 0; x < sw; x++ {
+				if !(image.Point{x, y}).In(r) {
+					sp.pix[y*sw+x] = float32(bg)
+				}
+			}
+		}
+		_, _, peak = levels(sp)
+	}
 	if peak-bg < 20*noise+0.02 {
 		return Strip{}, fmt.Errorf("%w: brightest pixel %.3f barely above the background %.3f", ErrNoBand, peak/3, bg/3)
 	}
@@ -283,6 +310,9 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 		return Strip{}, fmt.Errorf("%w: only %d bright pixels", ErrNoBand, len(pts))
 	}
 	ang := principalAngle(pts)
+	if opt.FixAngle {
+		ang = opt.AngleDeg
+	}
 	sx, sy := float64(fr.w)/float64(sw), float64(fr.h)/float64(sh)
 	vc, hh, ok := crossBand(sp, ang, bg, sx, sy)
 	if !ok {
@@ -303,6 +333,7 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	var clip []bool
 	luma := newLumaLUT(nLevels, opt.Linear)
 	var rbg float64
+	cut := false
 	// prepare makes sure the linearised region holds the band as now
 	// placed: it is linearised once, with room for the corrections (about
 	// a quarter degree across the frame), and again only if the band left it.
@@ -326,6 +357,9 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 		}
 		if vc2, hh2, ok := crossBandRegion(rp, roi, ang, rbg, vc, hh+side); ok {
 			vc, hh = vc2, hh2
+			cut = false
+		} else {
+			cut = true
 		}
 		u0, u1, ok := chord(fr.w, fr.h, ang, vc)
 		if !ok || u1-u0 < 16 {
@@ -339,7 +373,11 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 		}
 		b := fit.slope
 		v0 := vc - float64(int(math.Ceil(hh))+int(math.Ceil(side)))
-		ang += math.Atan(b) * 180 / math.Pi
+		if !opt.FixAngle {
+			ang += math.Atan(b) * 180 / math.Pi
+		} else {
+			b = 0 // the user's angle stands; only the offset moves
+		}
 		vc = (v0 + fit.offset - b*u0) / math.Sqrt(1+b*b)
 	}
 	if err := prepare(); err != nil {
@@ -363,7 +401,36 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	cx, cy := float64(fr.w-1)/2, float64(fr.h-1)/2
 	sn, cs := math.Sincos(ang * math.Pi / 180)
 	s.OpticalCenter = (cx-s.Origin[0])*cs + (cy-s.Origin[1])*sn
+	// Cut across its height: the band's half-height reaches past the frame
+	// at the middle of the strip, or its edges could not be measured.
+	mx, my := s.ToImage(float64(len(s.Profile)) / 2)
+	for _, d := range []float64{-s.BandHalfHeight, s.BandHalfHeight} {
+		x, y := mx-d*sn, my+d*cs
+		if x < 0 || y < 0 || x > float64(fr.w-1) || y > float64(fr.h-1) {
+			cut = true
+		}
+	}
+	s.Warnings = qualityWarnings(s, cut)
 	return s, nil
+}
+
+// qualityWarnings says in plain words when a strip should not be trusted
+// as it stands.
+func qualityWarnings(s Strip, cut bool) []string {
+	var out []string
+	if s.Saturated > 0.3 {
+		out = append(out, fmt.Sprintf("%.0f%% of the band is saturated: shorten the exposure", 100*s.Saturated))
+	}
+	if math.Abs(s.ResidualTiltDeg) > 0.05 {
+		out = append(out, fmt.Sprintf("the lines still lean %.3f° after straightening (curved or sheared line images?): centres may be smeared", s.ResidualTiltDeg))
+	}
+	if s.Background > 0.3 {
+		out = append(out, fmt.Sprintf("the background is at %.0f%% of full scale: darken the room or shield the camera", 100*s.Background))
+	}
+	if cut {
+		out = append(out, "the line images run into the frame edge (the band is cut off across its height): centres may be biased; frame the spectrum with margin above and below")
+	}
+	return out
 }
 
 // sumPlane returns the sum of the linearised channels of an 8- or 16-bit
@@ -538,6 +605,18 @@ func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, si
 	nIn := make([]int, L)
 	s.Clipped = make([]bool, L)
 	var nBand, nClip int
+	// Curved line images (conical diffraction, short focal lengths) are
+	// followed: band row j is sampled k(i)·(j − jc)² columns along, so each
+	// line's light adds up at its centre-row position instead of smearing.
+	curv := lineCurvature(px, L, H, sd)
+	s.CurvaturePX = 0
+	if curv != nil {
+		t := float64(half)
+		for _, k := range curv {
+			s.CurvaturePX = math.Max(s.CurvaturePX, math.Abs(k)*t*t)
+		}
+	}
+	jc := float64(H-1) / 2
 	every := max(1, sd/12)
 	nbg := 2 * ((sd + every - 1) / every)
 	bg := make([]float32, 4*L*nbg) // column-major: bg[(c*L+i)*nbg + k]
@@ -568,6 +647,19 @@ func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, si
 				if clip[int(y+0.5)*w+int(x+0.5)] {
 					s.Clipped[i] = true
 					nClip++
+				}
+				if curv != nil {
+					t := float64(j) - jc
+					xi := float64(i) + curv[i]*t*t
+					i0 := int(math.Floor(xi))
+					if i0 >= 0 && i0+1 < L {
+						f := float32(xi - float64(i0))
+						b0, b1 := 4*(j*L+i0), 4*(j*L+i0+1)
+						for c := 0; c < 4; c++ {
+							acc[c][i] += float64(px[b0+c]*(1-f) + px[b1+c]*f)
+						}
+						continue
+					}
 				}
 				for c := 0; c < 4; c++ {
 					acc[c][i] += float64(px[base+c])
@@ -723,6 +815,146 @@ func (t lumaLUT) at(code float64) float32 {
 	}
 	f := float32(x - float64(i))
 	return t.tab[i]*(1-f) + t.tab[i+1]*f
+}
+
+// lineCurvature measures how the strongest lines bow across the band: for
+// each, the luma centroid in six groups of band rows, fitted with
+// a + b·t + k·t² (t the row offset from the centre row); k is then fitted
+// linearly along the strip. It returns k per column (columns per row²),
+// or nil when the bow is below 0.25 px at the band's edge (smaller bows
+// are within what the estimate itself scatters on flat lines) or cannot be
+// measured.
+func lineCurvature(px []float32, L, H, sd int) []float64 {
+	jc := float64(H-1) / 2
+	lo, hi := sd, H-1-sd
+	if hi-lo < 12 {
+		return nil
+	}
+	prof := make([]float64, L)
+	for j := lo; j <= hi; j++ {
+		for i := 0; i < L; i++ {
+			prof[i] += float64(px[4*(j*L+i)+3])
+		}
+	}
+	var maxima []int
+	for i := 5; i < L-5; i++ {
+		if prof[i] > prof[i-1] && prof[i] >= prof[i+1] {
+			maxima = append(maxima, i)
+		}
+	}
+	sort.Slice(maxima, func(a, b int) bool { return prof[maxima[a]] > prof[maxima[b]] })
+	type meas struct{ col, k, w float64 }
+	var ms []meas
+	const r, groups = 4, 6
+	for _, m := range maxima {
+		if len(ms) == 12 || prof[m] < 0.1*prof[maxima[0]] {
+			break
+		}
+		near := false
+		for _, q := range ms {
+			if math.Abs(q.col-float64(m)) < 8 {
+				near = true
+			}
+		}
+		if near {
+			continue
+		}
+		// Centroid per row group, above the window's minimum.
+		var ts, cs, ws []float64
+		per := (hi - lo + 1) / groups
+		for g := 0; g < groups; g++ {
+			var sw, sx, st float64
+			for j := lo + g*per; j < lo+(g+1)*per; j++ {
+				vmin := math.Inf(1)
+				for i := m - r; i <= m+r; i++ {
+					vmin = math.Min(vmin, float64(px[4*(j*L+i)+3]))
+				}
+				for i := m - r; i <= m+r; i++ {
+					v := float64(px[4*(j*L+i)+3]) - vmin
+					sw += v
+					sx += v * float64(i)
+					st += v * (float64(j) - jc)
+				}
+			}
+			if sw <= 0 {
+				continue
+			}
+			ts, cs, ws = append(ts, st/sw), append(cs, sx/sw), append(ws, sw)
+		}
+		if len(ts) < groups {
+			continue
+		}
+		k, ok := quadCoef(ts, cs, ws)
+		if ok {
+			ms = append(ms, meas{float64(m), k, prof[m]})
+		}
+	}
+	if len(ms) < 2 {
+		return nil
+	}
+	// k along the strip: weighted straight line (a constant for one line).
+	var sw, sx, sy, sxx, sxy float64
+	for _, q := range ms {
+		sw += q.w
+		sx += q.w * q.col
+		sy += q.w * q.k
+		sxx += q.w * q.col * q.col
+		sxy += q.w * q.col * q.k
+	}
+	k0, k1 := sy/sw, 0.0
+	if d := sw*sxx - sx*sx; len(ms) >= 2 && d > 1e-9*sw*sxx {
+		k1 = (sw*sxy - sx*sy) / d
+		k0 = (sy - k1*sx) / sw
+	}
+	out := make([]float64, L)
+	edge := float64(hi-lo) / 2
+	big := false
+	for i := range out {
+		out[i] = k0 + k1*float64(i)
+		if math.Abs(out[i])*edge*edge > 0.25 {
+			big = true
+		}
+	}
+	if !big {
+		return nil
+	}
+	return out
+}
+
+// quadCoef fits y = a + b·t + k·t² by weighted least squares and returns k.
+func quadCoef(t, y, w []float64) (float64, bool) {
+	var m [3][4]float64
+	for i := range t {
+		row := [3]float64{1, t[i], t[i] * t[i]}
+		for a := 0; a < 3; a++ {
+			for b := 0; b < 3; b++ {
+				m[a][b] += w[i] * row[a] * row[b]
+			}
+			m[a][3] += w[i] * row[a] * y[i]
+		}
+	}
+	// Gauss-Jordan on the 3×3 normal equations.
+	for c := 0; c < 3; c++ {
+		p := c
+		for r := c + 1; r < 3; r++ {
+			if math.Abs(m[r][c]) > math.Abs(m[p][c]) {
+				p = r
+			}
+		}
+		m[c], m[p] = m[p], m[c]
+		if math.Abs(m[c][c]) < 1e-12 {
+			return 0, false
+		}
+		for r := 0; r < 3; r++ {
+			if r != c {
+				f := m[r][c] / m[c][c]
+				for k := c; k < 4; k++ {
+					m[r][k] -= f * m[c][k]
+				}
+			}
+		}
+	}
+	return m[2][3] / m[2][2], true
 }
 
 // warp returns the strip, L×H pixels of ch float32 channels, whose pixel

@@ -127,53 +127,64 @@ func Find(profile []float64, opt Options) (Result, error) {
 		noise = 1e-12 * (1 + maxAbs(y))
 	}
 	sm := smooth121(y)
-	// [1 2 1]/4 smoothing scales white noise by sqrt(6)/4.
-	thr := minSNR * noise * math.Sqrt(6) / 4
-	res.Smoothed, res.Threshold, res.Distance = sm, thr, sep
-	cands := LocalMaxima(sm)
-	prom := Prominences(sm, cands)
-	var keep []int
-	for k, i := range cands {
-		if prom[k] >= thr && sm[i] >= thr {
-			keep = append(keep, k)
-		}
-	}
-	keep = dropClose(keep, cands, sm, sep)
+	res.Smoothed, res.Distance = sm, sep
+	// Detect, re-estimate the noise away from what was detected, and detect
+	// again when that lowered the noise (lines inflate the first estimate,
+	// which would hide faint lines).
 	var est []comp
-	for _, k := range keep {
-		c := fitter{y: sm}.estimate(cands[k]) // the smoothed profile gives steadier starting widths
-		c.prom = prom[k]
-		est = append(est, c)
-	}
-	// A half-maximum walk runs on into an overlapping neighbour; no line
-	// starts wider than the gap to its nearest neighbour.
-	for k := range est {
-		for _, j := range []int{k - 1, k + 1} {
-			if j >= 0 && j < len(est) {
-				est[k].fwhm = math.Max(1.5, math.Min(est[k].fwhm, math.Abs(est[j].mu-est[k].mu)))
+	for pass := 0; pass < 2; pass++ {
+		// [1 2 1]/4 smoothing scales white noise by sqrt(6)/4.
+		thr := minSNR * noise * math.Sqrt(6) / 4
+		res.Threshold = thr
+		cands := LocalMaxima(sm)
+		prom := Prominences(sm, cands)
+		var keep []int
+		for k, i := range cands {
+			if prom[k] >= thr && sm[i] >= thr {
+				keep = append(keep, k)
 			}
 		}
-	}
-	// Re-estimate the noise from the samples away from every candidate
-	// line, now that they are known, so that line wings do not inflate it.
-	if bg := awayFromLines(y, est); len(bg) >= max(30, n/5) {
-		noise = LevelNoise(bg)
-		res.Noise = noise
+		keep = dropClose(keep, cands, sm, sep)
+		est = est[:0]
+		for _, k := range keep {
+			c := fitter{y: sm}.estimate(cands[k]) // the smoothed profile gives steadier starting widths
+			c.prom = prom[k]
+			est = append(est, c)
+		}
+		// A half-maximum walk runs on into an overlapping neighbour; no line
+		// starts wider than the gap to its nearest neighbour.
+		for k := range est {
+			for _, j := range []int{k - 1, k + 1} {
+				if j >= 0 && j < len(est) {
+					est[k].fwhm = math.Max(2, math.Min(est[k].fwhm, math.Abs(est[j].mu-est[k].mu)))
+				}
+			}
+		}
+		// The noise from the samples away from every candidate line.
+		bg := awayFromLines(y, est)
+		if len(bg) < max(30, n/5) {
+			break
+		}
+		nn := LevelNoise(bg)
+		res.Noise = nn
+		if nn >= 0.9*noise || nn == 0 {
+			noise = math.Max(nn, 1e-12*(1+maxAbs(y)))
+			break
+		}
+		noise = nn
 	}
 	if noise == 0 {
 		noise = 1e-12 * (1 + maxAbs(y))
 	}
 	f := fitter{y: y, noise: noise, gain: opt.Gain, clipped: opt.Clipped}
-	for _, g := range groupComps(est) {
-		for _, p := range f.fitGroup(est[g[0]:g[1]]) {
-			// Report only what is a line: as high as asked once fitted,
-			// wider than a single-sample spike, and placed to better than
-			// half its width.
-			if p.SNR < minSNR || p.FWHM < 0.8 || p.Sigma > p.FWHM/2 {
-				continue
-			}
-			res.Peaks = append(res.Peaks, p)
-		}
+	res.Peaks = f.fitAll(est, minSNR)
+	// A faint line on a strong line's flank has little prominence of its
+	// own: look again in what the fitted lines leave, and fit anew with
+	// whatever stands out there.
+	if more := f.inResidual(res.Peaks, est, res.Threshold); len(more) > 0 {
+		est = append(est, more...)
+		sort.Slice(est, func(a, b int) bool { return est[a].mu < est[b].mu })
+		res.Peaks = f.fitAll(est, minSNR)
 	}
 	f.splitWide(&res, minSNR)
 	sort.Slice(res.Peaks, func(a, b int) bool { return res.Peaks[a].Center < res.Peaks[b].Center })
@@ -218,6 +229,76 @@ func topWidth(y []float64) int {
 		r++
 	}
 	return r - l + 1
+}
+
+// fitAll fits every group of estimates and keeps what is a line: as high
+// as asked once fitted, wider than a single-sample spike, and placed to
+// better than half its width.
+func (f fitter) fitAll(est []comp, minSNR float64) []Peak {
+	var out []Peak
+	for _, g := range groupComps(est) {
+		for _, p := range f.fitGroup(est[g[0]:g[1]]) {
+			if p.SNR < minSNR || p.FWHM < 0.8 || p.Sigma > p.FWHM/2 {
+				continue
+			}
+			out = append(out, p)
+		}
+	}
+	return out
+}
+
+// inResidual returns new estimates for maxima of the smoothed residual
+// (profile minus the fitted lines) that clear thr in height and
+// prominence, and a tenth of the fitted lines there, and lie more than
+// 1.2 FWHM from every fitted line.
+func (f fitter) inResidual(ps []Peak, est []comp, thr float64) []comp {
+	n := len(f.y)
+	r := make([]float64, n)
+	model := make([]float64, n)
+	copy(r, f.y)
+	for _, p := range ps {
+		s := p.FWHM / fwhmPerSigma
+		for j := max(0, int(p.Center-5*s)); j <= min(n-1, int(p.Center+5*s)+1); j++ {
+			d := (float64(j) - p.Center) / s
+			v := p.Height * math.Exp(-d*d/2)
+			r[j] -= v
+			model[j] += v
+		}
+	}
+	sm := smooth121(r)
+	cands := LocalMaxima(sm)
+	prom := Prominences(sm, cands)
+	var out []comp
+	for k, i := range cands {
+		// A bright line's shape is never quite Gaussian: what its fit
+		// leaves within 1.2 FWHM, or below a tenth of its model there, is
+		// that mismatch, not a line.
+		if sm[i] < thr || prom[k] < thr || sm[i] < 0.1*model[i] {
+			continue
+		}
+		near := false
+		for _, p := range ps {
+			d := math.Abs(p.Center - float64(i))
+			// …nor, within 4 FWHM of a line 30 times brighter, the
+			// non-Gaussian wings of its image (JPEG ringing, aberrations).
+			if d <= math.Max(2, 1.2*p.FWHM) || (d <= 4*p.FWHM && sm[i] < p.Height/30) {
+				near = true
+			}
+		}
+		for _, e := range est {
+			if math.Abs(e.mu-float64(i)) <= 2 {
+				near = true
+			}
+		}
+		if near {
+			continue
+		}
+		c := fitter{y: sm}.estimate(i)
+		c.fwhm = math.Max(2, math.Min(c.fwhm, 6))
+		c.a, c.prom = f.y[i], prom[k]
+		out = append(out, c)
+	}
+	return out
 }
 
 // comp is a starting estimate of one line.
@@ -282,8 +363,10 @@ func (f fitter) fitGroup(cs []comp) []Peak {
 	for _, c := range cs {
 		maxW = math.Max(maxW, c.fwhm)
 	}
-	lo := max(0, int(math.Floor(cs[0].mu-1.5*cs[0].fwhm))-1)
-	hi := min(n-1, int(math.Ceil(cs[len(cs)-1].mu+1.5*cs[len(cs)-1].fwhm))+1)
+	// Windows of at least ±1.5·3 samples: a blend's starting widths can be
+	// too small to hold its wings.
+	lo := max(0, int(math.Floor(cs[0].mu-1.5*math.Max(3, cs[0].fwhm)))-1)
+	hi := min(n-1, int(math.Ceil(cs[len(cs)-1].mu+1.5*math.Max(3, cs[len(cs)-1].fwhm)))+1)
 	out := make([]Peak, len(cs))
 	var xs, ys []float64
 	saturated := make([]bool, len(cs))
@@ -304,6 +387,22 @@ func (f fitter) fitGroup(cs []comp) []Peak {
 	}
 	x0 := (float64(lo) + float64(hi)) / 2
 	params, cov, ok := f.fitGaussians(xs, ys, cs, x0)
+	if ok && len(cs) > 1 {
+		// Components may trade places during the fit; hand them back to
+		// the estimates in order of position.
+		idx := make([]int, len(cs))
+		for k := range idx {
+			idx[k] = k
+		}
+		sort.Slice(idx, func(a, b int) bool { return params[3*idx[a]+1] < params[3*idx[b]+1] })
+		np := append([]float64(nil), params...)
+		nc := append([]float64(nil), cov...)
+		for k, o := range idx {
+			copy(np[3*k:3*k+3], params[3*o:3*o+3])
+			nc[k] = cov[o]
+		}
+		params, cov = np, nc
+	}
 	for k, c := range cs {
 		p := Peak{Index: c.idx, Prominence: c.prom, Saturated: saturated[k], Blend: len(cs) > 1}
 		if ok {

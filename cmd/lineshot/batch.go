@@ -468,12 +468,13 @@ type stripRecord struct {
 	FrameW, FrameH                          int
 	Background, Noise, Saturated            float64
 	ResidualTiltDeg                         float64
+	Warnings                                []string
 	Profile                                 []float32
 }
 
 func toRecord(s imaging.Strip) stripRecord {
 	r := stripRecord{AngleDeg: s.AngleDeg, BandHalfHeight: s.BandHalfHeight, OpticalCenter: s.OpticalCenter, Origin: s.Origin, Band: s.Band,
-		FrameW: s.FrameW, FrameH: s.FrameH, Background: s.Background, Noise: s.Noise, Saturated: s.Saturated, ResidualTiltDeg: s.ResidualTiltDeg}
+		FrameW: s.FrameW, FrameH: s.FrameH, Background: s.Background, Noise: s.Noise, Saturated: s.Saturated, ResidualTiltDeg: s.ResidualTiltDeg, Warnings: s.Warnings}
 	r.Profile = make([]float32, len(s.Profile))
 	for i, v := range s.Profile {
 		r.Profile[i] = float32(v)
@@ -483,7 +484,7 @@ func toRecord(s imaging.Strip) stripRecord {
 
 func (r stripRecord) strip() imaging.Strip {
 	s := imaging.Strip{AngleDeg: r.AngleDeg, BandHalfHeight: r.BandHalfHeight, OpticalCenter: r.OpticalCenter, Origin: r.Origin, Band: r.Band,
-		FrameW: r.FrameW, FrameH: r.FrameH, Background: r.Background, Noise: r.Noise, Saturated: r.Saturated, ResidualTiltDeg: r.ResidualTiltDeg}
+		FrameW: r.FrameW, FrameH: r.FrameH, Background: r.Background, Noise: r.Noise, Saturated: r.Saturated, ResidualTiltDeg: r.ResidualTiltDeg, Warnings: r.Warnings}
 	s.Profile = make([]float64, len(r.Profile))
 	for i, v := range r.Profile {
 		s.Profile[i] = float64(v)

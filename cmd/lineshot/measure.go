@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"image"
 	"io"
 	"math"
 	"os"
@@ -44,6 +45,7 @@ type measureConfig struct {
 	floorPX    float64
 	linesPerMM float64
 	extra      []calibrate.Lamp // from --lines files
+	saveStrip  string
 	imageOpts  imaging.Options
 }
 
@@ -98,6 +100,9 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	tol := fs.Float64("match-tolerance", 1.0, "largest distance in nm between a calibrated line and its reference line")
 	floor := fs.Float64("position-floor", 0, "least systematic centroid uncertainty, px, added in quadrature; the calibration estimates its own from its residuals")
 	linear := fs.Bool("linear", false, "pixel values are linear in intensity (do not undo the sRGB curve)")
+	roi := fs.String("roi", "", "look for the band only in this rectangle of the photo: X,Y,WIDTH,HEIGHT in pixels")
+	angle := fs.String("angle", "", "take this dispersion direction (degrees, + turns clockwise on screen) instead of finding it")
+	saveStrip := fs.String("save-strip", "", "save the straightened band with the measured lines marked (JPEG; with several photos, the last)")
 	asJSON := fs.Bool("json", false, "print a JSON document instead of tables")
 	if err := parse(fs, args); err != nil {
 		return err
@@ -114,6 +119,24 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	}
 	cfg := measureConfig{lamp: *lamp, calLamp: *calLamp, model: *model, minSNR: *minSNR, linear: *linear, tolNM: *tol, floorPX: *floor,
 		linesPerMM: *lpm, imageOpts: imaging.Options{Linear: *linear}}
+	if *roi != "" {
+		var x, y, w, h int
+		if n, err := fmt.Sscanf(*roi, "%d,%d,%d,%d", &x, &y, &w, &h); err != nil || n != 4 || w < 8 || h < 4 || x < 0 || y < 0 {
+			return usagef("measure: --roi %q: want X,Y,WIDTH,HEIGHT in pixels", *roi)
+		}
+		cfg.imageOpts.ROI = image.Rect(x, y, x+w, y+h)
+	}
+	if *angle != "" {
+		a, err := strconv.ParseFloat(*angle, 64)
+		if err != nil || math.Abs(a) > 90 {
+			return usagef("measure: --angle %q: want degrees between -90 and 90", *angle)
+		}
+		cfg.imageOpts.FixAngle, cfg.imageOpts.AngleDeg = true, a
+	}
+	if *saveStrip != "" {
+		cfg.imageOpts.KeepImage = true
+		cfg.saveStrip = *saveStrip
+	}
 	for _, p := range *lineFiles {
 		l, err := readLampFile(p)
 		if err != nil {
@@ -372,13 +395,14 @@ type gratingOut struct {
 }
 
 type quality struct {
-	AngleDeg       float64       `json:"angle_deg"`
-	Band           [4][2]float64 `json:"band_corners_xy"`
-	BandHalfHeight float64       `json:"band_half_height_px"`
-	Background     float64       `json:"background"`
-	Noise          float64       `json:"frame_noise"`
-	ProfileNoise   float64       `json:"profile_noise"`
-	Saturated      float64       `json:"saturated_fraction"`
+	AngleDeg        float64       `json:"angle_deg"`
+	Band            [4][2]float64 `json:"band_corners_xy"`
+	BandHalfHeight  float64       `json:"band_half_height_px"`
+	Background      float64       `json:"background"`
+	Noise           float64       `json:"frame_noise"`
+	ProfileNoise    float64       `json:"profile_noise"`
+	Saturated       float64       `json:"saturated_fraction"`
+	ResidualTiltDeg float64       `json:"residual_tilt_deg"`
 }
 
 type document struct {
@@ -406,6 +430,11 @@ func extractAndFind(path string, cfg measureConfig) (measured, error) {
 	if len(r.Peaks) == 0 {
 		return measured{}, fmt.Errorf("%s: no line stands above the noise (threshold %.1fσ)", path, cfg.minSNR)
 	}
+	if cfg.saveStrip != "" {
+		if err := writeStripImage(cfg.saveStrip, measured{strip: s, found: r}); err != nil {
+			return measured{}, err
+		}
+	}
 	// The fit's σ is the statistical part; a user-given floor adds a
 	// systematic part (the calibration adds the one it measures).
 	for i := range r.Peaks {
@@ -424,6 +453,8 @@ func (m measured) baseResult(path string) imageResult {
 		r.Lines = append(r.Lines, lineResult{X: x, Y: y, PositionPX: p.Center, PositionErrPX: p.Sigma, FWHMPX: p.FWHM,
 			Height: p.Height, SNR: p.SNR, Saturated: p.Saturated})
 	}
+	r.Warnings = append(r.Warnings, m.strip.Warnings...)
+	r.Quality.ResidualTiltDeg = m.strip.ResidualTiltDeg
 	if m.strip.Saturated > 0.001 {
 		r.Warnings = append(r.Warnings, fmt.Sprintf("%.1f%% of the band's pixels are saturated: saturated lines were measured on their flanks", 100*m.strip.Saturated))
 	}
