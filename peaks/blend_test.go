@@ -56,3 +56,38 @@ func TestUnresolvedPairIsSplitOrFlagged(t *testing.T) {
 		}
 	}
 }
+
+// A wide slit blurred by the optics is flat-topped: the slit model is
+// chosen and places the centre right; Gaussian lines keep the Gaussian.
+func TestSlitProfileChosenWhenItFits(t *testing.T) {
+	n := 300
+	y := make([]float64, n)
+	rng := synth(n, nil, 1, 31) // noise and baseline only
+	copy(y, rng)
+	for i := range y {
+		x := float64(i)
+		for _, c := range []float64{80.3, 190.7} {
+			y[i] += 400 * (math.Erf((x-c+4)/(math.Sqrt2*1.1)) - math.Erf((x-c-4)/(math.Sqrt2*1.1))) / 2
+		}
+	}
+	gl := synth(n, []line{{120.4, 300, 1.3}}, 1, 32)
+	for i := range y {
+		y[i] += gl[i] - rng[i]
+	}
+	r, err := Find(y, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(r.Peaks) != 3 {
+		t.Fatalf("%d peaks: %+v", len(r.Peaks), r.Peaks)
+	}
+	want := []struct {
+		c      float64
+		method string
+	}{{80.3, "slit"}, {120.4, "gauss"}, {190.7, "slit"}}
+	for k, p := range r.Peaks {
+		if p.Method != want[k].method || math.Abs(p.Center-want[k].c) > 0.05 {
+			t.Errorf("line %g: %s centre %.3f ± %.3f", want[k].c, p.Method, p.Center, p.Sigma)
+		}
+	}
+}

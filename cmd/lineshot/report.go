@@ -209,6 +209,32 @@ func rydbergPlot(r *calibrate.Rydberg) (template.URL, error) {
 	return pngData(p, 11*vg.Centimeter, 7*vg.Centimeter)
 }
 
+// balmerPlot draws 1/λ_vac against 1/4 − 1/n² with the fitted line
+// through the origin and its 1σ band (too narrow to see at this scale:
+// the residual plot beside it shows it).
+func balmerPlot(r *calibrate.Rydberg) (template.URL, error) {
+	p := styled("1/λ against 1/4 − 1/n²", "1/4 − 1/n²", "1/λ (vacuum, 1/m)")
+	var xy plotter.XYs
+	for i := range r.X {
+		xy = append(xy, plotter.XY{X: r.X[i], Y: r.Y[i]})
+	}
+	s, err := plotter.NewScatter(xy)
+	if err != nil {
+		return "", err
+	}
+	s.GlyphStyle.Color = tealColor
+	s.GlyphStyle.Radius = vg.Points(3)
+	fit := plotter.NewFunction(func(x float64) float64 { return r.R * x })
+	fit.Color = inkColor
+	up := plotter.NewFunction(func(x float64) float64 { return (r.R + r.Sigma) * x })
+	dn := plotter.NewFunction(func(x float64) float64 { return (r.R - r.Sigma) * x })
+	up.Color, dn.Color = mutedColor, mutedColor
+	p.Add(up, dn, fit, s)
+	p.X.Min, p.X.Max = 0, 0.25
+	p.Y.Min = 0
+	return pngData(p, 11*vg.Centimeter, 7*vg.Centimeter)
+}
+
 // summaryPlot draws R per bench with its error bar against CODATA R_H.
 func summaryPlot(doc batchDoc) (template.URL, error) {
 	p := styled("R per bench (orange: CODATA R_H; dashed: the NIST Balmer lines' own value)", "bench", "R − R_H (1/m)")
@@ -267,6 +293,7 @@ type reportBench struct {
 	Status    string
 	Attention bool
 	Residuals template.URL
+	Balmer    template.URL
 	Rydberg   template.URL
 	Photos    []reportPhoto
 }
@@ -308,6 +335,9 @@ func writeReport(w io.Writer, out string, doc batchDoc) error {
 		}
 		if b.Rydberg != nil {
 			if rb.Rydberg, err = rydbergPlot(b.Rydberg); err != nil {
+				return err
+			}
+			if rb.Balmer, err = balmerPlot(b.Rydberg); err != nil {
 				return err
 			}
 		}
@@ -406,7 +436,7 @@ footer{font-size:.85rem;color:#475569;padding:1rem 2rem 2rem;max-width:1200px}
 {{if .B.Warnings}}<ul class="warn">{{range .B.Warnings}}<li>{{.}}</li>{{end}}</ul>{{end}}
 {{with .B.Rydberg}}<p>R = <b>{{f0 .R}} ± {{f0 .Sigma}} m⁻¹</b> from {{len .LinesUsed}} Balmer lines, χ²/dof {{f2 .ChiSq}}/{{.DOF}};
 {{f4 .DevPercent}} % ({{f2 .DevSigma}}σ) from R<sub>H</sub>; ground-state energy {{f4 .EnergyEV}} eV.</p>{{end}}
-<div class="grid">{{if .Residuals}}<img alt="calibration residuals" src="{{.Residuals}}">{{end}}{{if .Rydberg}}<img alt="Rydberg fit residuals" src="{{.Rydberg}}">{{end}}</div>
+<div class="grid">{{if .Residuals}}<img alt="calibration residuals" src="{{.Residuals}}">{{end}}{{if .Balmer}}<img alt="Rydberg plot: 1/λ against 1/4 − 1/n² with the fit" src="{{.Balmer}}">{{end}}{{if .Rydberg}}<img alt="Rydberg fit residuals" src="{{.Rydberg}}">{{end}}</div>
 {{range .Photos}}<h3>{{.R.File}} — {{if .R.Lamp}}{{.R.Lamp}}{{else}}lamp not recognised{{end}}</h3>
 {{if .Band}}<img class="band" alt="straightened band with the measured lines marked" src="{{.Band}}">{{end}}
 {{if .Profile}}<img alt="profile with lines labelled" src="{{.Profile}}">{{end}}
