@@ -259,3 +259,28 @@ func TestClassifyLamps(t *testing.T) {
 		}
 	}
 }
+
+// A user's pin is honoured: a right pin keeps the right answer, and a pin
+// that contradicts every pattern leaves no identification.
+func TestIdentifyHonoursPins(t *testing.T) {
+	cam := camera{600, 4000, 19, 960, false}
+	peaks, truth := peaksFor(cam, Mercury(), nil, nil)
+	green := cam.px(546.0735)
+	id, err := Identify(peaks, Mercury(), IdentifyOptions{Pins: []Pin{{NM: 546.0735, PX: green + 0.4}}})
+	if err != nil || len(id.Matches) != len(truth) {
+		t.Fatalf("right pin: %v, %d matches", err, len(id.Matches))
+	}
+	for _, m := range id.Matches {
+		if truth[m.Peak] != m.Line.NM {
+			t.Errorf("right pin: peak %d taken for %.4f", m.Peak, m.Line.NM)
+		}
+	}
+	id, err = Identify(peaks, Mercury(), IdentifyOptions{Pins: []Pin{{NM: 404.6563, PX: green}}})
+	if err == nil {
+		for _, m := range id.Matches {
+			if math.Abs(peaks[m.Peak].PX-green) < 1 && m.Line.NM != 404.6563 {
+				t.Errorf("the pin 404.66@green was ignored: %+v", id.Matches)
+			}
+		}
+	}
+}

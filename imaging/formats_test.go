@@ -1,0 +1,99 @@
+package imaging
+
+import (
+	"bytes"
+	"image/jpeg"
+	"math"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"gocv.io/x/gocv"
+
+	"lineshot/imaging/synth"
+	"lineshot/peaks"
+)
+
+// withOrientation inserts an EXIF APP1 segment with the given Orientation
+// tag (TIFF tag 0x0112) right after a JPEG's SOI marker.
+func withOrientation(jpg []byte, o byte) []byte {
+	app1 := []byte{0xff, 0xe1, 0, 0, 'E', 'x', 'i', 'f', 0, 0,
+		'M', 'M', 0, 0x2a, 0, 0, 0, 8, // big-endian TIFF header, IFD0 at 8
+		0, 1, // one entry
+		0x01, 0x12, 0, 3, 0, 0, 0, 1, 0, o, 0, 0, // Orientation, SHORT, 1, value
+		0, 0, 0, 0} // no next IFD
+	n := len(app1) - 2
+	app1[2], app1[3] = byte(n>>8), byte(n)
+	out := append([]byte{}, jpg[:2]...)
+	out = append(out, app1...)
+	return append(out, jpg[2:]...)
+}
+
+// A phone held upright stores the frame sideways with EXIF Orientation 6
+// (rotate 90° clockwise to display). lineshot measures the upright image:
+// the band comes out vertical and every line lands where the rotated truth
+// puts it.
+func TestEXIFOrientation(t *testing.T) {
+	p := synth.Params{Width: 1280, Height: 720, TiltDeg: 2, Seed: 8, Emissions: mercury}
+	img, tr, err := synth.Render(p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var buf bytes.Buffer
+	jpeg.Encode(&buf, img, &jpeg.Options{Quality: 92})
+	path := filepath.Join(t.TempDir(), "upright.jpg")
+	os.WriteFile(path, withOrientation(buf.Bytes(), 6), 0o644)
+	s, err := Extract(path, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if s.FrameW != 720 || s.FrameH != 1280 {
+		t.Fatalf("decoded as %dx%d; the EXIF orientation was not applied", s.FrameW, s.FrameH)
+	}
+	r, err := peaks.Find(s.Profile, peaks.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, l := range tr.Lines {
+		// 90° clockwise: stored (x, y) is displayed at (H−1−y, x).
+		wx, wy := float64(p.Height-1)-l.Y, l.X
+		best := math.Inf(1)
+		for _, pk := range r.Peaks {
+			x, y := s.ToImage(pk.Center)
+			best = math.Min(best, math.Hypot(x-wx, y-wy))
+		}
+		if best > 0.3 {
+			t.Errorf("%.2f nm: nearest line %.3f px from the rotated truth", l.NM, best)
+		}
+	}
+}
+
+// Progressive JPEG (written by OpenCV) decodes and measures like baseline.
+func TestProgressiveJPEG(t *testing.T) {
+	path, tr := writeJPEG(t, synth.Params{Width: 1280, Height: 720, Seed: 9, Emissions: mercury}, 95)
+	m := gocv.IMRead(path, gocv.IMReadColor)
+	defer m.Close()
+	prog := filepath.Join(t.TempDir(), "progressive.jpg")
+	if !gocv.IMWriteWithParams(prog, m, []int{gocv.IMWriteJpegQuality, 95, gocv.IMWriteJpegProgressive, 1}) {
+		t.Fatal("OpenCV wrote no progressive JPEG")
+	}
+	raw, _ := os.ReadFile(prog)
+	if !bytes.Contains(raw[:2000], []byte{0xff, 0xc2}) {
+		t.Fatal("the file has no progressive (SOF2) frame")
+	}
+	s, err := Extract(prog, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r, _ := peaks.Find(s.Profile, peaks.Options{})
+	for _, l := range tr.Lines {
+		best := math.Inf(1)
+		for _, pk := range r.Peaks {
+			x, y := s.ToImage(pk.Center)
+			best = math.Min(best, math.Hypot(x-l.X, y-l.Y))
+		}
+		if best > 0.3 {
+			t.Errorf("%.2f nm: %.3f px off", l.NM, best)
+		}
+	}
+}
