@@ -68,9 +68,10 @@ func writeStripImage(path string, m measured) error {
 	return writeFileAtomic(path, func(wr io.Writer) error { return jpeg.Encode(wr, dst, &jpeg.Options{Quality: 85}) })
 }
 
-// pngData renders a plot to a data: URI.
+// pngData renders a plot to a data: URI. SVG, not PNG: vector text renders
+// several times faster than rasterising, and stays sharp when zoomed.
 func pngData(p *plot.Plot, w, h vg.Length) (template.URL, error) {
-	wt, err := p.WriterTo(w, h, "png")
+	wt, err := p.WriterTo(w, h, "svg")
 	if err != nil {
 		return "", err
 	}
@@ -78,7 +79,7 @@ func pngData(p *plot.Plot, w, h vg.Length) (template.URL, error) {
 	if _, err := wt.WriteTo(&buf); err != nil {
 		return "", err
 	}
-	return template.URL("data:image/png;base64," + base64.StdEncoding.EncodeToString(buf.Bytes())), nil
+	return template.URL("data:image/svg+xml;base64," + base64.StdEncoding.EncodeToString(buf.Bytes())), nil
 }
 
 func styled(title, x, y string) *plot.Plot {
@@ -172,7 +173,7 @@ func residualPlot(c *calibration) (template.URL, error) {
 // rydbergPlot draws 1/λ_vac against 1/4 − 1/n² with the fitted line,
 // and the residuals (which is where the uncertainty can be seen).
 func rydbergPlot(r *calibrate.Rydberg) (template.URL, error) {
-	p := styled(fmt.Sprintf("Balmer residuals about R = %.0f ± %.0f /m", r.R, r.Sigma), "1/4 − 1/n²", "1/λ − R(1/4 − 1/n²)  (1/m)")
+	p := styled("residuals about the fit, ±1σ dashed", "1/4 − 1/n²", "1/λ − R(1/4 − 1/n²)  (1/m)")
 	var xy plotter.XYs
 	for i := range r.X {
 		xy = append(xy, plotter.XY{X: r.X[i], Y: r.Residuals[i]})
@@ -237,7 +238,7 @@ func balmerPlot(r *calibrate.Rydberg) (template.URL, error) {
 
 // summaryPlot draws R per bench with its error bar against CODATA R_H.
 func summaryPlot(doc batchDoc) (template.URL, error) {
-	p := styled("R per bench (orange: CODATA R_H; dashed: the NIST Balmer lines' own value)", "bench", "R − R_H (1/m)")
+	p := styled("R per bench; dashed: NIST-line value", "bench", "R − CODATA R_H (1/m)")
 	var xy plotter.XYs
 	var ye plotter.YErrors
 	var names []string
@@ -279,6 +280,12 @@ func summaryPlot(doc batchDoc) (template.URL, error) {
 	}
 	p.NominalX(names...)
 	p.X.Min, p.X.Max = -0.5, float64(len(names))-0.5
+	// Keep R_H (zero) in view.
+	lo, hi := 0.0, 0.0
+	for i := range xy {
+		lo, hi = math.Min(lo, xy[i].Y-ye[i].Low), math.Max(hi, xy[i].Y+ye[i].High)
+	}
+	p.Y.Min, p.Y.Max = lo-0.05*(hi-lo), hi+0.05*(hi-lo)
 	return pngData(p, 16*vg.Centimeter, 7*vg.Centimeter)
 }
 
