@@ -66,7 +66,9 @@ type Strip struct {
 	Luma     []float64    // linearised luma 0.299R′+0.587G′+0.114B′ summed across the band, background removed
 	Sum      []float64    // linear R+G+B summed across the band, background removed
 	Channels [3][]float64 // linear R, G, B each
-	Clipped  []bool       // positions whose band pixels hold a saturated value in some channel
+	// Without Options.KeepImage only the profile's own channel is
+	// straightened: Profile and one of Luma or Sum are set, Channels not.
+	Clipped []bool // positions whose band pixels hold a saturated value in some channel
 
 	AngleDeg       float64    // dispersion direction, degrees from +x towards +y
 	Origin         [2]float64 // original-image x, y of profile position 0
@@ -346,7 +348,7 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 			if roi, err = bandROI(fr.w, fr.h, ang, vc, hh+side+4+0.004*float64(fr.w+fr.h)); err != nil {
 				return err
 			}
-			rp, rgb, clip, lumaPlane = linearRegion(fr, roi, lut, clipAt, luma)
+			rp, rgb, clip, lumaPlane = linearRegion(fr, roi, lut, clipAt, luma, opt.KeepImage)
 			rbg, _, _ = levels(rp)
 		}
 		return nil
@@ -387,7 +389,16 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	if !ok || u1-u0 < 16 {
 		return Strip{}, fmt.Errorf("%w: the band's centre line leaves the frame", ErrNoBand)
 	}
-	s, fit, err := straighten(rgb, clip, roi, ang, vc, hh, side, u0, u1, opt.KeepImage, opt.Profile)
+	// Without an image to keep, only the profile's own channel is warped:
+	// a quarter of the work and of the memory.
+	data, nc := rgb, 4
+	if !opt.KeepImage {
+		data, nc = lumaPlane, 1
+		if opt.Profile != ProfileLuma {
+			data = rp.pix
+		}
+	}
+	s, fit, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.KeepImage, opt.Profile)
 	if err != nil {
 		return Strip{}, err
 	}
@@ -535,14 +546,17 @@ func bandROI(w, h int, ang, vc, reach float64) (image.Rectangle, error) {
 	return r, nil
 }
 
-// linearRegion copies the region of the frame into linear float32 R, G, B
-// and linearised luma (interleaved, four values a pixel), the channel sum
-// and a per-pixel clip mask.
-func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma lumaLUT) (plane, []float32, []bool, []float32) {
+// linearRegion copies the region of the frame into its channel sum, its
+// linearised luma, a per-pixel clip mask and, when all is set, linear
+// float32 R, G, B and luma interleaved (four values a pixel).
+func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma lumaLUT, all bool) (plane, []float32, []bool, []float32) {
 	w, h := roi.Dx(), roi.Dy()
 	sum := plane{w: w, h: h, pix: make([]float32, w*h)}
 	lp := make([]float32, w*h)
-	rgb := make([]float32, 4*w*h)
+	var rgb []float32
+	if all {
+		rgb = make([]float32, 4*w*h)
+	}
 	clip := make([]bool, w*h)
 	for y := 0; y < h; y++ {
 		for x := 0; x < w; x++ {
@@ -554,13 +568,16 @@ func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma
 			} else {
 				b, g, r = int(fr.words16[src]), int(fr.words16[src+1]), int(fr.words16[src+2])
 			}
-			rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2] = lut[r], lut[g], lut[b]
+			var l float32
 			if luma.exact != nil {
-				rgb[4*dst+3] = luma.exact[299*r+587*g+114*b]
+				l = luma.exact[299*r+587*g+114*b]
 			} else {
-				rgb[4*dst+3] = luma.at(0.299*float64(r) + 0.587*float64(g) + 0.114*float64(b))
+				l = luma.at(0.299*float64(r) + 0.587*float64(g) + 0.114*float64(b))
 			}
-			lp[dst] = rgb[4*dst+3]
+			lp[dst] = l
+			if all {
+				rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2], rgb[4*dst+3] = lut[r], lut[g], lut[b], l
+			}
 			sum.pix[dst] = lut[r] + lut[g] + lut[b]
 			clip[dst] = r >= clipAt || g >= clipAt || b >= clipAt
 		}
@@ -572,7 +589,7 @@ func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma
 // dispersion (OpenCV warpAffine, bilinear, on linear values), subtracts a
 // per-column background taken from the rows beside the band, and sums the
 // band rows into profiles.
-func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, keep bool, profile string) (Strip, centreFit, error) {
+func straighten(rgb []float32, nc int, clip []bool, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, keep bool, profile string) (Strip, centreFit, error) {
 	w, h := roi.Dx(), roi.Dy()
 	L := int(math.Floor(u1-u0)) + 1
 	half := int(math.Ceil(hh))
@@ -580,7 +597,7 @@ func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, si
 	H := 2*(half+sd) + 1
 	v0 := vc - float64(half+sd)
 	sn, cs := math.Sincos(ang * math.Pi / 180)
-	dst, err := warp(rgb, 4, roi, ang, u0, v0, L, H)
+	dst, err := warp(rgb, nc, roi, ang, u0, v0, L, H)
 	if err != nil {
 		return Strip{}, centreFit{}, err
 	}
@@ -598,7 +615,7 @@ func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, si
 	// sums; at most 12 evenly spaced rows on each side feed the per-column
 	// background median. A strip pixel whose source lies outside the frame
 	// counts for nothing.
-	var acc [4][]float64 // R, G, B, luma
+	acc := make([][]float64, nc) // R, G, B, luma; or the profile's one channel
 	for c := range acc {
 		acc[c] = make([]float64, L)
 	}
@@ -608,7 +625,7 @@ func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, si
 	// Curved line images (conical diffraction, short focal lengths) are
 	// followed: band row j is sampled k(i)·(j − jc)² columns along, so each
 	// line's light adds up at its centre-row position instead of smearing.
-	curv := lineCurvature(px, L, H, sd)
+	curv := lineCurvature(px, nc, nc-1, L, H, sd)
 	s.CurvaturePX = 0
 	if curv != nil {
 		t := float64(half)
@@ -619,7 +636,7 @@ func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, si
 	jc := float64(H-1) / 2
 	every := max(1, sd/12)
 	nbg := 2 * ((sd + every - 1) / every)
-	bg := make([]float32, 4*L*nbg) // column-major: bg[(c*L+i)*nbg + k]
+	bg := make([]float32, nc*L*nbg) // column-major: bg[(c*L+i)*nbg + k]
 	nb := make([]int, L)
 	for j := 0; j < H; j++ {
 		inBand := j >= sd && j <= H-1-sd
@@ -640,7 +657,7 @@ func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, si
 			if x < 0 || y < 0 || x > float64(w-1) || y > float64(h-1) {
 				continue // rounding at the range's ends
 			}
-			base := 4 * (j*L + i)
+			base := nc * (j*L + i)
 			if inBand {
 				nIn[i]++
 				nBand++
@@ -654,18 +671,18 @@ func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, si
 					i0 := int(math.Floor(xi))
 					if i0 >= 0 && i0+1 < L {
 						f := float32(xi - float64(i0))
-						b0, b1 := 4*(j*L+i0), 4*(j*L+i0+1)
-						for c := 0; c < 4; c++ {
+						b0, b1 := nc*(j*L+i0), nc*(j*L+i0+1)
+						for c := 0; c < nc; c++ {
 							acc[c][i] += float64(px[b0+c]*(1-f) + px[b1+c]*f)
 						}
 						continue
 					}
 				}
-				for c := 0; c < 4; c++ {
+				for c := 0; c < nc; c++ {
 					acc[c][i] += float64(px[base+c])
 				}
 			} else if nb[i] < nbg {
-				for c := 0; c < 4; c++ {
+				for c := 0; c < nc; c++ {
 					bg[(c*L+i)*nbg+nb[i]] = px[base+c]
 				}
 				nb[i]++
@@ -675,7 +692,7 @@ func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, si
 	rows := float64(2*half + 1)
 	tmp := make([]float64, nbg)
 	for i := 0; i < L; i++ {
-		for c := 0; c < 4; c++ {
+		for c := 0; c < nc; c++ {
 			bgv := 0.0
 			if nb[i] > 0 {
 				v := tmp[:nb[i]]
@@ -689,23 +706,32 @@ func straighten(rgb []float32, clip []bool, roi image.Rectangle, ang, vc, hh, si
 			}
 		}
 	}
-	s.Channels = [3][]float64{acc[0], acc[1], acc[2]}
-	s.Luma = acc[3]
-	s.Sum = make([]float64, L)
-	for i := range s.Sum {
-		s.Sum[i] = acc[0][i] + acc[1][i] + acc[2][i]
-	}
-	s.Profile = s.Sum
-	if profile == ProfileLuma {
-		s.Profile = s.Luma
+	if nc == 4 {
+		s.Channels = [3][]float64{acc[0], acc[1], acc[2]}
+		s.Luma = acc[3]
+		s.Sum = make([]float64, L)
+		for i := range s.Sum {
+			s.Sum[i] = acc[0][i] + acc[1][i] + acc[2][i]
+		}
+		s.Profile = s.Sum
+		if profile == ProfileLuma {
+			s.Profile = s.Luma
+		}
+	} else {
+		s.Profile = acc[0]
+		if profile == ProfileLuma {
+			s.Luma = acc[0]
+		} else {
+			s.Sum = acc[0]
+		}
 	}
 	if nBand > 0 {
 		s.Saturated = float64(nClip) / float64(nBand)
 	}
-	if keep {
+	if keep && nc == 4 {
 		s.Image = stripImage(px, L, H)
 	}
-	return s, fitCentreLine(px, 4, 3, L, H, s.Luma), nil
+	return s, fitCentreLine(px, nc, nc-1, L, H, s.Profile), nil
 }
 
 // colRange returns the columns i in [0, L) with 0 ≤ a + i·d ≤ lim.
@@ -824,7 +850,7 @@ func (t lumaLUT) at(code float64) float32 {
 // or nil when the bow is below 0.25 px at the band's edge (smaller bows
 // are within what the estimate itself scatters on flat lines) or cannot be
 // measured.
-func lineCurvature(px []float32, L, H, sd int) []float64 {
+func lineCurvature(px []float32, stride, off, L, H, sd int) []float64 {
 	jc := float64(H-1) / 2
 	lo, hi := sd, H-1-sd
 	if hi-lo < 12 {
@@ -833,7 +859,7 @@ func lineCurvature(px []float32, L, H, sd int) []float64 {
 	prof := make([]float64, L)
 	for j := lo; j <= hi; j++ {
 		for i := 0; i < L; i++ {
-			prof[i] += float64(px[4*(j*L+i)+3])
+			prof[i] += float64(px[stride*(j*L+i)+off])
 		}
 	}
 	var maxima []int
@@ -867,10 +893,10 @@ func lineCurvature(px []float32, L, H, sd int) []float64 {
 			for j := lo + g*per; j < lo+(g+1)*per; j++ {
 				vmin := math.Inf(1)
 				for i := m - r; i <= m+r; i++ {
-					vmin = math.Min(vmin, float64(px[4*(j*L+i)+3]))
+					vmin = math.Min(vmin, float64(px[stride*(j*L+i)+off]))
 				}
 				for i := m - r; i <= m+r; i++ {
-					v := float64(px[4*(j*L+i)+3]) - vmin
+					v := float64(px[stride*(j*L+i)+off]) - vmin
 					sw += v
 					sx += v * float64(i)
 					st += v * (float64(j) - jc)
