@@ -12,6 +12,7 @@ import (
 	"math"
 	"os"
 	"sort"
+	"sync"
 	"time"
 	"unsafe"
 
@@ -237,6 +238,38 @@ func newFrame(m gocv.Mat) (frame, error) {
 	return f, err
 }
 
+// codeTables are the lookup tables that undo the transfer curve for one bit
+// depth: per code value (lut) and for luma (luma).
+type codeTables struct {
+	lut  []float32
+	luma lumaLUT
+}
+
+// tableCache builds each combination of bit depth (8, 16) and linear
+// input once per process: the 8-bit luma table alone takes 24 ms to fill,
+// a third of a 1080p extraction. The tables are never written after they
+// are built, so sharing them between goroutines is safe.
+var tableCache = [2][2]func() codeTables{
+	{sync.OnceValue(func() codeTables { return newCodeTables(256, false) }), sync.OnceValue(func() codeTables { return newCodeTables(256, true) })},
+	{sync.OnceValue(func() codeTables { return newCodeTables(65536, false) }), sync.OnceValue(func() codeTables { return newCodeTables(65536, true) })},
+}
+
+func newCodeTables(levels int, linear bool) codeTables {
+	return codeTables{lut: linearLUT(levels, linear), luma: newLumaLUT(levels, linear)}
+}
+
+// tablesFor returns the shared tables for 8-bit (levels 256) or 16-bit input.
+func tablesFor(levels int, linear bool) codeTables {
+	d, l := 0, 0
+	if levels > 256 {
+		d = 1
+	}
+	if linear {
+		l = 1
+	}
+	return tableCache[d][l]()
+}
+
 // linearLUT returns the linear value in [0, 1] of every code value of the
 // given bit depth, undoing the sRGB transfer curve (IEC 61966-2-1) unless
 // linear is set.
@@ -274,7 +307,8 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	if fr.words16 != nil {
 		nLevels, clipAt = 65536, 65000
 	}
-	lut := linearLUT(nLevels, opt.Linear)
+	tables := tablesFor(nLevels, opt.Linear)
+	lut := tables.lut
 
 	// 1. Find the band roughly on a reduced frame.
 	// A whole reduction factor keeps OpenCV's area averaging on its fast path.
@@ -333,7 +367,7 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	var rp plane
 	var rgb, lumaPlane []float32
 	var clip []bool
-	luma := newLumaLUT(nLevels, opt.Linear)
+	luma := tables.luma
 	var rbg float64
 	cut := false
 	// prepare makes sure the linearised region holds the band as now
