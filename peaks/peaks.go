@@ -434,16 +434,11 @@ func (f fitter) fitGroup(cs []comp) []Peak {
 	return out
 }
 
-// fitGaussians fits Σ A_k·exp(−(x−μ_k)²/2s_k²) + c0 + c1·(x − x0) and
-// returns the parameters and the variance of each centre (scaled up by the
-// fit's Birge ratio when it exceeds 1). With a gain, the weights follow
-// σ² = noise² + gain·(line signal), refitted once with the first fit's model.
-func (f fitter) fitGaussians(xs, ys []float64, cs []comp, x0 float64) ([]float64, []float64, bool) {
-	p, v, _, ok := f.fitGaussiansChi(xs, ys, cs, x0)
-	return p, v, ok
-}
-
-// fitGaussiansChi is fitGaussians that also returns the fit's χ².
+// fitGaussiansChi fits Σ A_k·exp(−(x−μ_k)²/2s_k²) + c0 + c1·(x − x0) and
+// returns the parameters, the variance of each centre (scaled up by the
+// fit's Birge ratio when χ² is significantly high) and the fit's χ². With a
+// gain, the weights follow σ² = noise² + gain·(line signal), refitted once
+// with the first fit's model.
 func (f fitter) fitGaussiansChi(xs, ys []float64, cs []comp, x0 float64) ([]float64, []float64, float64, bool) {
 	K := len(cs)
 	if len(xs) < 3*K+3 {
@@ -600,9 +595,9 @@ func (f fitter) splitWide(res *Result, minSNR float64) {
 			{idx: p.Index, mu: p.Center - half, a: p.Height * 0.7, fwhm: typ, prom: p.Prominence},
 			{idx: p.Index, mu: p.Center + half, a: p.Height * 0.7, fwhm: typ, prom: p.Prominence},
 		}
-		one := f.chi2Single(p)
+		one := f.chi2([]Peak{p})
 		parts := f.fitGroup(cs)
-		two := f.chi2Pair(parts)
+		two := f.chi2(parts)
 		if parts[0].Method == "gauss" && parts[1].Method == "gauss" && one-two > 25 &&
 			parts[0].SNR >= minSNR && parts[1].SNR >= minSNR && math.Abs(parts[1].Center-parts[0].Center) >= 0.4*typ {
 			out = append(out, parts...)
@@ -614,11 +609,8 @@ func (f fitter) splitWide(res *Result, minSNR float64) {
 	res.Peaks = out
 }
 
-// chi2Single and chi2Pair evaluate χ² of one or two fitted Gaussians (on
-// the median-free profile, local background neglected) over their window.
-func (f fitter) chi2Single(p Peak) float64  { return f.chi2([]Peak{p}) }
-func (f fitter) chi2Pair(ps []Peak) float64 { return f.chi2(ps) }
-
+// chi2 evaluates χ² of fitted Gaussians (on the baseline-free profile,
+// local background neglected) over their joint window.
 func (f fitter) chi2(ps []Peak) float64 {
 	lo, hi := math.Inf(1), math.Inf(-1)
 	for _, p := range ps {
