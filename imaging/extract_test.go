@@ -58,11 +58,7 @@ func TestExtractRoundTripTilts(t *testing.T) {
 		}
 		var worst float64
 		for _, l := range tr.Lines {
-			best := math.Inf(1)
-			for _, pk := range r.Peaks {
-				x, y := s.ToImage(pk.Center)
-				best = math.Min(best, math.Hypot(x-l.X, y-l.Y))
-			}
+			best := nearestLine(s, r.Peaks, l.X, l.Y)
 			worst = math.Max(worst, best)
 			if best > 0.3 {
 				t.Errorf("tilt %g: line %.2f nm at (%.2f, %.2f): nearest peak %.3f px away", tilt, l.NM, l.X, l.Y, best)
@@ -126,4 +122,15 @@ func FuzzExtractBytes(f *testing.F) {
 			t.Fatalf("error does not name the file: %v", err)
 		}
 	})
+}
+
+// nearestLine returns the distance in original-image pixels from (x, y) to
+// the nearest of the peaks mapped back through the strip.
+func nearestLine(s Strip, ps []peaks.Peak, x, y float64) float64 {
+	best := math.Inf(1)
+	for _, p := range ps {
+		px, py := s.ToImage(p.Center)
+		best = math.Min(best, math.Hypot(px-x, py-y))
+	}
+	return best
 }

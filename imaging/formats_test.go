@@ -4,7 +4,6 @@ import (
 	"bytes"
 	"encoding/json"
 	"image/jpeg"
-	"math"
 	"os"
 	"path/filepath"
 	"testing"
@@ -58,11 +57,7 @@ func TestEXIFOrientation(t *testing.T) {
 	for _, l := range tr.Lines {
 		// 90° clockwise: stored (x, y) is displayed at (H−1−y, x).
 		wx, wy := float64(p.Height-1)-l.Y, l.X
-		best := math.Inf(1)
-		for _, pk := range r.Peaks {
-			x, y := s.ToImage(pk.Center)
-			best = math.Min(best, math.Hypot(x-wx, y-wy))
-		}
+		best := nearestLine(s, r.Peaks, wx, wy)
 		if best > 0.3 {
 			t.Errorf("%.2f nm: nearest line %.3f px from the rotated truth", l.NM, best)
 		}
@@ -88,11 +83,7 @@ func TestProgressiveJPEG(t *testing.T) {
 	}
 	r, _ := peaks.Find(s.Profile, peaks.Options{})
 	for _, l := range tr.Lines {
-		best := math.Inf(1)
-		for _, pk := range r.Peaks {
-			x, y := s.ToImage(pk.Center)
-			best = math.Min(best, math.Hypot(x-l.X, y-l.Y))
-		}
+		best := nearestLine(s, r.Peaks, l.X, l.Y)
 		if best > 0.3 {
 			t.Errorf("%.2f nm: %.3f px off", l.NM, best)
 		}
@@ -119,11 +110,7 @@ func TestCMYKAndProgressiveFiles(t *testing.T) {
 		}
 		r, _ := peaks.Find(s.Profile, peaks.Options{})
 		for _, l := range tr.Lines {
-			best := math.Inf(1)
-			for _, pk := range r.Peaks {
-				x, y := s.ToImage(pk.Center)
-				best = math.Min(best, math.Hypot(x-l.X, y-l.Y))
-			}
+			best := nearestLine(s, r.Peaks, l.X, l.Y)
 			if best > 0.3 {
 				t.Errorf("%s: %.2f nm %.3f px off", name, l.NM, best)
 			}
