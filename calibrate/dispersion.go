@@ -24,6 +24,36 @@ type Point struct {
 	NM      float64 // reference air wavelength, nm
 	SigmaNM float64 // uncertainty of the reference (bands); 0 means FitOptions.RefSigmaNM
 	Line    string  // reference line name
+	// Order is the line's signed diffraction order when the photo shows
+	// the zero order or both first orders (−1 on one side of the zero
+	// order, +1 on the other); 0 means +1. Any point with an order other
+	// than +1 makes the fit a signed one (Dispersion.Signed).
+	Order int
+	// ZeroOrder marks the zero order (the undiffracted slit image), where
+	// m·λ = 0; NM is ignored.
+	ZeroOrder bool
+}
+
+// target is the value the dispersion must reach at p: m·λ.
+func (p Point) target() float64 {
+	switch {
+	case p.ZeroOrder:
+		return 0
+	case p.Order == 0:
+		return p.NM
+	}
+	return float64(p.Order) * p.NM
+}
+
+// order is p's signed order (+1 for the zero value; 0 for the zero order).
+func (p Point) order() int {
+	switch {
+	case p.ZeroOrder:
+		return 0
+	case p.Order == 0:
+		return 1
+	}
+	return p.Order
 }
 
 // Model names.
@@ -65,11 +95,32 @@ type Dispersion struct {
 	MaxPX     float64     `json:"max_px"`
 	Residuals []Residual  `json:"residuals"`
 	Compared  []ModelFit  `json:"models_compared,omitempty"`
+	// Signed says the model gives m·λ, the signed order times the
+	// wavelength, not λ: the fit spans the zero order or both first
+	// orders, and Resolve tells the order of each position. The grating
+	// equation, d·sin θ = m·λ, is linear in m·λ, so one model covers
+	// every order (REFERENCE-DATA.md section 9).
+	Signed bool `json:"signed_orders,omitempty"`
+	// ZeroOrderPX is the zero order's measured position, when it was in
+	// the calibration photo (0 otherwise).
+	ZeroOrderPX float64 `json:"zero_order_px,omitempty"`
+}
+
+// Resolve returns the air wavelength at profile position p and its
+// first-order sign: for a signed dispersion the side of the zero order p
+// lies on (+1 or −1), otherwise +1.
+func (d Dispersion) Resolve(p float64) (nm float64, order int) {
+	v := d.Wavelength(p)
+	if d.Signed && v < 0 {
+		return -v, -1
+	}
+	return v, 1
 }
 
 // Residual is the fit's residual at one calibration point.
 type Residual struct {
 	Line    string  `json:"line"`
+	Order   int     `json:"order,omitempty"` // signed order in a signed fit (0: the zero order, where RefNM is 0)
 	RefNM   float64 `json:"ref_nm"`
 	PX      float64 `json:"px"`
 	FitNM   float64 `json:"fit_nm"`
@@ -113,7 +164,8 @@ func (f *Float) UnmarshalJSON(b []byte) error {
 	return nil
 }
 
-// Wavelength returns the air wavelength at profile position p, nm.
+// Wavelength returns the air wavelength at profile position p, nm; for a
+// signed dispersion, m·λ (see Resolve).
 func (d Dispersion) Wavelength(p float64) float64 { return d.eval(p, d.Params, nil) }
 
 // Slope returns dλ/dp at p, nm/px.
@@ -315,7 +367,10 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 	d := Dispersion{Model: model, MinPX: lo, MaxPX: hi, Center: (lo + hi) / 2, Scale: math.Max((hi-lo)/2, 1)}
 	y := make([]float64, n)
 	for i, p := range pts {
-		y[i] = p.NM
+		y[i] = p.target()
+		if p.order() != 1 {
+			d.Signed = true
+		}
 	}
 	// A straight line through the points starts both the slopes and the
 	// nonlinear fit.
@@ -325,6 +380,7 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 	}
 	slope := func(p float64) float64 { return lin[1] / d.Scale }
 	var init []float64
+	var starts [][]float64 // other starting points worth a try
 	switch model {
 	case ModelPoly1, ModelPoly2, ModelPoly3:
 		init = make([]float64, map[string]int{ModelPoly1: 2, ModelPoly2: 3, ModelPoly3: 4}[model])
@@ -342,12 +398,21 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 		if err != nil {
 			return Dispersion{}, err
 		}
-		// (a + bt)(1 − ct²/2 + …) = a + bt − (ac/2)t² + …
+		// (a + bt)(1 − ct²/2 + …) = a + bt − (ac/2)t² − (bc/2)t³ + …: c
+		// from the quadratic term (one first order, a ≫ 0) or the cubic
+		// one (both orders about the zero order, a ≈ 0), or a guess; the
+		// start that fits best is kept.
 		cc := 0.01
 		if q[0] != 0 && -2*q[2]/q[0] > 0 {
 			cc = -2 * q[2] / q[0]
 		}
 		init = []float64{q[0], q[1], cc}
+		starts = [][]float64{init, {q[0], q[1], 0.1}, {q[0], q[1], 1}}
+		if n >= 5 {
+			if q3, err := polyFit(pts, 3, c, d.Scale, nil); err == nil && q3[1] != 0 && -2*q3[3]/q3[1] > 0 {
+				starts = append(starts, []float64{q3[0], q3[1], -2 * q3[3] / q3[1]})
+			}
+		}
 	default:
 		return Dispersion{}, fmt.Errorf("calibrate: unknown dispersion model %q", model)
 	}
@@ -360,6 +425,7 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 			if p.SigmaNM > 0 {
 				rs = p.SigmaNM
 			}
+			rs *= math.Abs(float64(p.order()))
 			sig[i] = math.Sqrt(s*s + rs*rs)
 		}
 		dd := d
@@ -374,12 +440,20 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 			yy = append(append([]float64(nil), y...), dNom)
 			ss = append(append([]float64(nil), sig...), dNom*tol)
 		}
-		res, err = lsq.Fit(lsq.Problem{Y: yy, Sigma: ss, Model: func(i int, params, grad []float64) float64 {
+		prob := lsq.Problem{Y: yy, Sigma: ss, Model: func(i int, params, grad []float64) float64 {
 			if i == n {
 				return gratingD(params, grad)
 			}
 			return dd.eval(pts[i].PX, params, grad)
-		}}, init)
+		}}
+		res, err = lsq.Fit(prob, init)
+		if iter == 0 {
+			for _, st := range starts[min(1, len(starts)):] {
+				if r, e := lsq.Fit(prob, st); e == nil && (err != nil || r.ChiSq < res.ChiSq) {
+					res, err = r, nil
+				}
+			}
+		}
 		if err != nil {
 			return Dispersion{}, fmt.Errorf("calibrate: %s fit: %w", model, err)
 		}
@@ -410,10 +484,23 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 	d.AICc = Float(aicc)
 	var ss float64
 	for _, p := range pts {
-		f := d.Wavelength(p.PX)
-		r := p.NM - f
+		// In λ, not m·λ: the fitted wavelength of a line in order m is
+		// F/m. The zero order's residual is −F, in nm of m·λ.
+		f, ref, m := d.Wavelength(p.PX), p.target(), p.order()
+		r := ref - f
+		rp := r / d.Slope(p.PX)
+		if m != 0 {
+			f, ref, r = f/float64(m), ref/float64(m), r/float64(m)
+		}
 		ss += r * r
-		d.Residuals = append(d.Residuals, Residual{Line: p.Line, RefNM: p.NM, PX: p.PX, FitNM: f, ResidNM: r, ResidPX: r / d.Slope(p.PX)})
+		res := Residual{Line: p.Line, RefNM: ref, PX: p.PX, FitNM: f, ResidNM: r, ResidPX: rp}
+		if d.Signed {
+			res.Order = m
+		}
+		if p.ZeroOrder {
+			d.ZeroOrderPX = p.PX
+		}
+		d.Residuals = append(d.Residuals, res)
 	}
 	d.RMSNM = math.Sqrt(ss / float64(n))
 	return d, nil
@@ -435,7 +522,7 @@ func polyFit(pts []Point, deg int, center, scale float64, sig []float64) ([]floa
 			a.Set(i, j, w*tk)
 			tk *= t
 		}
-		b.SetVec(i, w*p.NM)
+		b.SetVec(i, w*p.target())
 	}
 	var x mat.VecDense
 	if err := x.SolveVec(a, b); err != nil {
@@ -487,8 +574,9 @@ func floorFor(pts []Point, d Dispersion, opt FitOptions) float64 {
 			if p.SigmaNM > 0 {
 				rs = p.SigmaNM
 			}
+			rs *= math.Abs(float64(p.order()))
 			v := sl*sl*(p.SigmaPX*p.SigmaPX+f*f) + rs*rs
-			r := p.NM - d.Wavelength(p.PX)
+			r := p.target() - d.Wavelength(p.PX)
 			s += r * r / v
 		}
 		return s

@@ -22,6 +22,9 @@ type Peak struct {
 type Match struct {
 	Peak int  // index into the peaks given
 	Line Line // the reference line
+	// Order is the line's signed diffraction order (±1) once FindOrders
+	// has placed the zero order; 0 when only one first order is known.
+	Order int
 }
 
 // Identification is the assignment of a photo's peaks to one lamp's lines.

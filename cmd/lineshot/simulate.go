@@ -25,6 +25,7 @@ Examples:
   lineshot simulate --lamp mercury -o hg.jpg
   lineshot simulate --lamp hydrogen --lines-per-mm 300 --size 1280x720 --tilt -5 -o h.jpg
   lineshot simulate --lamp mercury --focal-px 1500 --psf 1.5 --quality 75 -o webcam-hg.jpg
+  lineshot simulate --lamp mercury --lines-per-mm 300 --orders -1,0,1 --peak 0.5 -o both-sides.jpg
 `
 
 func runSimulate(args []string, stdout, stderr io.Writer) error {
@@ -34,6 +35,9 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 	lamp := fs.StringP("lamp", "l", "mercury", "lamp: mercury, hydrogen, helium, neon, sodium, cfl")
 	lpm := fs.Float64("lines-per-mm", 600, "grating lines per mm")
 	order := fs.Int("order", 1, "diffraction order")
+	orders := fs.IntSlice("orders", nil, "signed orders to render, e.g. -1,0,1 (0: the white zero order); default: --order alone")
+	zeroGain := fs.Float64("zero-order-gain", 1, "zero order brightness per line relative to the first order")
+	gradient := fs.Float64("background-gradient", 0, "room-light slope: background change from left to right edge, fraction of full scale")
 	size := fs.String("size", "1920x1080", "image size WIDTHxHEIGHT in px")
 	focal := fs.Float64("focal-px", 0, "camera focal length in px; 0: frame 380-720 nm across 85% of the width")
 	camAngle := fs.Float64("camera-angle", 0, "angle of the camera axis from the grating normal, degrees; 0: aim at the middle of 380-720 nm")
@@ -70,7 +74,8 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 	}
 	p := synth.Params{Width: w, Height: h, LinesPerMM: *lpm, Order: *order, FocalPX: *focal, CameraAngleDeg: *camAngle,
 		TiltDeg: *tilt, PSFSigmaPX: *psf, LineHeightPX: *height, PeakLevel: *peak, FullWell: *fullWell,
-		ReadNoise: *readNoise, Background: *bg, Seed: *seed, Emissions: emissions(l)}
+		ReadNoise: *readNoise, Background: *bg, Seed: *seed, Emissions: emissions(l),
+		Orders: *orders, ZeroOrderGain: *zeroGain, BackgroundGradient: *gradient}
 	img, truth, err := synth.Render(p)
 	if err != nil {
 		return usagef("simulate: %v", err)

@@ -54,7 +54,21 @@ type Params struct {
 	FullWell       float64    `json:"full_well_e"`      // electrons at full scale; 0 → 6000
 	ReadNoise      float64    `json:"read_noise_e"`     // electrons rms; 0 → 4
 	Background     float64    `json:"background"`       // uniform background, fraction of full scale; 0 → 0.01
-	NoNoise        bool       `json:"no_noise"`         // render the expected image without noise
+	// Orders lists the signed diffraction orders to render; empty means
+	// just Order. 0 is the zero order: the slit seen straight through the
+	// grating, every line at once, white. Negative orders appear on the
+	// other side of it.
+	Orders []int `json:"orders,omitempty"`
+	// ZeroOrderGain is the zero order's brightness per line relative to
+	// the first order (0 → 1); HigherOrderGain that of orders |m| ≥ 2
+	// (0 → 0.15). Demo values (from memory): real gratings vary widely.
+	ZeroOrderGain   float64 `json:"zero_order_gain,omitempty"`
+	HigherOrderGain float64 `json:"higher_order_gain,omitempty"`
+	// BackgroundGradient adds a room-light slope to the background: its
+	// change from the left edge of the frame to the right, fraction of
+	// full scale (the background stays at Background in the middle).
+	BackgroundGradient float64 `json:"background_gradient,omitempty"`
+	NoNoise            bool    `json:"no_noise"` // render the expected image without noise
 	Seed           uint64     `json:"seed"`
 	Emissions      []Emission `json:"emissions"`
 }
@@ -88,9 +102,25 @@ func (p Params) Defaults() Params {
 	if p.Background == 0 {
 		p.Background = 0.01
 	}
+	if len(p.Orders) == 0 {
+		p.Orders = []int{p.Order}
+	}
+	if p.ZeroOrderGain == 0 {
+		p.ZeroOrderGain = 1
+	}
+	if p.HigherOrderGain == 0 {
+		p.HigherOrderGain = 0.15
+	}
+	// Aim at the middle of what the orders send out between 380 and 720 nm
+	// (just the first order: its own middle; −1, 0, +1: straight through).
 	d := p.dNM()
-	lo := math.Asin(math.Min(1, float64(p.Order)*380/d))
-	hi := math.Asin(math.Min(1, float64(p.Order)*720/d))
+	lo, hi := math.Inf(1), math.Inf(-1)
+	for _, m := range p.Orders {
+		for _, nm := range []float64{380, 720} {
+			a := math.Asin(math.Max(-1, math.Min(1, float64(m)*nm/d)))
+			lo, hi = math.Min(lo, a), math.Max(hi, a)
+		}
+	}
 	if p.CameraAngleDeg == 0 {
 		p.CameraAngleDeg = (lo + hi) / 2 * 180 / math.Pi
 	}
@@ -110,6 +140,8 @@ type TruthLine struct {
 	X          float64 `json:"x"` // centre at η = 0, original-image px
 	Y          float64 `json:"y"`
 	InFrame    bool    `json:"in_frame"`
+	Order      int     `json:"order,omitempty"`      // signed diffraction order (0 in older files: the first)
+	Zero       bool    `json:"zero_order,omitempty"` // the zero order (NM is 0)
 	Dispersion float64 `json:"nm_per_px"` // local dispersion along the band
 	PeakE      float64 `json:"peak_e"`    // expected peak signal, electrons, strongest channel
 }
@@ -135,6 +167,13 @@ func (p Params) Validate() error {
 		return fmt.Errorf("synth: tilt %g° outside ±45°", p.TiltDeg)
 	case len(p.Emissions) == 0:
 		return errors.New("synth: no emission lines to render")
+	case len(p.Orders) > 7:
+		return errors.New("synth: at most 7 orders")
+	}
+	for _, m := range p.Orders {
+		if m < -5 || m > 5 {
+			return fmt.Errorf("synth: order %d outside -5..5", m)
+		}
 	}
 	return nil
 }
@@ -157,13 +196,15 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 	tc := p.CameraAngleDeg * math.Pi / 180
 	st, ct := math.Sincos(p.TiltDeg * math.Pi / 180)
 	sc, cc := math.Sincos(tc)
-	dm := p.dNM() / float64(p.Order)
+	d := p.dNM()
 	fw := p.FullWell
 
 	// Scale strengths so the brightest line peaks at PeakLevel of full scale
-	// in its strongest channel. A line of unit amplitude peaks at 1 on a
-	// Gaussian cross-section times the slit profile's plateau (1).
+	// in its strongest channel in the first order. A line of unit amplitude
+	// peaks at 1 on a Gaussian cross-section times the slit profile's
+	// plateau (1).
 	type ln struct {
+		dm      float64 // d/m, nm: this line's order
 		nm, amp float64
 		rgb     [3]float64
 		xu      float64 // unrolled x of the line at η = 0
@@ -181,35 +222,66 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 		return nil, Truth{}, errors.New("synth: every emission has zero strength or lies outside the camera's response")
 	}
 	k := p.PeakLevel * fw / maxv
-	for _, e := range p.Emissions {
-		s := e.NM / dm
-		if math.Abs(s) >= 1 {
-			continue // this order does not exist for this line
-		}
-		th := math.Asin(s)
-		if math.Abs(th-tc) >= math.Pi/2*0.95 {
+	addTruth := func(t TruthLine, xu float64) {
+		t.X = cx + (xu-cx)*ct
+		t.Y = cy + (xu-cx)*st
+		t.InFrame = t.X >= 0 && t.X <= float64(W-1) && t.Y >= 0 && t.Y <= float64(H-1)
+		truth.Lines = append(truth.Lines, t)
+	}
+	zero := false
+	var zeroRGB [3]float64 // the zero order's amplitude per channel
+	zeroXU := cx + f*math.Tan(-tc)
+	for _, m := range p.Orders {
+		if m == 0 {
+			zero = true
 			continue
 		}
-		xu := cx + f*math.Tan(th-tc)
-		r := response(e.NM)
-		l := ln{nm: e.NM, amp: e.Strength * k, rgb: r, xu: xu, sigNM: e.FWHMNM / 2.3548200450309493}
-		lines = append(lines, l)
-		x := cx + (xu-cx)*ct
-		y := cy + (xu-cx)*st
-		X := (xu - cx) / f
-		disp := dm * math.Cos(tc+math.Atan(X)) / (1 + X*X) / f
-		truth.Lines = append(truth.Lines, TruthLine{
-			NM: e.NM, Name: e.Name, X: x, Y: y, Dispersion: disp, PeakE: l.amp * math.Max(r[0], math.Max(r[1], r[2])),
-			InFrame: x >= 0 && x <= float64(W-1) && y >= 0 && y <= float64(H-1),
-		})
+		gain := 1.0
+		if m > 1 || m < -1 {
+			gain = p.HigherOrderGain
+		}
+		dm := d / float64(m)
+		for _, e := range p.Emissions {
+			s := e.NM / dm
+			if math.Abs(s) >= 1 {
+				continue // this order does not exist for this line
+			}
+			th := math.Asin(s)
+			if math.Abs(th-tc) >= math.Pi/2*0.95 {
+				continue
+			}
+			xu := cx + f*math.Tan(th-tc)
+			r := response(e.NM)
+			l := ln{dm: dm, nm: e.NM, amp: e.Strength * k * gain, rgb: r, xu: xu, sigNM: e.FWHMNM / 2.3548200450309493}
+			lines = append(lines, l)
+			X := (xu - cx) / f
+			addTruth(TruthLine{NM: e.NM, Name: e.Name, Order: m, Dispersion: math.Abs(dm) * math.Cos(tc+math.Atan(X)) / (1 + X*X) / f,
+				PeakE: l.amp * math.Max(r[0], math.Max(r[1], r[2]))}, xu)
+		}
+	}
+	if zero {
+		for _, e := range p.Emissions {
+			r := response(e.NM)
+			for ch := range zeroRGB {
+				zeroRGB[ch] += e.Strength * k * p.ZeroOrderGain * r[ch]
+			}
+		}
+		addTruth(TruthLine{Name: "zero order", Zero: true, PeakE: math.Max(zeroRGB[0], math.Max(zeroRGB[1], zeroRGB[2]))}, zeroXU)
 	}
 	truth.Params = p
 
 	// Expected signal, electrons, per channel.
 	sig := make([]float32, 3*W*H)
-	bg := float32(p.Background * fw)
-	for i := range sig {
-		sig[i] = bg
+	for j := 0; j < H; j++ {
+		for i := 0; i < W; i++ {
+			b := p.Background
+			if W > 1 {
+				b += p.BackgroundGradient * (float64(i)/float64(W-1) - 0.5)
+			}
+			v := float32(math.Max(0, b) * fw)
+			base := 3 * (j*W + i)
+			sig[base], sig[base+1], sig[base+2] = v, v, v
+		}
 	}
 	halfH := p.LineHeightPX / 2 / f // slit half-height as an angle
 	sEta := p.PSFSigmaPX / f
@@ -218,6 +290,9 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 	xMin, xMax := math.Inf(1), math.Inf(-1)
 	for _, l := range lines {
 		xMin, xMax = math.Min(xMin, l.xu), math.Max(xMax, l.xu)
+	}
+	if zero {
+		xMin, xMax = math.Min(xMin, zeroXU), math.Max(xMax, zeroXU)
 	}
 	xMin -= 6*p.PSFSigmaPX + 2*yMargin*yMargin/f + 2
 	xMax += 6*p.PSFSigmaPX + 2*yMargin*yMargin/f + 2
@@ -245,13 +320,13 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 				continue
 			}
 			kx := (X*cc + sc) / nrm
-			w := kx * dm
-			// dw/dx along the band, nm per px, for the blur width.
-			dwdx := dm * (cc*(1+Y*Y) - sc*X) / (nrm * nrm * nrm) / f
-			sw := p.PSFSigmaPX * math.Abs(dwdx)
+			// dkx/dx along the band, per px, for the blur width.
+			dkdx := (cc*(1+Y*Y) - sc*X) / (nrm * nrm * nrm) / f
 			slit := 0.5 * (math.Erf((eta+halfH)/(math.Sqrt2*sEta)) - math.Erf((eta-halfH)/(math.Sqrt2*sEta)))
 			base := 3 * (j*W + i)
 			for _, l := range lines {
+				w := kx * l.dm
+				sw := p.PSFSigmaPX * math.Abs(dkdx*l.dm)
 				d := (w - l.nm) / math.Sqrt(sw*sw+l.sigNM*l.sigNM)
 				if d > 7 || d < -7 {
 					continue
@@ -260,6 +335,16 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 				sig[base] += float32(s * l.rgb[0])
 				sig[base+1] += float32(s * l.rgb[1])
 				sig[base+2] += float32(s * l.rgb[2])
+			}
+			if zero {
+				// Straight through: kx = 0, blurred by the PSF alone.
+				d := kx / dkdx / p.PSFSigmaPX
+				if d < 7 && d > -7 {
+					s := math.Exp(-d*d/2) * slit
+					sig[base] += float32(s * zeroRGB[0])
+					sig[base+1] += float32(s * zeroRGB[1])
+					sig[base+2] += float32(s * zeroRGB[2])
+				}
 			}
 		}
 	}
