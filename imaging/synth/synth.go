@@ -41,19 +41,19 @@ type Emission struct {
 // Params describes the lamp, grating and camera. The zero value of each
 // optional field (marked) picks a sensible default, see Defaults.
 type Params struct {
-	Width          int        `json:"width"`  // px; 0 (with Height 0) → 1920×1080
-	Height         int        `json:"height"` // px
-	LinesPerMM     float64    `json:"lines_per_mm"`
-	Order          int        `json:"order"`            // diffraction order; 0 → 1
-	FocalPX        float64    `json:"focal_px"`         // 0 → fit 380-720 nm into 85% of the width
-	CameraAngleDeg float64    `json:"camera_angle_deg"` // 0 → aimed at the middle of 380-720 nm
-	TiltDeg        float64    `json:"tilt_deg"`         // roll about the optical axis, degrees; positive turns the band clockwise on screen (image y points down)
-	PSFSigmaPX     float64    `json:"psf_sigma_px"`     // Gaussian blur σ; 0 → 1.2
-	LineHeightPX   float64    `json:"line_height_px"`   // length of each line image; 0 → Height/10
-	PeakLevel      float64    `json:"peak_level"`       // brightest line's peak in its strongest channel, fraction of full scale; 0 → 0.8 (above 1 saturates)
-	FullWell       float64    `json:"full_well_e"`      // electrons at full scale; 0 → 6000
-	ReadNoise      float64    `json:"read_noise_e"`     // electrons rms; 0 → 4
-	Background     float64    `json:"background"`       // uniform background, fraction of full scale; 0 → 0.01
+	Width          int     `json:"width"`  // px; 0 (with Height 0) → 1920×1080
+	Height         int     `json:"height"` // px
+	LinesPerMM     float64 `json:"lines_per_mm"`
+	Order          int     `json:"order"`            // diffraction order; 0 → 1
+	FocalPX        float64 `json:"focal_px"`         // 0 → fit 380-720 nm into 85% of the width
+	CameraAngleDeg float64 `json:"camera_angle_deg"` // 0 → aimed at the middle of 380-720 nm
+	TiltDeg        float64 `json:"tilt_deg"`         // roll about the optical axis, degrees; positive turns the band clockwise on screen (image y points down)
+	PSFSigmaPX     float64 `json:"psf_sigma_px"`     // Gaussian blur σ; 0 → 1.2
+	LineHeightPX   float64 `json:"line_height_px"`   // length of each line image; 0 → Height/10
+	PeakLevel      float64 `json:"peak_level"`       // brightest line's peak in its strongest channel, fraction of full scale; 0 → 0.8 (above 1 saturates)
+	FullWell       float64 `json:"full_well_e"`      // electrons at full scale; 0 → 6000
+	ReadNoise      float64 `json:"read_noise_e"`     // electrons rms; 0 → 4
+	Background     float64 `json:"background"`       // uniform background, fraction of full scale; 0 → 0.01
 	// Orders lists the signed diffraction orders to render; empty means
 	// just Order. 0 is the zero order: the slit seen straight through the
 	// grating, every line at once, white. Negative orders appear on the
@@ -67,10 +67,10 @@ type Params struct {
 	// BackgroundGradient adds a room-light slope to the background: its
 	// change from the left edge of the frame to the right, fraction of
 	// full scale (the background stays at Background in the middle).
-	BackgroundGradient float64 `json:"background_gradient,omitempty"`
-	NoNoise            bool    `json:"no_noise"` // render the expected image without noise
-	Seed           uint64     `json:"seed"`
-	Emissions      []Emission `json:"emissions"`
+	BackgroundGradient float64    `json:"background_gradient,omitempty"`
+	NoNoise            bool       `json:"no_noise"` // render the expected image without noise
+	Seed               uint64     `json:"seed"`
+	Emissions          []Emission `json:"emissions"`
 }
 
 // Defaults returns p with every zero optional field set.
@@ -142,8 +142,8 @@ type TruthLine struct {
 	InFrame    bool    `json:"in_frame"`
 	Order      int     `json:"order,omitempty"`      // signed diffraction order (0 in older files: the first)
 	Zero       bool    `json:"zero_order,omitempty"` // the zero order (NM is 0)
-	Dispersion float64 `json:"nm_per_px"` // local dispersion along the band
-	PeakE      float64 `json:"peak_e"`    // expected peak signal, electrons, strongest channel
+	Dispersion float64 `json:"nm_per_px"`            // local dispersion along the band
+	PeakE      float64 `json:"peak_e"`               // expected peak signal, electrons, strongest channel
 }
 
 // Truth is everything Render knows about the picture it made.
