@@ -185,13 +185,19 @@ func (d Dispersion) Sigma(p, sigmaPX float64) float64 {
 // Covariance returns the covariance matrix of the wavelengths at positions
 // ps with independent position uncertainties sps. Off-diagonal terms come
 // from the shared calibration; they matter when the wavelengths are fitted
-// together, as in the Rydberg fit.
+// together, as in the Rydberg fit. For a signed dispersion they are the
+// wavelengths Resolve gives, on either side of the zero order.
 func (d Dispersion) Covariance(ps, sps []float64) *mat.SymDense {
 	k := len(d.Params)
 	g := make([][]float64, len(ps))
 	for i, p := range ps {
 		g[i] = make([]float64, k)
-		d.eval(p, d.Params, g[i])
+		if v := d.eval(p, d.Params, g[i]); d.Signed && v < 0 {
+			// λ = −F on the negative side: the gradient turns over.
+			for a := range g[i] {
+				g[i][a] = -g[i][a]
+			}
+		}
 	}
 	c := mat.NewSymDense(len(ps), nil)
 	for i := range ps {

@@ -79,8 +79,12 @@ type Strip struct {
 	FrameW, FrameH int
 
 	Background float64 // median frame level, linear, fraction of full scale
-	Noise      float64 // robust σ of the frame, same units
-	Saturated  float64 // fraction of band pixels holding a saturated value
+	// BackgroundRange is how much a smooth background (room light) varies
+	// across the frame, same units; it is subtracted before the band is
+	// looked for, and beside the band in the profile.
+	BackgroundRange float64
+	Noise           float64 // robust σ of the frame, same units
+	Saturated       float64 // fraction of band pixels holding a saturated value
 	// CurvaturePX is how far the line images bow at the band's top and
 	// bottom edge relative to its centre row, px (followed in the profile).
 	CurvaturePX float64
@@ -321,6 +325,7 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	if err != nil {
 		return Strip{}, err
 	}
+	gradient := flatten(sp)
 	bg, noise, peak := levels(sp)
 	if !opt.ROI.Empty() {
 		// Only the user's rectangle may hold the band: blank the rest.
@@ -442,7 +447,7 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	ang = s.AngleDeg
 	s.Timing.Locate, s.Timing.Straighten = located, time.Since(t1)
 	s.FrameW, s.FrameH = fr.w, fr.h
-	s.Background, s.Noise = bg/3, noise/3
+	s.Background, s.Noise, s.BackgroundRange = bg/3, noise/3, gradient/3
 	cx, cy := float64(fr.w-1)/2, float64(fr.h-1)/2
 	sn, cs := math.Sincos(ang * math.Pi / 180)
 	s.OpticalCenter = (cx-s.Origin[0])*cs + (cy-s.Origin[1])*sn
@@ -468,6 +473,9 @@ func qualityWarnings(s Strip, cut bool) []string {
 	}
 	if math.Abs(s.ResidualTiltDeg) > 0.05 {
 		out = append(out, fmt.Sprintf("the lines still lean %.3f° after straightening (curved or sheared line images?): centres may be smeared", s.ResidualTiltDeg))
+	}
+	if s.BackgroundRange > 0.15 {
+		out = append(out, fmt.Sprintf("room light varies by %.0f%% of full scale across the frame: it is subtracted, but a darker room gives cleaner lines", 100*s.BackgroundRange))
 	}
 	if s.Background > 0.3 {
 		out = append(out, fmt.Sprintf("the background is at %.0f%% of full scale: darken the room or shield the camera", 100*s.Background))

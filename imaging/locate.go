@@ -155,3 +155,126 @@ func chord(w, h int, deg, v float64) (u0, u1 float64, ok bool) {
 	}
 	return lo, hi, true
 }
+
+// flatten subtracts a smooth background from p in place: a quadratic
+// surface in x and y fitted by least squares to the pixels that are not
+// bright (iteratively, dropping those more than 3σ from the surface), then
+// adds back the surface's median so that levels still sees the frame's
+// background level. Room light gives photos a slope or a bowl across the
+// frame; left in, its bright side outweighs a faint band when the band is
+// looked for. Lines themselves are untouched (the fit excludes them);
+// straighten takes its own per-column background beside the band.
+// It returns the surface's range over the frame, in p's units.
+func flatten(p plane) float64 {
+	if p.w < 8 || p.h < 8 {
+		return 0
+	}
+	step := max(1, int(math.Sqrt(float64(p.w*p.h)/40000)))
+	sx, sy := 2/float64(p.w-1), 2/float64(p.h-1)
+	basis := func(x, y int, b *[6]float64) {
+		u, v := float64(x)*sx-1, float64(y)*sy-1
+		*b = [6]float64{1, u, v, u * u, u * v, v * v}
+	}
+	eval := func(c [6]float64, x, y int) float64 {
+		var b [6]float64
+		basis(x, y, &b)
+		var s float64
+		for k := range b {
+			s += c[k] * b[k]
+		}
+		return s
+	}
+	med, sigma, _ := levels(p)
+	var c [6]float64
+	c[0] = med
+	cut := 5 * sigma
+	for iter := 0; iter < 4; iter++ {
+		var ata [6][6]float64
+		var atb [6]float64
+		var res []float64
+		var b [6]float64
+		for y := 0; y < p.h; y += step {
+			for x := 0; x < p.w; x += step {
+				r := float64(p.at(x, y)) - eval(c, x, y)
+				if iter > 0 {
+					res = append(res, math.Abs(r))
+				}
+				if math.Abs(r) > cut && cut > 0 {
+					continue
+				}
+				basis(x, y, &b)
+				v := float64(p.at(x, y))
+				for i := range b {
+					atb[i] += b[i] * v
+					for j := range b {
+						ata[i][j] += b[i] * b[j]
+					}
+				}
+			}
+		}
+		nc, ok := solve6(ata, atb)
+		if !ok {
+			return 0
+		}
+		c = nc
+		if len(res) > 0 {
+			sort.Float64s(res)
+			cut = 3 * 1.4826 * res[len(res)/2]
+		}
+	}
+	// Subtract the surface, keeping its median level.
+	lo, hi := math.Inf(1), math.Inf(-1)
+	var vals []float64
+	for y := 0; y < p.h; y += step {
+		for x := 0; x < p.w; x += step {
+			v := eval(c, x, y)
+			vals = append(vals, v)
+			lo, hi = math.Min(lo, v), math.Max(hi, v)
+		}
+	}
+	sort.Float64s(vals)
+	level := vals[len(vals)/2]
+	for y := 0; y < p.h; y++ {
+		row := p.pix[y*p.w : (y+1)*p.w]
+		for x := range row {
+			row[x] -= float32(eval(c, x, y) - level)
+		}
+	}
+	return hi - lo
+}
+
+// solve6 solves the 6×6 normal equations a·x = b by Gaussian elimination
+// with partial pivoting (too small a system to bring in a linear-algebra
+// package for); false when a is singular.
+func solve6(a [6][6]float64, b [6]float64) ([6]float64, bool) {
+	const n = 6
+	for col := 0; col < n; col++ {
+		piv := col
+		for r := col + 1; r < n; r++ {
+			if math.Abs(a[r][col]) > math.Abs(a[piv][col]) {
+				piv = r
+			}
+		}
+		if math.Abs(a[piv][col]) < 1e-12 {
+			return [6]float64{}, false
+		}
+		a[col], a[piv] = a[piv], a[col]
+		b[col], b[piv] = b[piv], b[col]
+		for r := col + 1; r < n; r++ {
+			f := a[r][col] / a[col][col]
+			for k := col; k < n; k++ {
+				a[r][k] -= f * a[col][k]
+			}
+			b[r] -= f * b[col]
+		}
+	}
+	var x [6]float64
+	for r := n - 1; r >= 0; r-- {
+		s := b[r]
+		for k := r + 1; k < n; k++ {
+			s -= a[r][k] * x[k]
+		}
+		x[r] = s / a[r][r]
+	}
+	return x, true
+}

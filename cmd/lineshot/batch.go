@@ -724,7 +724,7 @@ func writeBatchOutputs(out string, doc batchDoc) error {
 func resultsCSV(w io.Writer, doc batchDoc) error {
 	cw := csv.NewWriter(w)
 	cw.Write([]string{"bench", "file", "role", "lamp", "x", "y", "position_px", "position_err_px", "wavelength_nm", "wavelength_err_nm",
-		"vacuum_nm", "fwhm_px", "snr", "saturated", "id", "ref_nm", "delta_nm"})
+		"vacuum_nm", "fwhm_px", "snr", "saturated", "id", "ref_nm", "delta_nm", "order"})
 	f := func(v float64, p int) string {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
 			return ""
@@ -742,8 +742,12 @@ func resultsCSV(w io.Writer, doc batchDoc) error {
 					if r.Calibration == nil {
 						wl, we, vac = "", "", ""
 					}
+					order := ""
+					if l.Order != 0 || l.ID == "zero order" {
+						order = strconv.Itoa(l.Order)
+					}
 					cw.Write([]string{b.Name, r.File, set.role, r.Lamp, f(l.X, 3), f(l.Y, 3), f(l.PositionPX, 3), f(l.PositionErrPX, 4),
-						wl, we, vac, f(l.FWHMPX, 3), f(l.SNR, 1), strconv.FormatBool(l.Saturated), l.ID, f(l.RefNM, 4), f(l.DeltaNM, 4)})
+						wl, we, vac, f(l.FWHMPX, 3), f(l.SNR, 1), strconv.FormatBool(l.Saturated), l.ID, f(l.RefNM, 4), f(l.DeltaNM, 4), order})
 				}
 			}
 		}

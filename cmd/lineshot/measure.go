@@ -278,29 +278,69 @@ func combineCalibration(ids []selfID, results []imageResult, paths []string, cfg
 		FrameW: first.FrameW, FrameH: first.FrameH}
 	var pts []calibrate.Point
 	var lamps []string
+	fopt := calibrate.FitOptions{Model: cfg.model, OpticalCenterPX: cal.position(float64(first.FrameW-1)/2, float64(first.FrameH-1)/2),
+		LinesPerMM: cfg.linesPerMM, EstimateFloor: true}
+	// Each photo's orders (zero order, both first orders) from its own
+	// lines; then every point in the first photo's geometry.
+	sets := make([]calibrate.OrderSet, len(ids))
+	anySigned := false
+	for k, id := range ids {
+		o := fopt
+		o.OpticalCenterPX, o.EstimateFloor = id.m.strip.OpticalCenter, false
+		sets[k] = calibrate.FindOrders(id.m.calPeaks(), id.id, id.lamp, o)
+		anySigned = anySigned || sets[k].Zero >= 0 || sets[k].Opposite > 0
+	}
 	for k, id := range ids {
 		lamps = append(lamps, id.id.Lamp)
-		for _, mt := range id.id.Matches {
-			p := id.m.found.Peaks[mt.Peak]
-			x, y := id.m.strip.ToImage(p.Center)
-			pts = append(pts, calibrate.Point{PX: cal.position(x, y), SigmaPX: p.Sigma, NM: mt.Line.NM, SigmaNM: mt.Line.SigmaNM, Line: mt.Line.Name})
+		set := sets[k].Points
+		// A photo with one first order joining a signed fit: its lines are
+		// on the side where m·λ rises with position, as the others' are.
+		m := 0
+		if anySigned && sets[k].Zero < 0 && sets[k].Opposite == 0 {
+			m = oneSidedOrder(set)
+		}
+		for _, p := range set {
+			x, y := id.m.strip.ToImage(p.PX)
+			p.PX = cal.position(x, y)
+			if m != 0 {
+				p.Order = m
+			}
+			pts = append(pts, p)
 		}
 		if k > 0 {
 			results[k].Warnings = append(results[k].Warnings, setupMoved(id.m.strip, cal)...)
 		}
 	}
 	cal.Lamp = strings.Join(lamps, "+")
-	d, err := calibrate.FitDispersion(pts, calibrate.FitOptions{Model: cfg.model, OpticalCenterPX: cal.position(float64(first.FrameW-1)/2, float64(first.FrameH-1)/2),
-		LinesPerMM: cfg.linesPerMM, EstimateFloor: true})
+	d, err := calibrate.FitDispersion(pts, fopt)
 	if err != nil {
 		results[0].Error = fmt.Sprintf("%s: dispersion fit: %v", paths[0], err)
 		return calibration{}, results, fmt.Errorf("calibration %s", results[0].Error)
 	}
 	cal.Dispersion = d
 	for k, id := range ids {
-		applyCalibration(&results[k], cal, id.lamp, cfg, id.id.Matches)
+		applyCalibration(&results[k], cal, id.lamp, cfg, sets[k].Matches)
 	}
 	return cal, results, nil
+}
+
+// oneSidedOrder is the sign of the first order that calibration points of
+// one side of the zero order belong to in a signed fit, where m·λ rises
+// with position: +1 when their wavelengths rise with position, else −1.
+func oneSidedOrder(pts []calibrate.Point) int {
+	lo, hi := 0, 0
+	for i, p := range pts {
+		if p.PX < pts[lo].PX {
+			lo = i
+		}
+		if p.PX > pts[hi].PX {
+			hi = i
+		}
+	}
+	if pts[hi].NM < pts[lo].NM {
+		return -1
+	}
+	return 1
 }
 
 func readCalibration(path string) (calibration, error) {
@@ -339,8 +379,13 @@ func (c calibration) validate() error {
 	if !(d.Scale > 0) || math.IsNaN(c.AngleDeg) {
 		return errors.New("scale or angle missing")
 	}
-	for _, p := range []float64{d.MinPX, (d.MinPX + d.MaxPX) / 2, d.MaxPX} {
-		w := d.Wavelength(p)
+	check := []float64{d.MinPX, (d.MinPX + d.MaxPX) / 2, d.MaxPX}
+	if d.Signed {
+		check = check[:1:1] // the middle may be the zero order
+		check = append(check, d.MaxPX)
+	}
+	for _, p := range check {
+		w, _ := d.Resolve(p)
 		if math.IsNaN(w) || w < 100 || w > 3000 {
 			return fmt.Errorf("gives %.1f nm at %.0f px: not a plausible calibration", w, p)
 		}
@@ -378,6 +423,10 @@ type lineResult struct {
 	RefNM           float64 `json:"ref_nm,omitempty"`
 	DeltaNM         float64 `json:"delta_nm,omitempty"` // measured − reference
 	N               int     `json:"n,omitempty"`
+	// Order is the signed diffraction order (±1) when the calibration
+	// spans the zero order or both first orders; the zero order itself
+	// is the line with ID "zero order".
+	Order int `json:"order,omitempty"`
 }
 
 type calibrationOut struct {
@@ -399,6 +448,7 @@ type quality struct {
 	Band            [4][2]float64 `json:"band_corners_xy"`
 	BandHalfHeight  float64       `json:"band_half_height_px"`
 	Background      float64       `json:"background"`
+	BackgroundRange float64       `json:"background_range"`
 	Noise           float64       `json:"frame_noise"`
 	ProfileNoise    float64       `json:"profile_noise"`
 	Saturated       float64       `json:"saturated_fraction"`
@@ -446,7 +496,7 @@ func extractAndFind(path string, cfg measureConfig) (measured, error) {
 func (m measured) baseResult(path string) imageResult {
 	r := imageResult{File: path, Quality: &quality{
 		AngleDeg: m.strip.AngleDeg, Band: m.strip.Band, BandHalfHeight: m.strip.BandHalfHeight,
-		Background: m.strip.Background, Noise: m.strip.Noise, ProfileNoise: m.found.Noise, Saturated: m.strip.Saturated,
+		Background: m.strip.Background, BackgroundRange: m.strip.BackgroundRange, Noise: m.strip.Noise, ProfileNoise: m.found.Noise, Saturated: m.strip.Saturated,
 	}}
 	for _, p := range m.found.Peaks {
 		x, y := m.strip.ToImage(p.Center)
@@ -525,20 +575,16 @@ func measureSelfFrom(m measured, path string, cfg measureConfig) imageResult {
 	if r.Error != "" {
 		return r
 	}
-	var pts []calibrate.Point
-	for _, mt := range s.id.Matches {
-		p := s.m.found.Peaks[mt.Peak]
-		pts = append(pts, calibrate.Point{PX: p.Center, SigmaPX: p.Sigma, NM: mt.Line.NM, SigmaNM: mt.Line.SigmaNM, Line: mt.Line.Name})
-	}
-	d, err := calibrate.FitDispersion(pts, calibrate.FitOptions{Model: cfg.model, OpticalCenterPX: s.m.strip.OpticalCenter,
-		LinesPerMM: cfg.linesPerMM, EstimateFloor: true})
+	fopt := calibrate.FitOptions{Model: cfg.model, OpticalCenterPX: s.m.strip.OpticalCenter, LinesPerMM: cfg.linesPerMM, EstimateFloor: true}
+	ord := calibrate.FindOrders(s.m.calPeaks(), s.id, s.lamp, fopt)
+	d, err := calibrate.FitDispersion(ord.Points, fopt)
 	if err != nil {
 		r.Error = fmt.Sprintf("%s: dispersion fit: %v", path, err)
 		return r
 	}
 	cal := calibration{Schema: 1, Source: path, Lamp: s.id.Lamp, AngleDeg: s.m.strip.AngleDeg, Origin: s.m.strip.Origin,
 		FrameW: s.m.strip.FrameW, FrameH: s.m.strip.FrameH, Dispersion: d}
-	applyCalibration(&r, cal, s.lamp, cfg, s.id.Matches)
+	applyCalibration(&r, cal, s.lamp, cfg, ord.Matches)
 	if s.id.Lamp == "hydrogen" {
 		r.Warnings = append(r.Warnings, "calibrated on its own Balmer lines, so no Rydberg constant is fitted: calibrate with a mercury (or helium) photo of the same setup (--calibration-from)")
 	}
@@ -584,16 +630,18 @@ func measureWith(m measured, path string, cal calibration, cfg measureConfig) im
 		lamps = []calibrate.Lamp{l}
 	}
 	nm, sig := make([]float64, len(r.Lines)), make([]float64, len(r.Lines))
+	side := make([]int, len(r.Lines))
 	var total float64
 	for i, l := range r.Lines {
 		p := cal.position(l.X, l.Y)
-		nm[i], sig[i] = cal.Dispersion.Wavelength(p), cal.Dispersion.Sigma(p, l.PositionErrPX)
+		nm[i], side[i] = cal.Dispersion.Resolve(p)
+		sig[i] = cal.Dispersion.Sigma(p, l.PositionErrPX)
 		total += l.Height
 	}
 	best, bestScore, second := calibrate.Lamp{}, -1.0, 0.0
 	for _, l := range lamps {
 		var s float64
-		for _, mt := range calibrate.Assign(nm, sig, l, cfg.tolNM) {
+		for _, mt := range assignBySide(nm, sig, side, l, cfg.tolNM) {
 			s += r.Lines[mt.Peak].Height
 		}
 		s /= total
@@ -622,28 +670,63 @@ func measureWith(m measured, path string, cal calibration, cfg measureConfig) im
 func applyCalibration(r *imageResult, cal calibration, lamp calibrate.Lamp, cfg measureConfig, fixed []calibrate.Match) {
 	d := cal.Dispersion
 	nm, sig := make([]float64, len(r.Lines)), make([]float64, len(r.Lines))
+	side := make([]int, len(r.Lines))
 	lo, hi := d.MinPX, d.MaxPX
 	span := hi - lo
 	outside := 0
+	zero := -1
 	for i := range r.Lines {
 		l := &r.Lines[i]
 		p := cal.position(l.X, l.Y)
 		// The centroid scatter the calibration found beyond the fits' own
 		// σ applies to every photo of the setup.
 		l.PositionErrPX = math.Hypot(l.PositionErrPX, d.FloorPX)
-		l.WavelengthNM, l.WavelengthErrNM = d.Wavelength(p), d.Sigma(p, l.PositionErrPX)
+		l.WavelengthNM, side[i] = d.Resolve(p)
+		l.WavelengthErrNM = d.Sigma(p, l.PositionErrPX)
 		l.VacuumNM = calibrate.AirToVacuum(l.WavelengthNM)
+		if d.Signed {
+			l.Order = side[i]
+		}
 		nm[i], sig[i] = l.WavelengthNM, l.WavelengthErrNM
+		// The zero order: the brightest line where m·λ = 0 within the
+		// uncertainty (or a few nm, for a one-sided calibration
+		// extrapolated there), or, when the calibration photo showed it,
+		// the brightest line within a tenth of the calibrated span of
+		// where it was (so that a moved camera is noticed).
+		near := math.Abs(d.Wavelength(p)) < math.Max(4*l.WavelengthErrNM, 3)
+		if d.ZeroOrderPX != 0 {
+			near = math.Abs(p-d.ZeroOrderPX) < 0.1*span
+		}
+		if near && (zero < 0 || l.Height > r.Lines[zero].Height) {
+			zero = i
+		}
 		if p < lo-0.02*span || p > hi+0.02*span {
 			outside++
 		}
 	}
-	usedLine, usedPeak := map[float64]bool{}, map[int]bool{}
+	if zero >= 0 {
+		l := &r.Lines[zero]
+		l.ID, l.Order, l.WavelengthNM, l.VacuumNM = "zero order", 0, 0, 0
+		nm[zero] = math.NaN()
+		if d.ZeroOrderPX != 0 {
+			// The zero order does not move with the lamp: a shift along
+			// the band says the camera or grating turned.
+			if dp := cal.position(l.X, l.Y) - d.ZeroOrderPX; math.Abs(dp) > math.Max(2, 4*l.PositionErrPX) {
+				r.Warnings = append(r.Warnings, fmt.Sprintf("the zero order sits %.1f px from its place in the calibration photo: the camera or grating moved, recalibrate", dp))
+			}
+		}
+	}
+	type sideLine struct {
+		nm   float64
+		side int
+	}
+	usedLine, usedPeak := map[sideLine]bool{}, map[int]bool{}
 	label := func(mt calibrate.Match) {
-		if usedLine[mt.Line.NM] || usedPeak[mt.Peak] {
+		k := sideLine{mt.Line.NM, side[mt.Peak]}
+		if usedLine[k] || usedPeak[mt.Peak] || mt.Peak == zero {
 			return
 		}
-		usedLine[mt.Line.NM], usedPeak[mt.Peak] = true, true
+		usedLine[k], usedPeak[mt.Peak] = true, true
 		l := &r.Lines[mt.Peak]
 		l.ID, l.RefNM, l.N = mt.Line.Name, mt.Line.NM, mt.Line.N
 		l.DeltaNM = l.WavelengthNM - mt.Line.NM
@@ -651,7 +734,7 @@ func applyCalibration(r *imageResult, cal calibration, lamp calibrate.Lamp, cfg 
 	for _, mt := range fixed {
 		label(mt)
 	}
-	for _, mt := range calibrate.Assign(nm, sig, lamp, cfg.tolNM) {
+	for _, mt := range assignBySide(nm, sig, side, lamp, cfg.tolNM) {
 		label(mt)
 	}
 	out := &calibrationOut{From: cal.Source, Lamp: cal.Lamp, Dispersion: d}
@@ -663,9 +746,36 @@ func applyCalibration(r *imageResult, cal calibration, lamp calibrate.Lamp, cfg 
 		r.Warnings = append(r.Warnings, fmt.Sprintf("the calibration lines do not follow one smooth dispersion (χ²/dof = %.1f): a line may be misidentified, or the calibration photos are not of one setup", d.Birge*d.Birge))
 	}
 	if outside > 0 {
-		r.Warnings = append(r.Warnings, fmt.Sprintf("%d line(s) lie outside the calibrated range %.0f-%.0f nm: their wavelengths are extrapolated (the uncertainty says by how much)",
-			outside, d.Wavelength(lo), d.Wavelength(hi)))
+		a, _ := d.Resolve(lo)
+		b, _ := d.Resolve(hi)
+		rng := fmt.Sprintf("%.0f-%.0f nm", a, b)
+		if d.Signed {
+			rng = fmt.Sprintf("up to %.0f nm on either side of the zero order", math.Max(a, b))
+		}
+		r.Warnings = append(r.Warnings, fmt.Sprintf("%d line(s) lie outside the calibrated range %s: their wavelengths are extrapolated (the uncertainty says by how much)",
+			outside, rng))
 	}
+}
+
+// assignBySide matches wavelengths to lamp's lines separately on each side
+// of the zero order (side −1 or +1), so that a line seen in both first
+// orders is identified in both. NaN wavelengths are left out.
+func assignBySide(nm, sig []float64, side []int, lamp calibrate.Lamp, tolNM float64) []calibrate.Match {
+	var out []calibrate.Match
+	for _, sd := range []int{-1, 1} {
+		var idx []int
+		var w, s []float64
+		for i := range nm {
+			if side[i] == sd && !math.IsNaN(nm[i]) {
+				idx, w, s = append(idx, i), append(w, nm[i]), append(s, sig[i])
+			}
+		}
+		for _, mt := range calibrate.Assign(w, s, lamp, tolNM) {
+			mt.Peak = idx[mt.Peak]
+			out = append(out, mt)
+		}
+	}
+	return out
 }
 
 // fitBalmer fits the Rydberg constant to the identified Balmer lines, with

@@ -79,18 +79,24 @@ func printImage(w io.Writer, r imageResult) {
 		fmt.Fprintf(w, ", band at %.2f°, profile noise %.3g", q.AngleDeg, q.ProfileNoise)
 	}
 	fmt.Fprintln(w)
-	fmt.Fprintf(w, "  %8s %8s %10s %6s %6s %7s %10s %7s  %-10s %10s %8s\n",
+	fmt.Fprintf(w, "  %8s %8s %10s %6s %6s %7s %10s %7s  %-14s %10s %8s\n",
 		"x", "y", "pos px", "±px", "FWHM", "SNR", "λ air nm", "±nm", "line", "ref nm", "Δ nm")
 	for _, l := range r.Lines {
 		id, ref, delta := "-", "", ""
-		if l.ID != "" {
+		switch {
+		case l.ID == "zero order":
+			id = l.ID
+		case l.ID != "":
 			id, ref, delta = l.ID, fmt.Sprintf("%.4f", l.RefNM), fmt.Sprintf("%+.3f", l.DeltaNM)
+			if l.Order != 0 {
+				id += fmt.Sprintf(" (%+d)", l.Order)
+			}
 		}
 		sat := ""
 		if l.Saturated {
 			sat = " saturated"
 		}
-		fmt.Fprintf(w, "  %8.2f %8.2f %10.3f %6.3f %6.2f %7.1f %10.3f %7.3f  %-10s %10s %8s%s\n",
+		fmt.Fprintf(w, "  %8.2f %8.2f %10.3f %6.3f %6.2f %7.1f %10.3f %7.3f  %-14s %10s %8s%s\n",
 			l.X, l.Y, l.PositionPX, l.PositionErrPX, l.FWHMPX, l.SNR, l.WavelengthNM, l.WavelengthErrNM, id, ref, delta, sat)
 	}
 	if c := r.Calibration; c != nil {
@@ -108,9 +114,16 @@ func printImage(w io.Writer, r imageResult) {
 		if len(models) > 1 {
 			fmt.Fprintf(w, "    models compared: %s\n", strings.Join(models, ", "))
 		}
-		fmt.Fprintf(w, "    %-10s %10s %10s %9s %8s\n", "line", "ref nm", "fit nm", "resid nm", "resid px")
+		fmt.Fprintf(w, "    %-14s %10s %10s %9s %8s\n", "line", "ref nm", "fit nm", "resid nm", "resid px")
 		for _, res := range d.Residuals {
-			fmt.Fprintf(w, "    %-10s %10.4f %10.4f %+9.4f %+8.3f\n", res.Line, res.RefNM, res.FitNM, res.ResidNM, res.ResidPX)
+			name := res.Line
+			if res.Order != 0 {
+				name += fmt.Sprintf(" (%+d)", res.Order)
+			}
+			fmt.Fprintf(w, "    %-14s %10.4f %10.4f %+9.4f %+8.3f\n", name, res.RefNM, res.FitNM, res.ResidNM, res.ResidPX)
+		}
+		if d.Signed {
+			fmt.Fprintln(w, "    (signed fit across the zero order: (+1) and (-1) are the two first orders)")
 		}
 	}
 	if y := r.Rydberg; y != nil {

@@ -153,6 +153,9 @@ func residualPlot(c *calibration) (template.URL, error) {
 	p := styled("calibration residuals ("+c.Dispersion.Model+")", "reference wavelength (nm, air)", "reference − fit (nm)")
 	var pts plotter.XYs
 	for _, r := range c.Dispersion.Residuals {
+		if r.RefNM == 0 {
+			continue // the zero order: no wavelength to plot it at
+		}
 		pts = append(pts, plotter.XY{X: r.RefNM, Y: r.ResidNM})
 	}
 	if len(pts) == 0 {
