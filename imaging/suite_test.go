@@ -15,9 +15,10 @@ var hydrogen = []synth.Emission{
 	{NM: 486.1325, Strength: 0.5}, {NM: 656.2795, Strength: 1},
 }
 
-// suitePhotos are 22 varied synthetic photos: phone 4032x3024, webcam
+// suitePhotos are 25 varied synthetic photos: phone 4032x3024, webcam
 // 1920x1080 and 1280x720, small 640x480; rolled up to ±20°; blur, exposure,
-// line length, grating and JPEG quality varied.
+// line length, grating and JPEG quality varied; three with room light, the
+// zero order and both first orders.
 func suitePhotos() []struct {
 	name string
 	p    synth.Params
@@ -58,6 +59,15 @@ func suitePhotos() []struct {
 		add(fmt.Sprintf("640x480 %+g", t), synth.Params{Width: 640, Height: 480, LinesPerMM: 300, TiltDeg: t, PSFSigmaPX: 1.2,
 			Seed: uint64(50 + i), Emissions: mercury}, 88)
 	}
+	// Room light and the other orders: a background slope across the
+	// frame, the white zero order (saturated) and the first order on both
+	// sides of it.
+	add("1080p hg -1,0,+1 room light", synth.Params{Width: 1920, Height: 1080, LinesPerMM: 300, TiltDeg: 3, Orders: []int{-1, 0, 1},
+		PeakLevel: 0.5, BackgroundGradient: 0.04, Seed: 60, Emissions: mercury}, 90)
+	add("1080p h -1,0,+1", synth.Params{Width: 1920, Height: 1080, LinesPerMM: 300, TiltDeg: -6, Orders: []int{-1, 0, 1},
+		PeakLevel: 0.6, Seed: 61, Emissions: hydrogen}, 90)
+	add("720p hg 0,+1 room light", synth.Params{Width: 1280, Height: 720, LinesPerMM: 600, TiltDeg: -2, Orders: []int{0, 1},
+		CameraAngleDeg: 12.5, FocalPX: 2600, PSFSigmaPX: 1.3, BackgroundGradient: -0.03, Seed: 62, Emissions: mercury}, 88)
 	return out
 }
 
