@@ -663,7 +663,7 @@ func assembleBench(b bench, recs []photoRecord, cfg measureConfig) benchResult {
 			out.Photos = append(out.Photos, res)
 			continue
 		}
-		res := measureWith(m, name, *cal, bcfg)
+		res := measureWith(alongCalibration(m, r.File, *cal, bcfg), name, *cal, bcfg)
 		out.Photos = append(out.Photos, res)
 		if res.Lamp == "hydrogen" {
 			for _, l := range res.Lines {

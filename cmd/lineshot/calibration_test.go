@@ -252,3 +252,37 @@ func FuzzLineList(f *testing.F) {
 		}
 	})
 }
+
+// A sodium lamp shows one bright line (the D pair, 0.6 nm apart, NIST ASD
+// 588.995095 and 589.592424 nm air, REFERENCE-DATA.md section 5): too few
+// for a pattern, and no band of its own (the line image's length was once
+// taken for the band). With a mercury calibration of the same setup it is
+// measured along the calibration's band and classified as sodium on every
+// bench, its line between D2 − 0.3 nm and D1 + 0.3 nm.
+func TestSodiumWithACalibration(t *testing.T) {
+	dir := t.TempDir()
+	for k, s := range setups {
+		hg, _ := s.render(t, dir, "mercury", uint64(900+k))
+		na, _ := s.render(t, dir, "sodium", uint64(950+k))
+		cal, _, err := buildCalibration([]string{hg}, defaultCfg)
+		if err != nil {
+			t.Fatalf("%s: %v", s.name, err)
+		}
+		r := measureOne(na, &cal, defaultCfg)
+		if r.Lamp != "sodium" {
+			t.Errorf("%s: classified as %q (confidence %.2f)", s.name, r.Lamp, r.LampScore)
+		}
+		if math.Abs(r.Quality.AngleDeg-cal.AngleDeg) > 1 {
+			t.Errorf("%s: band at %.2f°, calibration's at %.2f°", s.name, r.Quality.AngleDeg, cal.AngleDeg)
+		}
+		ok := false
+		for _, l := range r.Lines {
+			if strings.HasPrefix(l.ID, "Na D") && l.WavelengthNM > 588.995095-0.3 && l.WavelengthNM < 589.592424+0.3 {
+				ok = true
+			}
+		}
+		if !ok {
+			t.Errorf("%s: no Na D line measured: %+v", s.name, r.Lines)
+		}
+	}
+}

@@ -614,7 +614,28 @@ func measureOne(path string, cal *calibration, cfg measureConfig) imageResult {
 	if err != nil {
 		return imageResult{File: path, Error: err.Error()}
 	}
-	return measureWith(m, path, *cal, cfg)
+	return measureWith(alongCalibration(m, path, *cal, cfg), path, *cal, cfg)
+}
+
+// alongCalibration measures a photo again along the calibration's band
+// direction when the band found runs across it (more than 20° off): a lamp
+// with one bright line, such as sodium, shows no band of its own, and the
+// length of its line image is taken for one. A small turn is left alone
+// (setupMoved warns about it).
+func alongCalibration(m measured, path string, cal calibration, cfg measureConfig) measured {
+	d := math.Mod(math.Abs(m.strip.AngleDeg-cal.AngleDeg), 180)
+	if d > 90 {
+		d = 180 - d
+	}
+	if d <= 20 || cfg.imageOpts.FixAngle {
+		return m
+	}
+	c := cfg
+	c.imageOpts.FixAngle, c.imageOpts.AngleDeg = true, cal.AngleDeg
+	if m2, err := extractAndFind(path, c); err == nil {
+		return m2
+	}
+	return m
 }
 
 // measureWith applies a setup's calibration to a photo already measured,
@@ -641,8 +662,12 @@ func measureWith(m measured, path string, cal calibration, cfg measureConfig) im
 	best, bestScore, second := calibrate.Lamp{}, -1.0, 0.0
 	for _, l := range lamps {
 		var s float64
+		// Each explained line counts by its height, less the further it
+		// lies from its reference (a lamp whose line is 0.1 nm away beats
+		// one whose line is 0.9 nm away; both are within tolerance).
 		for _, mt := range assignBySide(nm, sig, side, l, cfg.tolNM) {
-			s += r.Lines[mt.Peak].Height
+			z := (nm[mt.Peak] - mt.Line.NM) / math.Max(cfg.tolNM, 4*sig[mt.Peak])
+			s += r.Lines[mt.Peak].Height * math.Exp(-z*z/2)
 		}
 		s /= total
 		if s > bestScore {
