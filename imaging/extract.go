@@ -95,6 +95,9 @@ type Strip struct {
 	ResidualTiltDeg float64
 	Image           *image.RGBA
 	Timing          Timing
+	// Frames and DarkFrames count the exposures ExtractStack averaged
+	// (0 from Extract).
+	Frames, DarkFrames int
 }
 
 // ToImage maps profile position p to original-image coordinates.

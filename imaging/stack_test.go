@@ -1,0 +1,214 @@
+package imaging
+
+import (
+	"image"
+	"image/color"
+	"image/png"
+	"math"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"gocv.io/x/gocv"
+
+	"lineshot/imaging/synth"
+	"lineshot/peaks"
+)
+
+// dimLamp is a faint mercury lamp on a noisy webcam: single frames are
+// noise-limited.
+func dimLamp(seed uint64) synth.Params {
+	return synth.Params{Width: 960, Height: 540, LinesPerMM: 600, TiltDeg: 2, PeakLevel: 0.15, ReadNoise: 12,
+		FullWell: 4000, Seed: seed, Emissions: mercury}
+}
+
+// writePNG writes img to dir/name.
+func writePNG(t *testing.T, dir, name string, img image.Image) string {
+	t.Helper()
+	path := filepath.Join(dir, name)
+	f, err := os.Create(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	if err := png.Encode(f, img); err != nil {
+		t.Fatal(err)
+	}
+	return path
+}
+
+// addStray adds a stripe of stray light (a lit edge of the bench seen
+// through the grating housing: a vertical bar crossing the band, linear
+// level v of full scale) to img, in linear intensity.
+func addStray(img *image.RGBA, x0, x1 int, v float64) {
+	for y := 0; y < img.Bounds().Dy(); y++ {
+		for x := x0; x < x1; x++ {
+			c := img.RGBAAt(x, y)
+			enc := func(u uint8) uint8 {
+				l := srgbToLinear(float64(u)/255) + v
+				return uint8(math.Round(255 * linearToSRGB(math.Min(1, l))))
+			}
+			img.SetRGBA(x, y, color.RGBA{enc(c.R), enc(c.G), enc(c.B), 255})
+		}
+	}
+}
+
+// lineStats measures strip s against the truth: RMS centre error of the
+// lines found (px, original image), the profile's noise relative to the
+// brightest line, and the peaks found farther than 2 px from every truth
+// line.
+func lineStats(t *testing.T, s Strip, tr synth.Truth) (rms, relNoise float64, stray []float64) {
+	t.Helper()
+	r, err := peaks.Find(s.Profile, peaks.Options{Clipped: s.Clipped})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var ss float64
+	n, top := 0, 0.0
+	for _, l := range tr.Lines {
+		if d := nearestLine(s, r.Peaks, l.X, l.Y); d < 1.5 {
+			ss += d * d
+			n++
+		}
+	}
+	for _, p := range r.Peaks {
+		top = math.Max(top, p.Height)
+		x, y := s.ToImage(p.Center)
+		near := false
+		for _, l := range tr.Lines {
+			if math.Hypot(l.X-x, l.Y-y) < 2 {
+				near = true
+			}
+		}
+		if !near {
+			stray = append(stray, p.Center)
+		}
+	}
+	return math.Sqrt(ss / float64(max(1, n))), r.Noise / top, stray
+}
+
+// Eight frames of a dim lamp averaged: the profile's noise falls by about
+// √8 = 2.83 against one frame (the simulator draws independent noise per
+// frame); the centres stay on the truth. Eight dark frames with the same
+// stray light remove the stray stripe that the averaged frames show as a
+// line.
+func TestStackAveragesAndSubtractsDark(t *testing.T) {
+	dir := t.TempDir()
+	var frames []string
+	var truth synth.Truth
+	const n = 8
+	for k := 0; k < n; k++ {
+		img, tr, err := synth.Render(dimLamp(uint64(100 + k)))
+		if err != nil {
+			t.Fatal(err)
+		}
+		truth = tr
+		addStray(img, 700, 703, 0.004)
+		frames = append(frames, writePNG(t, dir, "f"+string(rune('a'+k))+".png", img))
+	}
+	// The dark frames: the same camera and stray light, the lamp off (its
+	// lines rendered at a strength of nothing).
+	var darks []string
+	for k := 0; k < n; k++ {
+		dp := dimLamp(uint64(900 + k))
+		dp.PeakLevel = 1e-9
+		darkImg, _, err := synth.Render(dp)
+		if err != nil {
+			t.Fatal(err)
+		}
+		addStray(darkImg, 700, 703, 0.004)
+		darks = append(darks, writePNG(t, dir, "dark"+string(rune('a'+k))+".png", darkImg))
+	}
+
+	one, err := ExtractStack(Stack{Frames: frames[:1]}, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	all, err := ExtractStack(Stack{Frames: frames}, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	sub, err := ExtractStack(Stack{Frames: frames, Dark: darks}, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if all.Frames != n || sub.DarkFrames != n {
+		t.Errorf("frames counted %d (dark %d), want %d (%d)", all.Frames, sub.DarkFrames, n, n)
+	}
+	rms1, noise1, stray1 := lineStats(t, one, truth)
+	rmsN, noiseN, strayN := lineStats(t, all, truth)
+	rmsD, _, strayD := lineStats(t, sub, truth)
+	gain := noise1 / noiseN
+	t.Logf("one frame: RMS %.3f px, noise/peak %.4f, stray %v; %d frames: RMS %.3f px, noise/peak %.4f (÷%.2f), stray %v; dark subtracted: RMS %.3f px, stray %v",
+		rms1, noise1, stray1, n, rmsN, noiseN, gain, strayN, rmsD, strayD)
+	if gain < 2.2 || gain > 3.5 {
+		t.Errorf("averaging %d frames lowered the noise by %.2f, expected about %.2f", n, gain, math.Sqrt(n))
+	}
+	if rmsN > 0.15 || rmsD > 0.15 {
+		t.Errorf("stacked centres off the truth by %.3f px RMS (dark subtracted: %.3f)", rmsN, rmsD)
+	}
+	if len(strayN) == 0 {
+		t.Errorf("the stray stripe should show as a line without the dark frame (test is not testing)")
+	}
+	if len(strayD) > 0 {
+		t.Errorf("dark frame subtracted, yet lines where the truth has none: %v", strayD)
+	}
+}
+
+// Frames of a video file (written here with OpenCV's own Motion-JPEG
+// encoder) are averaged like stills.
+func TestStackReadsVideo(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "lamp.avi")
+	p := dimLamp(1)
+	p.PeakLevel = 0.5
+	vw, err := gocv.VideoWriterFile(path, "MJPG", 10, p.Width, p.Height, true)
+	if err != nil || !vw.IsOpened() {
+		t.Skipf("this OpenCV cannot write Motion-JPEG video: %v", err)
+	}
+	var truth synth.Truth
+	for k := 0; k < 6; k++ {
+		p.Seed = uint64(200 + k)
+		img, tr, err := synth.Render(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		truth = tr
+		m, err := gocv.ImageToMatRGB(img)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := vw.Write(m); err != nil {
+			t.Fatal(err)
+		}
+		m.Close()
+	}
+	vw.Close()
+	s, err := ExtractStack(Stack{Frames: []string{path}}, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if s.Frames != 6 {
+		t.Errorf("%d frames read, 6 written", s.Frames)
+	}
+	rms, _, stray := lineStats(t, s, truth)
+	t.Logf("video: %d frames, RMS %.3f px, stray %v", s.Frames, rms, stray)
+	if rms > 0.2 {
+		t.Errorf("centres off the truth by %.3f px RMS", rms)
+	}
+	if len(stray) > 0 {
+		t.Errorf("lines where the truth has none: %v", stray)
+	}
+
+	// Frames of another size, and a file that is no video, are refused
+	// with the file named.
+	small := writePNG(t, dir, "small.png", image.NewRGBA(image.Rect(0, 0, 64, 48)))
+	if _, err := ExtractStack(Stack{Frames: []string{path, small}}, Options{}); err == nil || !contains(err.Error(), "small.png") {
+		t.Errorf("mixed sizes: %v", err)
+	}
+	bogus := filepath.Join(dir, "bogus.mp4")
+	os.WriteFile(bogus, []byte("not a video at all"), 0o644)
+	if _, err := ExtractStack(Stack{Frames: []string{bogus}}, Options{}); err == nil || !contains(err.Error(), "bogus.mp4") {
+		t.Errorf("bogus video: %v", err)
+	}
+}
