@@ -2,6 +2,7 @@ package imaging
 
 import (
 	"errors"
+	"image"
 	"fmt"
 	"io"
 	"math"
@@ -297,4 +298,40 @@ func linearToSRGB(v float64) float64 {
 		return 12.92 * v
 	}
 	return 1.055*math.Pow(v, 1/2.4) - 0.055
+}
+
+// WriteVideo writes frames as a Motion-JPEG AVI file at fps frames per
+// second with OpenCV's own encoder (for simulated videos). The frames must
+// share one size.
+func WriteVideo(path string, frames []image.Image, fps float64) error {
+	if len(frames) == 0 {
+		return errors.New("no frames to write")
+	}
+	b := frames[0].Bounds()
+	if !strings.EqualFold(filepath.Ext(path), ".avi") {
+		return fmt.Errorf("%s: videos are written as Motion-JPEG .avi files", path)
+	}
+	vw, err := gocv.VideoWriterFile(path, "MJPG", fps, b.Dx(), b.Dy(), true)
+	if err != nil || !vw.IsOpened() {
+		if vw != nil {
+			vw.Close()
+		}
+		return fmt.Errorf("%s: OpenCV cannot write Motion-JPEG video here", path)
+	}
+	defer vw.Close()
+	for i, f := range frames {
+		if f.Bounds().Size() != b.Size() {
+			return fmt.Errorf("%s: frame %d is %v, the first %v", path, i, f.Bounds().Size(), b.Size())
+		}
+		m, err := gocv.ImageToMatRGB(f)
+		if err != nil {
+			return fmt.Errorf("%s: frame %d: %w", path, i, err)
+		}
+		err = vw.Write(m)
+		m.Close()
+		if err != nil {
+			return fmt.Errorf("%s: frame %d: %w", path, i, err)
+		}
+	}
+	return nil
 }

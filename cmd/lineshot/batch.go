@@ -49,6 +49,9 @@ A bench folder may hold a settings file named lineshot-bench.txt:
   calibration: hg1.jpg hg2.jpg    # these files calibrate, whatever they look like
   lamp: odd.jpg helium            # this file shows this lamp
   exclude: blurred.jpg            # leave this file out
+  dark: off1.jpg off2.jpg         # lamp off: averaged and subtracted from every other photo
+
+A video file in a bench folder is measured as one photo, its frames averaged.
 
 Examples:
   lineshot batch --out results/ photos/
@@ -317,7 +320,7 @@ func discover(root, out string) ([]bench, []failure) {
 			}
 			return nil
 		}
-		if !imageExts[strings.ToLower(filepath.Ext(p))] {
+		if !imageExts[strings.ToLower(filepath.Ext(p))] && !imaging.IsVideo(p) {
 			return nil
 		}
 		if d.Type()&fs.ModeSymlink != 0 {
@@ -346,7 +349,7 @@ func discover(root, out string) ([]bench, []failure) {
 			byDir[dir] = b
 			order = append(order, dir)
 		}
-		if !b.Settings.Exclude[filepath.Base(p)] {
+		if !b.Settings.Exclude[filepath.Base(p)] && !b.Settings.isDark(filepath.Base(p)) {
 			b.Photos = append(b.Photos, p)
 		}
 		return nil
@@ -375,6 +378,16 @@ type benchSettings struct {
 	Calibration []string          `json:"calibration,omitempty"`
 	Lamps       map[string]string `json:"lamps,omitempty"`
 	Exclude     map[string]bool   `json:"exclude,omitempty"`
+	Dark        []string          `json:"dark,omitempty"` // dark frames, subtracted from the bench's other photos
+}
+
+func (s benchSettings) isDark(name string) bool {
+	for _, d := range s.Dark {
+		if d == name {
+			return true
+		}
+	}
+	return false
 }
 
 // readSettings reads a bench settings file; a missing file is no error.
@@ -435,8 +448,13 @@ func parseSettings(r io.Reader) (benchSettings, error) {
 			for _, f := range fields {
 				st.Exclude[f] = true
 			}
+		case "dark":
+			if len(fields) == 0 {
+				return st, fmt.Errorf("line %d: dark names no file", n)
+			}
+			st.Dark = append(st.Dark, fields...)
 		default:
-			return st, fmt.Errorf("line %d: unknown setting %q (lines-per-mm, calibration, lamp, exclude)", n, key)
+			return st, fmt.Errorf("line %d: unknown setting %q (lines-per-mm, calibration, lamp, exclude, dark)", n, key)
 		}
 	}
 	if err := sc.Err(); err != nil {
@@ -468,13 +486,16 @@ type stripRecord struct {
 	FrameW, FrameH                          int
 	Background, Noise, Saturated            float64
 	ResidualTiltDeg                         float64
+	BackgroundRange                         float64
+	Frames, DarkFrames                      int
 	Warnings                                []string
 	Profile                                 []float32
 }
 
 func toRecord(s imaging.Strip) stripRecord {
 	r := stripRecord{AngleDeg: s.AngleDeg, BandHalfHeight: s.BandHalfHeight, OpticalCenter: s.OpticalCenter, Origin: s.Origin, Band: s.Band,
-		FrameW: s.FrameW, FrameH: s.FrameH, Background: s.Background, Noise: s.Noise, Saturated: s.Saturated, ResidualTiltDeg: s.ResidualTiltDeg, Warnings: s.Warnings}
+		FrameW: s.FrameW, FrameH: s.FrameH, Background: s.Background, Noise: s.Noise, Saturated: s.Saturated, ResidualTiltDeg: s.ResidualTiltDeg, Warnings: s.Warnings,
+		BackgroundRange: s.BackgroundRange, Frames: s.Frames, DarkFrames: s.DarkFrames}
 	r.Profile = make([]float32, len(s.Profile))
 	for i, v := range s.Profile {
 		r.Profile[i] = float32(v)
@@ -484,7 +505,8 @@ func toRecord(s imaging.Strip) stripRecord {
 
 func (r stripRecord) strip() imaging.Strip {
 	s := imaging.Strip{AngleDeg: r.AngleDeg, BandHalfHeight: r.BandHalfHeight, OpticalCenter: r.OpticalCenter, Origin: r.Origin, Band: r.Band,
-		FrameW: r.FrameW, FrameH: r.FrameH, Background: r.Background, Noise: r.Noise, Saturated: r.Saturated, ResidualTiltDeg: r.ResidualTiltDeg, Warnings: r.Warnings}
+		FrameW: r.FrameW, FrameH: r.FrameH, Background: r.Background, Noise: r.Noise, Saturated: r.Saturated, ResidualTiltDeg: r.ResidualTiltDeg, Warnings: r.Warnings,
+		BackgroundRange: r.BackgroundRange, Frames: r.Frames, DarkFrames: r.DarkFrames}
 	s.Profile = make([]float64, len(r.Profile))
 	for i, v := range r.Profile {
 		s.Profile[i] = float64(v)
@@ -504,7 +526,7 @@ type batchRun struct {
 // optionsKey changes whenever an option that changes a photo's result
 // changes, so that cached results are not reused across them.
 func (b *batchRun) optionsKey() string {
-	return fmt.Sprintf("v2 snr=%g", b.cfg.minSNR)
+	return fmt.Sprintf("v3 snr=%g", b.cfg.minSNR)
 }
 
 func cacheName(path string) string {
@@ -520,6 +542,18 @@ func cacheName(path string) string {
 // is unchanged (and then reports true).
 func (b *batchRun) process(path string, bn bench) (photoRecord, bool) {
 	rec := photoRecord{File: path, Options: b.optionsKey()}
+	cfg := b.cfg
+	for _, d := range bn.Settings.Dark {
+		// The bench's dark frames; a changed dark frame invalidates the
+		// cached measurements of the bench.
+		dp := filepath.Join(bn.Dir, d)
+		cfg.dark = append(cfg.dark, dp)
+		if st, err := os.Stat(dp); err == nil {
+			rec.Options += fmt.Sprintf(" dark=%s:%d:%d", d, st.Size(), st.ModTime().UnixNano())
+		} else {
+			rec.Options += " dark=" + d + ":missing"
+		}
+	}
 	st, err := os.Stat(path)
 	if err != nil {
 		rec.Error = fmt.Sprintf("%s: cannot read: %s", displayName(path), errText(err))
@@ -534,7 +568,7 @@ func (b *batchRun) process(path string, bn bench) (photoRecord, bool) {
 			return c, true
 		}
 	}
-	m, err := extractAndFind(path, b.cfg)
+	m, err := extractAndFind(path, cfg)
 	if err != nil {
 		rec.Error = displayErr(err.Error())
 	} else {
@@ -597,6 +631,9 @@ func assembleBench(b bench, recs []photoRecord, cfg measureConfig) benchResult {
 	out := benchResult{Name: b.Name, Dir: displayName(b.Dir), Settings: b.Settings, Images: map[string]string{}, Profiles: map[string][]float32{}}
 	bcfg := cfg
 	bcfg.linesPerMM = b.Settings.LinesPerMM
+	for _, d := range b.Settings.Dark {
+		bcfg.dark = append(bcfg.dark, filepath.Join(b.Dir, d))
+	}
 	pinnedCal := map[string]bool{}
 	for _, c := range b.Settings.Calibration {
 		pinnedCal[c] = true

@@ -6,6 +6,7 @@ import (
 	"crypto/sha256"
 	"encoding/csv"
 	"encoding/json"
+	"fmt"
 	"io/fs"
 	"math"
 	"os"
@@ -260,4 +261,46 @@ func FuzzParseSettings(f *testing.F) {
 			t.Fatalf("accepted %v", st.LinesPerMM)
 		}
 	})
+}
+
+// A bench of a dim hydrogen lamp filmed as a video, with two dark frames
+// named in the settings file: the video is one photo (its frames
+// averaged), the dark frames are subtracted from it and are not photos
+// themselves; R comes out within 0.05 % of CODATA 2018 R_H.
+func TestBatchVideoAndDarkFrames(t *testing.T) {
+	root := filepath.Join(t.TempDir(), "lab")
+	dir := filepath.Join(root, "bench-v")
+	os.MkdirAll(dir, 0o755)
+	simulate(t, dir, "hg.jpg", "--lamp", "mercury", "--size", "1280x720", "--tilt", "1", "--seed", "5")
+	simulate(t, dir, "h.avi", "--lamp", "hydrogen", "--size", "1280x720", "--tilt", "1", "--peak", "0.2", "--read-noise", "14", "--frames", "8", "--seed", "6")
+	for k, name := range []string{"off1.jpg", "off2.jpg"} {
+		simulate(t, dir, name, "--lamp", "hydrogen", "--size", "1280x720", "--tilt", "1", "--peak", "1e-9", "--read-noise", "14", "--seed", fmt.Sprint(40+k))
+	}
+	for _, f := range []string{"hg.truth.json", "h.truth.json", "off1.truth.json", "off2.truth.json"} {
+		os.Remove(filepath.Join(dir, f))
+	}
+	os.WriteFile(filepath.Join(dir, settingsFile), []byte("dark: off1.jpg off2.jpg   # lamp off, same exposure\n"), 0o644)
+	out := filepath.Join(t.TempDir(), "results")
+	stdout, stderr, code := runCLI(t, "batch", "--quiet", "--out", out, root)
+	if code != 0 {
+		t.Fatalf("exit %d\n%s\n%s", code, stdout, stderr)
+	}
+	d := readBatch(t, out)
+	if len(d.Benches) != 1 {
+		t.Fatalf("%d benches", len(d.Benches))
+	}
+	b := d.Benches[0]
+	if len(b.Photos) != 1 || !strings.HasSuffix(b.Photos[0].File, "h.avi") {
+		t.Fatalf("measured photos: %+v", b.Photos)
+	}
+	q := b.Photos[0].Quality
+	if q == nil || q.Frames != 8 || q.DarkFrames != 2 {
+		t.Errorf("video measured with %+v, want 8 frames and 2 dark frames", q)
+	}
+	if b.Rydberg == nil {
+		t.Fatalf("no R: %v", b.Warnings)
+	}
+	if rel := b.Rydberg.R/calibrate.RHydrogen() - 1; math.Abs(rel) > 0.0005 {
+		t.Errorf("R %.0f ± %.0f, %.4f %% from R_H", b.Rydberg.R, b.Rydberg.Sigma, 100*rel)
+	}
 }

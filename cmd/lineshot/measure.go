@@ -32,6 +32,12 @@ Examples:
   lineshot measure --calibration-from mercury.jpg --save-calibration bench2.json
   lineshot measure --calibration-from bench2.json --json hydrogen.jpg
   lineshot measure --lamp helium --line 587.562@1310.4 helium.jpg
+  lineshot measure -c bench2.json --stack --dark off1.jpg --dark off2.jpg h1.jpg h2.jpg h3.jpg
+  lineshot measure -c bench2.json hydrogen-dim.mp4      # a video's frames are averaged
+
+A photo may be a video (AVI, MP4, MOV, MKV, WebM ...): its frames are
+averaged. --stack averages the photos given as exposures of one setup;
+--dark subtracts dark frames (lamp off, same exposure), averaged.
 `
 
 type measureConfig struct {
@@ -47,6 +53,10 @@ type measureConfig struct {
 	extra      []calibrate.Lamp // from --lines files
 	saveStrip  string
 	imageOpts  imaging.Options
+	// dark are dark frames (lamp off) subtracted from the measured photos;
+	// frames are further exposures averaged with each measured photo
+	// (--stack). Calibration photos get neither.
+	dark, frames []string
 }
 
 // lamps returns the built-in lamps and the user's.
@@ -104,6 +114,8 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	angle := fs.String("angle", "", "take this dispersion direction (degrees, + turns clockwise on screen) instead of finding it")
 	saveStrip := fs.String("save-strip", "", "save the straightened band with the measured lines marked (JPEG; with several photos, the last)")
 	asJSON := fs.Bool("json", false, "print a JSON document instead of tables")
+	dark := fs.StringArray("dark", nil, "dark frame (lamp off, same exposure; a still or a video) subtracted from the measured photos; repeat to average several")
+	stack := fs.Bool("stack", false, "the photos are exposures of one setup: average them and measure them as one (a video file is always averaged)")
 	if err := parse(fs, args); err != nil {
 		return err
 	}
@@ -118,7 +130,11 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		return usagef("measure: --lines-per-mm %g outside 0-10000", *lpm)
 	}
 	cfg := measureConfig{lamp: *lamp, calLamp: *calLamp, model: *model, minSNR: *minSNR, linear: *linear, tolNM: *tol, floorPX: *floor,
-		linesPerMM: *lpm, imageOpts: imaging.Options{Linear: *linear}}
+		linesPerMM: *lpm, imageOpts: imaging.Options{Linear: *linear}, dark: *dark}
+	photos := fs.Args()
+	if *stack && len(photos) > 1 {
+		cfg.frames, photos = photos[1:], photos[:1]
+	}
 	if *roi != "" {
 		var x, y, w, h int
 		if n, err := fmt.Sscanf(*roi, "%d,%d,%d,%d", &x, &y, &w, &h); err != nil || n != 4 || w < 8 || h < 4 || x < 0 || y < 0 {
@@ -183,7 +199,7 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		}
 	}
 	failed := 0
-	for _, path := range fs.Args() {
+	for _, path := range photos {
 		if err := ctx.Err(); err != nil {
 			return err
 		}
@@ -258,6 +274,7 @@ func buildCalibration(paths []string, cfg measureConfig) (calibration, []imageRe
 		}
 		ccfg := cfg
 		ccfg.lamp = cfg.calLamp
+		ccfg.dark, ccfg.frames = nil, nil
 		id, r := identifySelf(p, ccfg, cfg.calibrationLamps())
 		if r.Error != "" {
 			results = append(results, r)
@@ -453,6 +470,8 @@ type quality struct {
 	ProfileNoise    float64       `json:"profile_noise"`
 	Saturated       float64       `json:"saturated_fraction"`
 	ResidualTiltDeg float64       `json:"residual_tilt_deg"`
+	Frames          int           `json:"frames_averaged,omitempty"` // exposures averaged (video, --stack)
+	DarkFrames      int           `json:"dark_frames,omitempty"`     // dark frames subtracted
 }
 
 type document struct {
@@ -469,7 +488,13 @@ type measured struct {
 }
 
 func extractAndFind(path string, cfg measureConfig) (measured, error) {
-	s, err := imaging.Extract(path, cfg.imageOpts)
+	var s imaging.Strip
+	var err error
+	if len(cfg.dark) > 0 || len(cfg.frames) > 0 || imaging.IsVideo(path) {
+		s, err = imaging.ExtractStack(imaging.Stack{Frames: append([]string{path}, cfg.frames...), Dark: cfg.dark}, cfg.imageOpts)
+	} else {
+		s, err = imaging.Extract(path, cfg.imageOpts)
+	}
 	if err != nil {
 		return measured{}, err
 	}
@@ -496,7 +521,8 @@ func extractAndFind(path string, cfg measureConfig) (measured, error) {
 func (m measured) baseResult(path string) imageResult {
 	r := imageResult{File: path, Quality: &quality{
 		AngleDeg: m.strip.AngleDeg, Band: m.strip.Band, BandHalfHeight: m.strip.BandHalfHeight,
-		Background: m.strip.Background, BackgroundRange: m.strip.BackgroundRange, Noise: m.strip.Noise, ProfileNoise: m.found.Noise, Saturated: m.strip.Saturated,
+		Background: m.strip.Background, BackgroundRange: m.strip.BackgroundRange, Noise: m.strip.Noise,
+		Frames: m.strip.Frames, DarkFrames: m.strip.DarkFrames, ProfileNoise: m.found.Noise, Saturated: m.strip.Saturated,
 	}}
 	for _, p := range m.found.Peaks {
 		x, y := m.strip.ToImage(p.Center)

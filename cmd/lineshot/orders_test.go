@@ -1,6 +1,8 @@
 package main
 
 import (
+	"encoding/json"
+	"fmt"
 	"image/png"
 	"math"
 	"os"
@@ -153,5 +155,56 @@ func checkOrders(t *testing.T, name string, r imageResult, tr synth.Truth, want 
 	}
 	if ok < want {
 		t.Errorf("%s: %d lines identified with their order, want at least %d", name, ok, want)
+	}
+}
+
+// measure --stack and --dark on the command line: the exposures are
+// averaged into one result that says how many went in, each Balmer line
+// lands within 0.1 nm of NIST (REFERENCE-DATA.md section 2), and a dark
+// frame of another size is refused in one line naming it.
+func TestMeasureStackAndDark(t *testing.T) {
+	dir := t.TempDir()
+	hg, _ := simulate(t, dir, "hg.jpg", "--lamp", "mercury", "--tilt", "2", "--seed", "1")
+	var args []string
+	for k := 0; k < 4; k++ {
+		p, _ := simulate(t, dir, fmt.Sprintf("h%d.jpg", k), "--lamp", "hydrogen", "--tilt", "2", "--peak", "0.25", "--read-noise", "14", "--seed", fmt.Sprint(10+k))
+		args = append(args, p)
+	}
+	var darks []string
+	for k := 0; k < 2; k++ {
+		p, _ := simulate(t, dir, fmt.Sprintf("d%d.jpg", k), "--lamp", "hydrogen", "--tilt", "2", "--peak", "1e-9", "--read-noise", "14", "--seed", fmt.Sprint(20+k))
+		darks = append(darks, "--dark", p)
+	}
+	out, stderr, code := runCLI(t, append(append([]string{"measure", "--json", "-c", hg, "--stack"}, darks...), args...)...)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	var doc document
+	if err := json.Unmarshal([]byte(out), &doc); err != nil {
+		t.Fatal(err)
+	}
+	if len(doc.Images) != 1 {
+		t.Fatalf("%d results for one stack", len(doc.Images))
+	}
+	r := doc.Images[0]
+	if r.Quality.Frames != 4 || r.Quality.DarkFrames != 2 {
+		t.Errorf("frames %d, dark frames %d; want 4 and 2", r.Quality.Frames, r.Quality.DarkFrames)
+	}
+	n := 0
+	for _, l := range r.Lines {
+		if l.N >= 3 {
+			n++
+			if math.Abs(l.WavelengthNM-l.RefNM) > 0.1 {
+				t.Errorf("%s at %.3f nm, NIST %.4f", l.ID, l.WavelengthNM, l.RefNM)
+			}
+		}
+	}
+	if n < 4 {
+		t.Errorf("%d Balmer lines from the stack", n)
+	}
+	small, _ := simulate(t, dir, "small.jpg", "--lamp", "hydrogen", "--size", "640x480")
+	_, stderr, code = runCLI(t, "measure", "-c", hg, "--dark", small, args[0])
+	if code != 1 || !strings.Contains(stderr, "small.jpg") || strings.Count(strings.TrimSpace(stderr), "\n") != 0 {
+		t.Errorf("dark frame of another size: exit %d, stderr %q", code, stderr)
 	}
 }

@@ -2,14 +2,17 @@ package main
 
 import (
 	"fmt"
+	"image"
 	"image/jpeg"
 	"image/png"
 	"io"
+	"os"
 	"path/filepath"
 	"strconv"
 	"strings"
 
 	"lineshot/calibrate"
+	"lineshot/imaging"
 	"lineshot/imaging/synth"
 )
 
@@ -26,11 +29,13 @@ Examples:
   lineshot simulate --lamp hydrogen --lines-per-mm 300 --size 1280x720 --tilt -5 -o h.jpg
   lineshot simulate --lamp mercury --focal-px 1500 --psf 1.5 --quality 75 -o webcam-hg.jpg
   lineshot simulate --lamp mercury --lines-per-mm 300 --orders -1,0,1 --peak 0.5 -o both-sides.jpg
+  lineshot simulate --lamp hydrogen --peak 0.1 --read-noise 15 --frames 20 -o dim.avi
 `
 
 func runSimulate(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("simulate", simulateUsage, stderr)
-	out := fs.StringP("output", "o", "", "photo to write (.jpg, .jpeg or .png)")
+	out := fs.StringP("output", "o", "", "photo to write (.jpg, .jpeg or .png), or a video (.avi, Motion-JPEG)")
+	frames := fs.Int("frames", 8, "frames of a video (.avi): each with fresh noise")
 	truthPath := fs.String("truth", "", "truth JSON to write; default: PHOTO with .truth.json")
 	lamp := fs.StringP("lamp", "l", "mercury", "lamp: mercury, hydrogen, helium, neon, sodium, cfl")
 	lpm := fs.Float64("lines-per-mm", 600, "grating lines per mm")
@@ -58,8 +63,11 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 		return usagef("simulate: -o PHOTO is required")
 	}
 	ext := strings.ToLower(filepath.Ext(*out))
-	if ext != ".jpg" && ext != ".jpeg" && ext != ".png" {
-		return usagef("simulate: %s: the photo must end in .jpg, .jpeg or .png", *out)
+	if ext != ".jpg" && ext != ".jpeg" && ext != ".png" && ext != ".avi" {
+		return usagef("simulate: %s: the photo must end in .jpg, .jpeg or .png (or .avi for a video)", *out)
+	}
+	if *frames < 1 || *frames > 1000 {
+		return usagef("simulate: --frames %d outside 1-1000", *frames)
 	}
 	if *quality < 1 || *quality > 100 {
 		return usagef("simulate: --quality %d outside 1-100", *quality)
@@ -80,7 +88,29 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return usagef("simulate: %v", err)
 	}
-	if err := writeFileAtomic(*out, func(wr io.Writer) error {
+	if ext == ".avi" {
+		// Each frame the same scene with fresh noise; written beside the
+		// target and renamed, as every output is.
+		imgs := []image.Image{img}
+		for k := 1; k < *frames; k++ {
+			q := p
+			q.Seed = p.Seed + uint64(k)
+			f, _, err := synth.Render(q)
+			if err != nil {
+				return usagef("simulate: %v", err)
+			}
+			imgs = append(imgs, f)
+		}
+		tmp := filepath.Join(filepath.Dir(*out), "."+filepath.Base(*out)+".tmp.avi")
+		if err := imaging.WriteVideo(tmp, imgs, 10); err != nil {
+			os.Remove(tmp)
+			return err
+		}
+		if err := os.Rename(tmp, *out); err != nil {
+			os.Remove(tmp)
+			return err
+		}
+	} else if err := writeFileAtomic(*out, func(wr io.Writer) error {
 		if ext == ".png" {
 			return png.Encode(wr, img)
 		}
