@@ -2,8 +2,8 @@ package imaging
 
 import (
 	"errors"
-	"image"
 	"fmt"
+	"image"
 	"io"
 	"math"
 	"os"
