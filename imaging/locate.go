@@ -163,53 +163,51 @@ func chord(w, h int, deg, v float64) (u0, u1 float64, ok bool) {
 // background level. Room light gives photos a slope or a bowl across the
 // frame; left in, its bright side outweighs a faint band when the band is
 // looked for. Lines themselves are untouched (the fit excludes them);
-// straighten takes its own per-column background beside the band.
+// straighten takes its own per-column background beside the band. A
+// surface flatter than the noise is left in place (most photos).
 // It returns the surface's range over the frame, in p's units.
 func flatten(p plane) float64 {
 	if p.w < 8 || p.h < 8 {
 		return 0
 	}
-	step := max(1, int(math.Sqrt(float64(p.w*p.h)/40000)))
+	// About 10 000 samples on a grid are plenty for six coefficients.
+	step := max(1, int(math.Sqrt(float64(p.w*p.h)/10000)))
 	sx, sy := 2/float64(p.w-1), 2/float64(p.h-1)
-	basis := func(x, y int, b *[6]float64) {
-		u, v := float64(x)*sx-1, float64(y)*sy-1
-		*b = [6]float64{1, u, v, u * u, u * v, v * v}
-	}
-	eval := func(c [6]float64, x, y int) float64 {
-		var b [6]float64
-		basis(x, y, &b)
-		var s float64
-		for k := range b {
-			s += c[k] * b[k]
+	var xs, ys, vs []float64
+	for y := 0; y < p.h; y += step {
+		for x := 0; x < p.w; x += step {
+			xs, ys, vs = append(xs, float64(x)*sx-1), append(ys, float64(y)*sy-1), append(vs, float64(p.at(x, y)))
 		}
-		return s
+	}
+	surf := func(c [6]float64, u, v float64) float64 {
+		return c[0] + u*(c[1]+c[3]*u+c[4]*v) + v*(c[2]+c[5]*v)
 	}
 	med, sigma, _ := levels(p)
 	var c [6]float64
 	c[0] = med
 	cut := 5 * sigma
+	res := make([]float64, len(vs))
 	for iter := 0; iter < 4; iter++ {
 		var ata [6][6]float64
 		var atb [6]float64
-		var res []float64
-		var b [6]float64
-		for y := 0; y < p.h; y += step {
-			for x := 0; x < p.w; x += step {
-				r := float64(p.at(x, y)) - eval(c, x, y)
-				if iter > 0 {
-					res = append(res, math.Abs(r))
+		for i, v := range vs {
+			r := v - surf(c, xs[i], ys[i])
+			res[i] = math.Abs(r)
+			if cut > 0 && res[i] > cut {
+				continue
+			}
+			u, w := xs[i], ys[i]
+			b := [6]float64{1, u, w, u * u, u * w, w * w}
+			for j := range b {
+				atb[j] += b[j] * v
+				for k := j; k < 6; k++ {
+					ata[j][k] += b[j] * b[k]
 				}
-				if math.Abs(r) > cut && cut > 0 {
-					continue
-				}
-				basis(x, y, &b)
-				v := float64(p.at(x, y))
-				for i := range b {
-					atb[i] += b[i] * v
-					for j := range b {
-						ata[i][j] += b[i] * b[j]
-					}
-				}
+			}
+		}
+		for j := 0; j < 6; j++ {
+			for k := 0; k < j; k++ {
+				ata[j][k] = ata[k][j]
 			}
 		}
 		nc, ok := solve6(ata, atb)
@@ -217,30 +215,32 @@ func flatten(p plane) float64 {
 			return 0
 		}
 		c = nc
-		if len(res) > 0 {
+		if iter > 0 {
 			sort.Float64s(res)
 			cut = 3 * 1.4826 * res[len(res)/2]
 		}
 	}
-	// Subtract the surface, keeping its median level.
-	lo, hi := math.Inf(1), math.Inf(-1)
-	var vals []float64
-	for y := 0; y < p.h; y += step {
-		for x := 0; x < p.w; x += step {
-			v := eval(c, x, y)
-			vals = append(vals, v)
-			lo, hi = math.Min(lo, v), math.Max(hi, v)
-		}
+	// The surface's range and median level over the grid.
+	for i := range vs {
+		res[i] = surf(c, xs[i], ys[i])
 	}
-	sort.Float64s(vals)
-	level := vals[len(vals)/2]
+	sort.Float64s(res)
+	level, rng := res[len(res)/2], res[len(res)-1]-res[0]
+	if rng < sigma {
+		return rng
+	}
+	// Subtract it row by row: along a row the surface is a quadratic in u.
 	for y := 0; y < p.h; y++ {
+		v := float64(y)*sy - 1
+		a0 := c[0] + c[2]*v + c[5]*v*v - level
+		a1 := c[1] + c[4]*v
 		row := p.pix[y*p.w : (y+1)*p.w]
 		for x := range row {
-			row[x] -= float32(eval(c, x, y) - level)
+			u := float64(x)*sx - 1
+			row[x] -= float32(a0 + u*(a1+c[3]*u))
 		}
 	}
-	return hi - lo
+	return rng
 }
 
 // solve6 solves the 6×6 normal equations a·x = b by Gaussian elimination
