@@ -70,6 +70,11 @@ type Strip struct {
 	// Without Options.KeepImage only the profile's own channel is
 	// straightened: Profile and one of Luma or Sum are set, Channels not.
 	Clipped []bool // positions whose band pixels hold a saturated value in some channel
+	// ChannelClipped is Clipped per linear channel (R, G, B), set with
+	// Channels. When the band holds saturated pixels, Channels are
+	// straightened even without Options.KeepImage, so that a line
+	// clipped in one channel can be measured in another.
+	ChannelClipped [3][]bool
 
 	AngleDeg       float64    // dispersion direction, degrees from +x towards +y
 	Origin         [2]float64 // original-image x, y of profile position 0
@@ -374,14 +379,14 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	var roi image.Rectangle
 	var rp plane
 	var rgb, lumaPlane []float32
-	var clip []bool
+	var clip []uint8
 	// The region's buffers go back to the pool when done with (and before
 	// a larger region replaces them).
 	release := func() {
 		putF32(rp.pix)
 		putF32(rgb)
 		putF32(lumaPlane)
-		putBool(clip)
+		putU8(clip)
 	}
 	defer func() { release() }()
 	luma := tables.luma
@@ -453,6 +458,16 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	s, fit, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.KeepImage, opt.Profile)
 	if err != nil {
 		return Strip{}, err
+	}
+	if nc == 1 && s.Saturated > 0 {
+		// Saturated pixels in the band: straighten every channel after
+		// all (the region once more with colour), so that a line clipped
+		// in one channel can be measured in another.
+		putF32(rgb)
+		rgb = regionRGB(fr, roi, lut, lumaPlane)
+		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, false, opt.Profile); err == nil {
+			s, fit = s4, fit4
+		}
 	}
 	if fit.ok {
 		s.ResidualTiltDeg = math.Atan(fit.slope) * 180 / math.Pi
@@ -604,7 +619,28 @@ func bandROI(w, h int, ang, vc, reach float64) (image.Rectangle, error) {
 // linearRegion copies the region of the frame into its channel sum, its
 // linearised luma, a per-pixel clip mask and, when all is set, linear
 // float32 R, G, B and luma interleaved (four values a pixel).
-func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma lumaLUT, all bool) (plane, []float32, []bool, []float32) {
+// regionRGB returns the region's linear R, G, B and the given luma plane
+// interleaved, as linearRegion does with all set.
+func regionRGB(fr frame, roi image.Rectangle, lut []float32, lp []float32) []float32 {
+	w, h := roi.Dx(), roi.Dy()
+	rgb := getF32(4 * w * h)
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			src := 3 * ((y+roi.Min.Y)*fr.w + x + roi.Min.X)
+			dst := y*w + x
+			var b, g, r int
+			if fr.bytes8 != nil {
+				b, g, r = int(fr.bytes8[src]), int(fr.bytes8[src+1]), int(fr.bytes8[src+2])
+			} else {
+				b, g, r = int(fr.words16[src]), int(fr.words16[src+1]), int(fr.words16[src+2])
+			}
+			rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2], rgb[4*dst+3] = lut[r], lut[g], lut[b], lp[dst]
+		}
+	}
+	return rgb
+}
+
+func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma lumaLUT, all bool) (plane, []float32, []uint8, []float32) {
 	w, h := roi.Dx(), roi.Dy()
 	// Every element is written below: pooled buffers need no clearing.
 	sum := plane{w: w, h: h, pix: getF32(w * h)}
@@ -613,7 +649,7 @@ func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma
 	if all {
 		rgb = getF32(4 * w * h)
 	}
-	clip := getBool(w * h)
+	clip := getU8(w * h) // bit 0: R clipped, bit 1: G, bit 2: B
 	for y := 0; y < h; y++ {
 		for x := 0; x < w; x++ {
 			src := 3 * ((y+roi.Min.Y)*fr.w + x + roi.Min.X)
@@ -635,7 +671,17 @@ func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma
 				rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2], rgb[4*dst+3] = lut[r], lut[g], lut[b], l
 			}
 			sum.pix[dst] = lut[r] + lut[g] + lut[b]
-			clip[dst] = r >= clipAt || g >= clipAt || b >= clipAt
+			var cb uint8
+			if r >= clipAt {
+				cb |= 1
+			}
+			if g >= clipAt {
+				cb |= 2
+			}
+			if b >= clipAt {
+				cb |= 4
+			}
+			clip[dst] = cb
 		}
 	}
 	return sum, rgb, clip, lp
@@ -645,7 +691,7 @@ func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma
 // dispersion (OpenCV warpAffine, bilinear, on linear values), subtracts a
 // per-column background taken from the rows beside the band, and sums the
 // band rows into profiles.
-func straighten(rgb []float32, nc int, clip []bool, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, keep bool, profile string) (Strip, centreFit, error) {
+func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, keep bool, profile string) (Strip, centreFit, error) {
 	w, h := roi.Dx(), roi.Dy()
 	L := int(math.Floor(u1-u0)) + 1
 	half := int(math.Ceil(hh))
@@ -677,6 +723,11 @@ func straighten(rgb []float32, nc int, clip []bool, roi image.Rectangle, ang, vc
 	}
 	nIn := make([]int, L)
 	s.Clipped = make([]bool, L)
+	if nc == 4 {
+		for c := range s.ChannelClipped {
+			s.ChannelClipped[c] = make([]bool, L)
+		}
+	}
 	var nBand, nClip int
 	// Curved line images (conical diffraction, short focal lengths) are
 	// followed: band row j is sampled k(i)·(j − jc)² columns along, so each
@@ -717,9 +768,16 @@ func straighten(rgb []float32, nc int, clip []bool, roi image.Rectangle, ang, vc
 			if inBand {
 				nIn[i]++
 				nBand++
-				if clip[int(y+0.5)*w+int(x+0.5)] {
+				if cb := clip[int(y+0.5)*w+int(x+0.5)]; cb != 0 {
 					s.Clipped[i] = true
 					nClip++
+					if nc == 4 {
+						for c := 0; c < 3; c++ {
+							if cb&(1<<c) != 0 {
+								s.ChannelClipped[c][i] = true
+							}
+						}
+					}
 				}
 				if curv != nil {
 					t := float64(j) - jc
@@ -1185,8 +1243,8 @@ func abs(x int) int {
 // (about 18 ms a photo in a CPU profile). These pools hand the buffers of
 // one photo to the next (per goroutine, as sync.Pool does).
 var (
-	f32Pool  sync.Pool // *[]float32
-	boolPool sync.Pool // *[]bool
+	f32Pool sync.Pool // *[]float32
+	u8Pool  sync.Pool // *[]uint8
 )
 
 // getF32 returns a slice of n float32 with arbitrary contents.
@@ -1203,16 +1261,16 @@ func putF32(s []float32) {
 	}
 }
 
-// getBool returns a slice of n bool with arbitrary contents.
-func getBool(n int) []bool {
-	if p, ok := boolPool.Get().(*[]bool); ok && cap(*p) >= n {
+// getU8 returns a slice of n uint8 with arbitrary contents.
+func getU8(n int) []uint8 {
+	if p, ok := u8Pool.Get().(*[]uint8); ok && cap(*p) >= n {
 		return (*p)[:n]
 	}
-	return make([]bool, n)
+	return make([]uint8, n)
 }
 
-func putBool(s []bool) {
+func putU8(s []uint8) {
 	if cap(s) > 0 {
-		boolPool.Put(&s)
+		u8Pool.Put(&s)
 	}
 }

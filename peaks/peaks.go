@@ -34,6 +34,10 @@ type Peak struct {
 	CentreCOG  float64 // centre of gravity above half maximum, a cross-check on Center
 	Blend      bool    // fitted jointly with overlapping neighbours
 	Unresolved bool    // much wider than the profile's other lines: possibly an unresolved blend
+	// Channel is set by a caller that measured this line again in one
+	// colour channel ("R", "G" or "B") because it was clipped in the
+	// profile; Center and Sigma are then that channel's. Find leaves it empty.
+	Channel string `json:",omitempty"`
 }
 
 // Options tunes Find. The zero value is usable.

@@ -3,6 +3,7 @@ package main
 import (
 	"encoding/json"
 	"fmt"
+	"image/jpeg"
 	"image/png"
 	"math"
 	"os"
@@ -14,7 +15,8 @@ import (
 	"lineshot/imaging/synth"
 )
 
-// renderPNG renders p to dir/name (PNG) and returns its path and truth.
+// renderPNG renders p to dir/name (PNG, or JPEG of quality 90 when name
+// ends in .jpg) and returns its path and truth.
 func renderPNG(t *testing.T, dir, name, lamp string, p synth.Params) (string, synth.Truth) {
 	t.Helper()
 	l, err := calibrate.LampByName(lamp)
@@ -32,7 +34,12 @@ func renderPNG(t *testing.T, dir, name, lamp string, p synth.Params) (string, sy
 		t.Fatal(err)
 	}
 	defer f.Close()
-	if err := png.Encode(f, img); err != nil {
+	if strings.HasSuffix(name, ".jpg") {
+		err = jpeg.Encode(f, img, &jpeg.Options{Quality: 90})
+	} else {
+		err = png.Encode(f, img)
+	}
+	if err != nil {
 		t.Fatal(err)
 	}
 	return path, tr

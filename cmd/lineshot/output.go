@@ -95,6 +95,9 @@ func printImage(w io.Writer, r imageResult) {
 		sat := ""
 		if l.Saturated {
 			sat = " saturated"
+			if l.Channel != "" {
+				sat += " (centre from " + l.Channel + ")"
+			}
 		}
 		fmt.Fprintf(w, "  %8.2f %8.2f %10.3f %6.3f %6.2f %7.1f %10.3f %7.3f  %-14s %10s %8s%s\n",
 			l.X, l.Y, l.PositionPX, l.PositionErrPX, l.FWHMPX, l.SNR, l.WavelengthNM, l.WavelengthErrNM, id, ref, delta, sat)
