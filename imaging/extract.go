@@ -93,8 +93,17 @@ type Strip struct {
 	// CurvaturePX is how far the line images bow at the band's top and
 	// bottom edge relative to its centre row, px (followed in the profile).
 	CurvaturePX float64
+	// LeanDeg is the largest angle at which the line images cross the
+	// band (sheared images: a band away from the optical axis, a camera
+	// not square to the grating), followed in the profile like the bow.
+	LeanDeg float64
 	// Warnings say in plain words what makes this strip doubtful.
 	Warnings []string
+	// Bow is how the band's centre line departs from the straight line
+	// through Origin along AngleDeg (ToImage includes it): a band away
+	// from the optical axis, or seen through a lens with barrel or
+	// pincushion distortion, is bowed, and the strip follows it.
+	Bow Bow
 	// ResidualTiltDeg is the slope left in the band's centre line after
 	// straightening, degrees (0 when it could not be measured).
 	ResidualTiltDeg float64
@@ -103,13 +112,32 @@ type Strip struct {
 	// Frames and DarkFrames count the exposures ExtractStack averaged
 	// (0 from Extract).
 	Frames, DarkFrames int
+	// BandIndex and BandCount place this band among those found in the
+	// photo (ExtractBands), counted across the dispersion direction.
+	BandIndex, BandCount int
+	bowMeasured          bool // Bow from this band's own lines
 }
 
 // ToImage maps profile position p to original-image coordinates.
 func (s Strip) ToImage(p float64) (x, y float64) {
 	sn, cs := math.Sincos(s.AngleDeg * math.Pi / 180)
-	return s.Origin[0] + p*cs, s.Origin[1] + p*sn
+	b := s.Bow.at(p)
+	return s.Origin[0] + p*cs - b*sn, s.Origin[1] + p*sn + b*cs
 }
+
+// Bow is a band's centre line as an offset across the dispersion direction
+// (px, towards +y when the band runs along +x) at profile position p:
+// C0 + C1·(p − Mid) + C2·(p − Mid)². The zero value is a straight band.
+type Bow struct {
+	C0, C1, C2, Mid float64
+}
+
+func (b Bow) at(p float64) float64 {
+	d := p - b.Mid
+	return b.C0 + d*(b.C1+d*b.C2)
+}
+
+func (b Bow) zero() bool { return b.C0 == 0 && b.C1 == 0 && b.C2 == 0 }
 
 // Extract decodes the photo at path, finds the spectrum band, straightens
 // it and collapses it to profiles. Errors name the file and the reason.
@@ -137,6 +165,40 @@ func Extract(path string, opt Options) (Strip, error) {
 	}
 	s.Timing.Decode = decoded
 	return s, nil
+}
+
+// ExtractBands is Extract for a photo that may hold several bands side by
+// side (two lamps photographed together, one slit image above the other):
+// it finds every band parallel to the strongest and straightens and
+// collapses each on its own, returning them ordered across the frame
+// (Strip.BandIndex). A band that cannot be measured among others is left
+// out; an error comes only when none can be.
+func ExtractBands(path string, opt Options) ([]Strip, error) {
+	format, err := checkFile(path, opt)
+	if err != nil {
+		return nil, err
+	}
+	if opt.Profile == "" {
+		opt.Profile = ProfileSum
+		if format == "jpeg" {
+			opt.Profile = ProfileLuma
+		}
+	}
+	t0 := time.Now()
+	m := gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
+	defer m.Close()
+	if m.Empty() {
+		return nil, fmt.Errorf("%s: not an image OpenCV can decode", path)
+	}
+	decoded := time.Since(t0)
+	ss, err := extractBandsMat(m, opt, true)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", path, err)
+	}
+	for i := range ss {
+		ss[i].Timing.Decode = decoded
+	}
+	return ss, nil
 }
 
 // Decode decodes the photo at path as Extract does and discards it,
@@ -309,10 +371,20 @@ func srgbToLinear(v float64) float64 {
 const searchScale = 1024
 
 func extractMat(m gocv.Mat, opt Options) (Strip, error) {
+	ss, err := extractBandsMat(m, opt, false)
+	if err != nil {
+		return Strip{}, err
+	}
+	return ss[0], nil
+}
+
+// extractBandsMat finds the strongest band, or with all every band that
+// runs parallel to it, and straightens and collapses each.
+func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 	t0 := time.Now()
 	fr, err := newFrame(m)
 	if err != nil {
-		return Strip{}, err
+		return nil, err
 	}
 	nLevels := 256
 	clipAt := 250
@@ -331,7 +403,7 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	gocv.Resize(m, &small, image.Pt(sw, sh), 0, 0, gocv.InterpolationArea)
 	sp, err := sumPlane(small, lut)
 	if err != nil {
-		return Strip{}, err
+		return nil, err
 	}
 	gradient := flatten(sp)
 	bg, noise, peak := levels(sp)
@@ -339,7 +411,7 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 		// Only the user's rectangle may hold the band: blank the rest.
 		r := image.Rect(opt.ROI.Min.X/k, opt.ROI.Min.Y/k, (opt.ROI.Max.X+k-1)/k, (opt.ROI.Max.Y+k-1)/k)
 		if r.Intersect(image.Rect(0, 0, sw, sh)).Empty() {
-			return Strip{}, fmt.Errorf("the region %v lies outside the %dx%d frame", opt.ROI, fr.w, fr.h)
+			return nil, fmt.Errorf("the region %v lies outside the %dx%d frame", opt.ROI, fr.w, fr.h)
 		}
 		for y := 0; y < sh; y++ {
 			for x := 0; x < sw; x++ {
@@ -351,24 +423,109 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 		_, _, peak = levels(sp)
 	}
 	if peak-bg < 20*noise+0.02 {
-		return Strip{}, fmt.Errorf("%w: brightest pixel %.3f barely above the background %.3f", ErrNoBand, peak/3, bg/3)
+		return nil, fmt.Errorf("%w: brightest pixel %.3f barely above the background %.3f", ErrNoBand, peak/3, bg/3)
 	}
 	thr := bg + math.Max(8*noise, 0.05*(peak-bg))
 	pts := brightPoints(sp, bg, thr)
 	if len(pts) < 10 {
-		return Strip{}, fmt.Errorf("%w: only %d bright pixels", ErrNoBand, len(pts))
+		return nil, fmt.Errorf("%w: only %d bright pixels", ErrNoBand, len(pts))
 	}
 	ang := principalAngle(pts)
 	if opt.FixAngle {
 		ang = opt.AngleDeg
 	}
 	sx, sy := float64(fr.w)/float64(sw), float64(fr.h)/float64(sh)
-	vc, hh, ok := crossBand(sp, ang, bg, sx, sy)
-	if !ok {
-		return Strip{}, fmt.Errorf("%w: the bright pixels form no band (cut off by the frame edge?)", ErrNoBand)
+	guesses := crossBands(sp, ang, bg, sx, sy, all)
+	if len(guesses) == 0 {
+		return nil, fmt.Errorf("%w: the bright pixels form no band (cut off by the frame edge?)", ErrNoBand)
 	}
-
 	located := time.Since(t0)
+	if all && len(guesses) > 1 && !opt.FixAngle {
+		// The bright pixels of several bands together give a poorer
+		// direction than one band's: settle the strongest band's angle
+		// first, then look for the bands again along it (the bands are
+		// parallel).
+		best := 0
+		for k, g := range guesses {
+			if g.level > guesses[best].level {
+				best = k
+			}
+		}
+		if s, err := refineBand(fr, tables, clipAt, opt, ang, guesses[best], bg, noise, gradient); err == nil {
+			ang = s.AngleDeg
+			if g := crossBands(sp, ang, bg, sx, sy, true); len(g) > 0 {
+				guesses = g
+			}
+		}
+	}
+	strips := make([]*Strip, len(guesses))
+	for k, g := range guesses {
+		s, err := refineBand(fr, tables, clipAt, opt, ang, g, bg, noise, gradient)
+		if err != nil {
+			if !all {
+				return nil, err
+			}
+			continue // a band that cannot be measured among others
+		}
+		s.Timing.Locate = located
+		s.BandIndex, s.BandCount = k, len(guesses)
+		strips[k] = &s
+	}
+	// A band with too few strong lines to measure its bow takes it from a
+	// band that could: a band's bow grows with its distance from the
+	// optical axis (the centre of the frame, as elsewhere), in proportion
+	// for a pinhole camera behind a grating (its centre line is where the
+	// elevation η is constant: y ∝ tan η·sqrt(1 + x²/f²)).
+	sn, cs := math.Sincos(ang * math.Pi / 180)
+	vAxis := -float64(fr.w-1)/2*sn + float64(fr.h-1)/2*cs
+	ref := -1
+	for k, st := range strips {
+		if st != nil && st.bowMeasured && math.Abs(guesses[k].vc-vAxis) > 2*guesses[k].hh && (ref < 0 || st.BandHalfHeight > 0) {
+			ref = k
+		}
+	}
+	if ref >= 0 {
+		for k, st := range strips {
+			if st == nil || st.bowMeasured {
+				continue
+			}
+			g := guesses[k]
+			g.bowC2 = strips[ref].Bow.C2 * (g.vc - vAxis) / (guesses[ref].vc - vAxis)
+			if s, err := refineBand(fr, tables, clipAt, opt, ang, g, bg, noise, gradient); err == nil && !s.Bow.zero() {
+				s.Timing.Locate = located
+				s.BandIndex, s.BandCount = k, len(guesses)
+				strips[k] = &s
+			}
+		}
+	}
+	var out []Strip
+	for _, s := range strips {
+		if s != nil {
+			out = append(out, *s)
+		}
+	}
+	if len(out) == 0 {
+		return nil, fmt.Errorf("%w: no band could be straightened", ErrNoBand)
+	}
+	return out, nil
+}
+
+// bandGuess is a band's place across the dispersion direction, from the
+// reduced frame: centre vc and half-height hh (full-frame px), and how far
+// from vc the band may reach before a neighbouring band's territory
+// (+Inf when alone).
+type bandGuess struct {
+	vc, hh, reach, level float64
+	// bowC2, when not 0, is the bow to follow if the band's own lines are
+	// too few to measure one (from a neighbouring band, see
+	// extractBandsMat).
+	bowC2 float64
+}
+
+// refineBand measures one band on the full frame and straightens it.
+func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float64, g bandGuess, bg, noise, gradient float64) (Strip, error) {
+	vc, hh := g.vc, g.hh
+	lut := tables.lut
 	t1 := time.Now()
 	// 2. On the full frame, in a region around the band: measure the band's
 	// centre and height, straighten it with OpenCV, measure the centre
@@ -376,6 +533,10 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	// direction and offset by it until the line lies flat (at most four
 	// rounds; the last slope is the residual tilt).
 	side := math.Max(12, 0.6*hh)
+	if lim := g.reach - hh - 2; side > lim {
+		// Background rows must stay clear of the neighbouring band.
+		side = math.Max(4, lim)
+	}
 	var roi image.Rectangle
 	var rp plane
 	var rgb, lumaPlane []float32
@@ -391,17 +552,18 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	defer func() { release() }()
 	luma := tables.luma
 	var rbg float64
+	bowReach := 0.0 // room the region needs for a bowed band
 	cut := false
 	// prepare makes sure the linearised region holds the band as now
 	// placed: it is linearised once, with room for the corrections (about
 	// a quarter degree across the frame), and again only if the band left it.
 	prepare := func() error {
-		need, err := bandROI(fr.w, fr.h, ang, vc, hh+side+4)
+		need, err := bandROI(fr.w, fr.h, ang, vc, hh+side+4+bowReach)
 		if err != nil {
 			return err
 		}
 		if !need.In(roi) {
-			if roi, err = bandROI(fr.w, fr.h, ang, vc, hh+side+4+0.004*float64(fr.w+fr.h)); err != nil {
+			if roi, err = bandROI(fr.w, fr.h, ang, vc, hh+side+4+bowReach+0.004*float64(fr.w+fr.h)); err != nil {
 				return err
 			}
 			release()
@@ -414,7 +576,7 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 		if err := prepare(); err != nil {
 			return Strip{}, err
 		}
-		if vc2, hh2, ok := crossBandRegion(rp, roi, ang, rbg, vc, hh+side); ok {
+		if vc2, hh2, ok := crossBandRegion(rp, roi, ang, rbg, vc, math.Min(hh+side, g.reach)); ok {
 			vc, hh = vc2, hh2
 			cut = false
 		} else {
@@ -448,16 +610,57 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 	}
 	// Without an image to keep, only the profile's own channel is warped:
 	// a quarter of the work and of the memory.
-	data, nc := rgb, 4
-	if !opt.KeepImage {
-		data, nc = lumaPlane, 1
-		if opt.Profile != ProfileLuma {
-			data = rp.pix
+	pick := func() ([]float32, int) {
+		if opt.KeepImage {
+			return rgb, 4
 		}
+		if opt.Profile != ProfileLuma {
+			return rp.pix, 1
+		}
+		return lumaPlane, 1
 	}
-	s, fit, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.KeepImage, opt.Profile)
+	data, nc := pick()
+	s, fit, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.KeepImage, opt.Profile, Bow{})
 	if err != nil {
 		return Strip{}, err
+	}
+	// A band away from the optical axis (a second lamp's slit image above
+	// the first) or seen through a lens with barrel or pincushion
+	// distortion is bowed: its centre line is a parabola. When the bow
+	// reaches 0.3 px over the band, the strip follows it.
+	var bow Bow
+	L := float64(len(s.Profile))
+	jc := float64(int(math.Ceil(hh)) + int(math.Ceil(side)))
+	own := fit.qok && math.Abs(fit.q2)*(L/2)*(L/2) > 0.3
+	hinted := !own && g.bowC2 != 0 && len(fit.pts) >= 2 && math.Abs(g.bowC2)*(L/2)*(L/2) > 0.3
+	if own {
+		bow = Bow{C0: fit.q0 - jc, C1: fit.q1, C2: fit.q2, Mid: fit.mid}
+	} else if hinted {
+		// The neighbour's bow, placed through this band's own centres.
+		mid := (L - 1) / 2
+		var ts, ys, ws []float64
+		for _, q := range fit.pts {
+			t := q[0] - mid
+			ts, ys, ws = append(ts, t), append(ys, q[1]-g.bowC2*t*t), append(ws, q[2])
+		}
+		a, b, ok := lineFit(ts, ys, ws)
+		if ok {
+			bow = Bow{C0: a - jc, C1: b, C2: g.bowC2, Mid: mid}
+		}
+	}
+	if !bow.zero() && !opt.FixAngle {
+		bowReach = math.Max(math.Abs(bow.at(0)), math.Abs(bow.at(L-1))) + math.Abs(bow.C0) + 2
+		if err := prepare(); err != nil {
+			return Strip{}, err
+		}
+		data, nc = pick()
+		sb, fb, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.KeepImage, opt.Profile, bow)
+		if err == nil {
+			s, fit = sb, fb
+			s.bowMeasured = own
+		} else {
+			bow = Bow{}
+		}
 	}
 	if nc == 1 && s.Saturated > 0 {
 		// Saturated pixels in the band: straighten every channel after
@@ -465,7 +668,7 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 		// in one channel can be measured in another.
 		putF32(rgb)
 		rgb = regionRGB(fr, roi, lut, lumaPlane)
-		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, false, opt.Profile); err == nil {
+		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, false, opt.Profile, bow); err == nil {
 			s, fit = s4, fit4
 		}
 	}
@@ -473,7 +676,7 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 		s.ResidualTiltDeg = math.Atan(fit.slope) * 180 / math.Pi
 	}
 	ang = s.AngleDeg
-	s.Timing.Locate, s.Timing.Straighten = located, time.Since(t1)
+	s.Timing.Straighten = time.Since(t1)
 	s.FrameW, s.FrameH = fr.w, fr.h
 	s.Background, s.Noise, s.BackgroundRange = bg/3, noise/3, gradient/3
 	cx, cy := float64(fr.w-1)/2, float64(fr.h-1)/2
@@ -530,32 +733,6 @@ func sumPlane(m gocv.Mat, lut []float32) (plane, error) {
 		}
 	}
 	return p, nil
-}
-
-// crossBand finds the band across direction ang on the reduced plane and
-// returns its centre v (full-frame px) and half-height.
-func crossBand(p plane, ang, bg, sx, sy float64) (vc, hh float64, ok bool) {
-	sn, cs := math.Sincos(ang * math.Pi / 180)
-	// v of every reduced pixel, in full-frame units.
-	vmin, vmax := math.Inf(1), math.Inf(-1)
-	for _, c := range [][2]float64{{0, 0}, {float64(p.w), 0}, {0, float64(p.h)}, {float64(p.w), float64(p.h)}} {
-		v := -(c[0]*sx)*sn + (c[1]*sy)*cs
-		vmin, vmax = math.Min(vmin, v), math.Max(vmax, v)
-	}
-	step := math.Max(sx, sy)
-	prof := make([]float64, int((vmax-vmin)/step)+2)
-	for y := 0; y < p.h; y++ {
-		for x := 0; x < p.w; x++ {
-			fx, fy := (float64(x)+0.5)*sx-0.5, (float64(y)+0.5)*sy-0.5
-			v := -fx*sn + fy*cs
-			prof[int((v-vmin)/step)] += float64(p.at(x, y)) - bg
-		}
-	}
-	c, h, ok := bandEdges(prof)
-	if !ok {
-		return 0, 0, false
-	}
-	return vmin + (c+0.5)*step, math.Max(h*step, 2), true
 }
 
 // crossBandRegion measures the band's centre and half-height at full
@@ -691,7 +868,7 @@ func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma
 // dispersion (OpenCV warpAffine, bilinear, on linear values), subtracts a
 // per-column background taken from the rows beside the band, and sums the
 // band rows into profiles.
-func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, keep bool, profile string) (Strip, centreFit, error) {
+func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, keep bool, profile string, bow Bow) (Strip, centreFit, error) {
 	w, h := roi.Dx(), roi.Dy()
 	L := int(math.Floor(u1-u0)) + 1
 	half := int(math.Ceil(hh))
@@ -699,7 +876,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	H := 2*(half+sd) + 1
 	v0 := vc - float64(half+sd)
 	sn, cs := math.Sincos(ang * math.Pi / 180)
-	dst, err := warp(rgb, nc, roi, ang, u0, v0, L, H)
+	dst, err := warp(rgb, nc, roi, ang, u0, v0, L, H, bow)
 	if err != nil {
 		return Strip{}, centreFit{}, err
 	}
@@ -708,7 +885,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	if err != nil {
 		return Strip{}, centreFit{}, fmt.Errorf("straighten: %w", err)
 	}
-	s := Strip{AngleDeg: ang, BandHalfHeight: hh}
+	s := Strip{AngleDeg: ang, BandHalfHeight: hh, Bow: bow}
 	s.Origin = [2]float64{u0*cs - vc*sn, u0*sn + vc*cs}
 	for k, c := range [][2]float64{{u0, vc - hh}, {u1, vc - hh}, {u1, vc + hh}, {u0, vc + hh}} {
 		s.Band[k] = [2]float64{c[0]*cs - c[1]*sn, c[0]*sn + c[1]*cs}
@@ -736,8 +913,11 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	s.CurvaturePX = 0
 	if curv != nil {
 		t := float64(half)
-		for _, k := range curv {
+		for _, k := range curv.bow {
 			s.CurvaturePX = math.Max(s.CurvaturePX, math.Abs(k)*t*t)
+		}
+		for _, b := range curv.lean {
+			s.LeanDeg = math.Max(s.LeanDeg, math.Abs(math.Atan(b)*180/math.Pi))
 		}
 	}
 	jc := float64(H-1) / 2
@@ -758,9 +938,16 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 		ilo, ihi := colRange(ax, cs, float64(w-1), L)
 		jlo, jhi := colRange(ay, sn, float64(h-1), L)
 		ilo, ihi = max(ilo, jlo), min(ihi, jhi)
+		if !bow.zero() {
+			ilo, ihi = 0, L-1 // bowed rows: every column, bounds checked below
+		}
 		for i := ilo; i <= ihi; i++ {
 			x := ax + float64(i)*cs
 			y := ay + float64(i)*sn
+			if !bow.zero() {
+				b := bow.at(float64(i))
+				x, y = x-b*sn, y+b*cs
+			}
 			if x < 0 || y < 0 || x > float64(w-1) || y > float64(h-1) {
 				continue // rounding at the range's ends
 			}
@@ -781,7 +968,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 				}
 				if curv != nil {
 					t := float64(j) - jc
-					xi := float64(i) + curv[i]*t*t
+					xi := float64(i) + curv.shift(i, t)
 					i0 := int(math.Floor(xi))
 					if i0 >= 0 && i0+1 < L {
 						f := float32(xi - float64(i0))
@@ -957,14 +1144,14 @@ func (t lumaLUT) at(code float64) float32 {
 	return t.tab[i]*(1-f) + t.tab[i+1]*f
 }
 
-// lineCurvature measures how the strongest lines bow across the band: for
-// each, the luma centroid in six groups of band rows, fitted with
-// a + b·t + k·t² (t the row offset from the centre row); k is then fitted
-// linearly along the strip. It returns k per column (columns per row²),
-// or nil when the bow is below 0.25 px at the band's edge (smaller bows
-// are within what the estimate itself scatters on flat lines) or cannot be
-// measured.
-func lineCurvature(px []float32, stride, off, L, H, sd int) []float64 {
+// lineCurvature measures how the strongest lines lean and bow across the
+// band: for each, the luma centroid in six groups of band rows, fitted
+// with a + b·t + k·t² (t the row offset from the centre row); b and k are
+// then fitted linearly along the strip. It returns them per column, each
+// only when it moves a line by 0.25 px at the band's edge (smaller terms
+// are within what the estimate itself scatters on straight lines), or nil
+// when neither does or they cannot be measured.
+func lineCurvature(px []float32, stride, off, L, H, sd int) *lineShape {
 	jc := float64(H-1) / 2
 	lo, hi := sd, H-1-sd
 	if hi-lo < 12 {
@@ -976,14 +1163,20 @@ func lineCurvature(px []float32, stride, off, L, H, sd int) []float64 {
 			prof[i] += float64(px[stride*(j*L+i)+off])
 		}
 	}
+	// Heights above the strip's level (its median column), so that noise
+	// maxima on the background neither pass for lines nor weigh in.
+	base := medianOf(append([]float64(nil), prof...))
+	for i := range prof {
+		prof[i] -= base
+	}
 	var maxima []int
 	for i := 5; i < L-5; i++ {
-		if prof[i] > prof[i-1] && prof[i] >= prof[i+1] {
+		if prof[i] > prof[i-1] && prof[i] >= prof[i+1] && prof[i] > 0 {
 			maxima = append(maxima, i)
 		}
 	}
 	sort.Slice(maxima, func(a, b int) bool { return prof[maxima[a]] > prof[maxima[b]] })
-	type meas struct{ col, k, w float64 }
+	type meas struct{ col, b, k, w float64 }
 	var ms []meas
 	const r, groups = 4, 6
 	for _, m := range maxima {
@@ -1024,45 +1217,77 @@ func lineCurvature(px []float32, stride, off, L, H, sd int) []float64 {
 		if len(ts) < groups {
 			continue
 		}
-		k, ok := quadCoef(ts, cs, ws)
+		_, b, k, ok := quadFit(ts, cs, ws)
 		if ok {
-			ms = append(ms, meas{float64(m), k, prof[m]})
+			ms = append(ms, meas{float64(m), b, k, prof[m]})
 		}
 	}
 	if len(ms) < 2 {
 		return nil
 	}
-	// k along the strip: weighted straight line (a constant for one line).
-	var sw, sx, sy, sxx, sxy float64
-	for _, q := range ms {
-		sw += q.w
-		sx += q.w * q.col
-		sy += q.w * q.k
-		sxx += q.w * q.col * q.col
-		sxy += q.w * q.col * q.k
-	}
-	k0, k1 := sy/sw, 0.0
-	if d := sw*sxx - sx*sx; len(ms) >= 2 && d > 1e-9*sw*sxx {
-		k1 = (sw*sxy - sx*sy) / d
-		k0 = (sy - k1*sx) / sw
-	}
-	out := make([]float64, L)
-	edge := float64(hi-lo) / 2
-	big := false
-	for i := range out {
-		out[i] = k0 + k1*float64(i)
-		if math.Abs(out[i])*edge*edge > 0.25 {
-			big = true
+	// Lean and bow along the strip: weighted straight lines (constants
+	// for one line).
+	along := func(val func(meas) float64) (float64, float64) {
+		var sw, sx, sy, sxx, sxy float64
+		for _, q := range ms {
+			sw += q.w
+			sx += q.w * q.col
+			sy += q.w * val(q)
+			sxx += q.w * q.col * q.col
+			sxy += q.w * q.col * val(q)
 		}
+		c0, c1 := sy/sw, 0.0
+		if d := sw*sxx - sx*sx; len(ms) >= 2 && d > 1e-9*sw*sxx {
+			c1 = (sw*sxy - sx*sy) / d
+			c0 = (sy - c1*sx) / sw
+		}
+		return c0, c1
 	}
-	if !big {
+	b0, b1 := along(func(q meas) float64 { return q.b })
+	k0, k1 := along(func(q meas) float64 { return q.k })
+	out := &lineShape{lean: make([]float64, L), bow: make([]float64, L)}
+	edge := float64(hi-lo) / 2
+	bigLean, bigBow := false, false
+	for i := 0; i < L; i++ {
+		out.lean[i] = b0 + b1*float64(i)
+		out.bow[i] = k0 + k1*float64(i)
+		bigLean = bigLean || math.Abs(out.lean[i])*edge > 0.25
+		bigBow = bigBow || math.Abs(out.bow[i])*edge*edge > 0.25
+	}
+	if !bigLean {
+		out.lean = nil
+	}
+	if !bigBow {
+		out.bow = nil
+	}
+	if !bigLean && !bigBow {
 		return nil
 	}
 	return out
 }
 
+// lineShape is how the line images run across the band at each strip
+// column i: a line's centre at row offset t from the centre row lies
+// lean[i]·t + bow[i]·t² columns from its centre-row position. Either
+// slice is nil when that term is too small to follow.
+type lineShape struct {
+	lean, bow []float64
+}
+
+// shift returns the column offset of row offset t at column i.
+func (l *lineShape) shift(i int, t float64) float64 {
+	var d float64
+	if l.lean != nil {
+		d += l.lean[i] * t
+	}
+	if l.bow != nil {
+		d += l.bow[i] * t * t
+	}
+	return d
+}
+
 // quadCoef fits y = a + b·t + k·t² by weighted least squares and returns k.
-func quadCoef(t, y, w []float64) (float64, bool) {
+func quadFit(t, y, w []float64) (a, b, c float64, ok bool) {
 	var m [3][4]float64
 	for i := range t {
 		row := [3]float64{1, t[i], t[i] * t[i]}
@@ -1083,7 +1308,7 @@ func quadCoef(t, y, w []float64) (float64, bool) {
 		}
 		m[c], m[p] = m[p], m[c]
 		if math.Abs(m[c][c]) < 1e-12 {
-			return 0, false
+			return 0, 0, 0, false
 		}
 		for r := 0; r < 3; r++ {
 			if r != c {
@@ -1094,13 +1319,13 @@ func quadCoef(t, y, w []float64) (float64, bool) {
 			}
 		}
 	}
-	return m[2][3] / m[2][2], true
+	return m[0][3] / m[0][0], m[1][3] / m[1][1], m[2][3] / m[2][2], true
 }
 
 // warp returns the strip, L×H pixels of ch float32 channels, whose pixel
 // (i, j) samples the region's data at frame point (u0+i)·e_u + (v0+j)·e_v
 // (OpenCV warpAffine, bilinear, zero outside). The caller closes it.
-func warp(data []float32, ch int, roi image.Rectangle, ang, u0, v0 float64, L, H int) (gocv.Mat, error) {
+func warp(data []float32, ch int, roi image.Rectangle, ang, u0, v0 float64, L, H int, bow Bow) (gocv.Mat, error) {
 	w, h := roi.Dx(), roi.Dy()
 	types := map[int]gocv.MatType{1: gocv.MatTypeCV32FC1, 4: gocv.MatTypeCV32FC4}
 	if len(data) != ch*w*h || types[ch] == 0 || L < 1 || H < 1 {
@@ -1112,6 +1337,9 @@ func warp(data []float32, ch int, roi image.Rectangle, ang, u0, v0 float64, L, H
 	}
 	defer src.Close()
 	sn, cs := math.Sincos(ang * math.Pi / 180)
+	if !bow.zero() {
+		return remapBowed(src, roi, sn, cs, u0, v0, L, H, bow)
+	}
 	M := gocv.NewMatWithSize(2, 3, gocv.MatTypeCV64F)
 	defer M.Close()
 	M.SetDoubleAt(0, 0, cs)
@@ -1136,7 +1364,7 @@ func centreOnly(luma []float32, roi image.Rectangle, ang, vc, hh, side, u0, u1 f
 	L := int(math.Floor(u1-u0)) + 1
 	half, sd := int(math.Ceil(hh)), int(math.Ceil(side))
 	H := 2*(half+sd) + 1
-	dst, err := warp(luma, 1, roi, ang, u0, vc-float64(half+sd), L, H)
+	dst, err := warp(luma, 1, roi, ang, u0, vc-float64(half+sd), L, H, Bow{})
 	if err != nil {
 		return centreFit{}
 	}
@@ -1162,6 +1390,12 @@ func centreOnly(luma []float32, roi image.Rectangle, ang, vc, hh, side, u0, u1 f
 type centreFit struct {
 	slope, offset float64
 	ok            bool
+	// The centre line as a parabola, row = q0 + q1·(i − mid) + q2·(i −
+	// mid)², when enough strong lines spread along the strip (qok).
+	q0, q1, q2, mid float64
+	qok             bool
+	// pts are the centre samples the fits used: column, row, weight.
+	pts [][3]float64
 }
 
 // fitCentreLine measures, at up to 12 of the strongest local maxima of
@@ -1193,12 +1427,15 @@ func fitCentreLine(px []float32, stride, off, L, H int, prof []float64) centreFi
 		}
 	}
 	var sw, sx, sy, sxx, sxy float64
+	var xs, cs, ws []float64
 	lo, hi := L, 0
 	vp := make([]float64, H)
 	for _, m := range picked {
 		for j := 0; j < H; j++ {
 			vp[j] = 0
-			for i := m - 2; i <= m+2; i++ {
+			// ±6 columns hold all of a line that leans a few pixels
+			// across the band (off-axis bands, sheared images).
+			for i := max(0, m-6); i <= min(L-1, m+6); i++ {
 				vp[j] += float64(px[stride*(j*L+i)+off])
 			}
 		}
@@ -1213,6 +1450,7 @@ func fitCentreLine(px []float32, stride, off, L, H int, prof []float64) centreFi
 		}
 		w := prof[m]
 		x := float64(m)
+		xs, cs, ws = append(xs, x), append(cs, c), append(ws, w)
 		sw += w
 		sx += w * x
 		sy += w * c
@@ -1228,7 +1466,19 @@ func fitCentreLine(px []float32, stride, off, L, H int, prof []float64) centreFi
 		return centreFit{}
 	}
 	slope := (sw*sxy - sx*sy) / d
-	return centreFit{slope: slope, offset: (sy - slope*sx) / sw, ok: math.Abs(slope) < 0.1}
+	f := centreFit{slope: slope, offset: (sy - slope*sx) / sw, ok: math.Abs(slope) < 0.1}
+	for k := range xs {
+		f.pts = append(f.pts, [3]float64{xs[k], cs[k], ws[k]})
+	}
+	if len(xs) >= 4 && hi-lo >= L/4 {
+		f.mid = float64(L-1) / 2
+		ts := make([]float64, len(xs))
+		for k, x := range xs {
+			ts[k] = x - f.mid
+		}
+		f.q0, f.q1, f.q2, f.qok = quadFit(ts, cs, ws)
+	}
+	return f
 }
 
 func abs(x int) int {
@@ -1273,4 +1523,54 @@ func putU8(s []uint8) {
 	if cap(s) > 0 {
 		u8Pool.Put(&s)
 	}
+}
+
+// remapBowed samples the strip along a bowed band: strip pixel (i, j) lies
+// at u = u0 + i, v = v0 + j + bow(i) across the band (OpenCV's remap with
+// bilinear interpolation, as the straight warp uses).
+func remapBowed(src gocv.Mat, roi image.Rectangle, sn, cs, u0, v0 float64, L, H int, bow Bow) (gocv.Mat, error) {
+	mx := gocv.NewMatWithSize(H, L, gocv.MatTypeCV32FC1)
+	defer mx.Close()
+	my := gocv.NewMatWithSize(H, L, gocv.MatTypeCV32FC1)
+	defer my.Close()
+	px, err1 := mx.DataPtrFloat32()
+	py, err2 := my.DataPtrFloat32()
+	if err1 != nil || err2 != nil {
+		return gocv.Mat{}, errors.New("straighten: cannot build the remap tables")
+	}
+	for j := 0; j < H; j++ {
+		for i := 0; i < L; i++ {
+			u, v := u0+float64(i), v0+float64(j)+bow.at(float64(i))
+			px[j*L+i] = float32(u*cs - v*sn - float64(roi.Min.X))
+			py[j*L+i] = float32(u*sn + v*cs - float64(roi.Min.Y))
+		}
+	}
+	dst := gocv.NewMat()
+	gocv.Remap(src, &dst, &mx, &my, gocv.InterpolationLinear, gocv.BorderConstant, color.RGBA{})
+	if dst.Empty() || dst.Cols() != L || dst.Rows() != H {
+		dst.Close()
+		return gocv.Mat{}, errors.New("straighten: OpenCV returned no strip")
+	}
+	return dst, nil
+}
+
+// lineFit fits y = a + b·t by weighted least squares.
+func lineFit(t, y, w []float64) (a, b float64, ok bool) {
+	var sw, st, sy, stt, sty float64
+	for k := range t {
+		sw += w[k]
+		st += w[k] * t[k]
+		sy += w[k] * y[k]
+		stt += w[k] * t[k] * t[k]
+		sty += w[k] * t[k] * y[k]
+	}
+	d := sw*stt - st*st
+	if sw == 0 || d <= 1e-12*sw*stt {
+		if sw == 0 {
+			return 0, 0, false
+		}
+		return sy / sw, 0, true
+	}
+	b = (sw*sty - st*sy) / d
+	return (sy - b*st) / sw, b, true
 }

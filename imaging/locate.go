@@ -103,6 +103,9 @@ func bandEdges(prof []float64) (center, half float64, ok bool) {
 			imax = i
 		}
 	}
+	if sm[imax] <= 0 {
+		return 0, 0, false // nothing stands above the background
+	}
 	// Plateau level: the median of the samples above 70% of the maximum
 	// (the slit image is flat-topped); the edges are where the profile
 	// crosses half of it.
@@ -277,4 +280,71 @@ func solve6(a [6][6]float64, b [6]float64) ([6]float64, bool) {
 		x[r] = s / a[r][r]
 	}
 	return x, true
+}
+
+// crossBands finds the band (or with all, every band) across the
+// dispersion direction ang on the reduced plane p: the profile across
+// the direction, summed along it, holds one flat-topped bump per band.
+// Bands come ordered across the frame; each gets the reach halfway to
+// its neighbours' edges. A further band counts when its plateau is at
+// least a tenth of the strongest band's (dimmer bumps are the strongest
+// band's wings or room light).
+func crossBands(p plane, ang, bg, sx, sy float64, all bool) []bandGuess {
+	sn, cs := math.Sincos(ang * math.Pi / 180)
+	vmin, vmax := math.Inf(1), math.Inf(-1)
+	for _, c := range [][2]float64{{0, 0}, {float64(p.w), 0}, {0, float64(p.h)}, {float64(p.w), float64(p.h)}} {
+		v := -(c[0]*sx)*sn + (c[1]*sy)*cs
+		vmin, vmax = math.Min(vmin, v), math.Max(vmax, v)
+	}
+	step := math.Max(sx, sy)
+	prof := make([]float64, int((vmax-vmin)/step)+2)
+	for y := 0; y < p.h; y++ {
+		for x := 0; x < p.w; x++ {
+			fx, fy := (float64(x)+0.5)*sx-0.5, (float64(y)+0.5)*sy-0.5
+			v := -fx*sn + fy*cs
+			prof[int((v-vmin)/step)] += float64(p.at(x, y)) - bg
+		}
+	}
+	type bump struct{ c, h, level float64 }
+	var found []bump
+	work := append([]float64(nil), prof...)
+	for len(found) < 8 {
+		c, h, ok := bandEdges(work)
+		if !ok {
+			break
+		}
+		var lv float64
+		var n int
+		for i := max(0, int(c-h/2)); i <= min(len(work)-1, int(c+h/2)); i++ {
+			lv += work[i]
+			n++
+		}
+		lv /= float64(max(1, n))
+		if len(found) > 0 && lv < 0.1*found[0].level {
+			break
+		}
+		found = append(found, bump{c, h, lv})
+		if !all {
+			break
+		}
+		// Blank it and its wings (as wide again) before looking further.
+		for i := max(0, int(c-2*h-2)); i <= min(len(work)-1, int(c+2*h+2)); i++ {
+			work[i] = 0
+		}
+	}
+	sort.Slice(found, func(a, b int) bool { return found[a].c < found[b].c })
+	out := make([]bandGuess, len(found))
+	for k, b := range found {
+		reach := math.Inf(1)
+		if k > 0 {
+			a := found[k-1]
+			reach = math.Min(reach, ((b.c-b.h)-(a.c+a.h))/2+b.h)
+		}
+		if k+1 < len(found) {
+			n := found[k+1]
+			reach = math.Min(reach, ((n.c-n.h)-(b.c+b.h))/2+b.h)
+		}
+		out[k] = bandGuess{vc: vmin + (b.c+0.5)*step, hh: math.Max(b.h*step, 2), reach: reach * step, level: b.level}
+	}
+	return out
 }

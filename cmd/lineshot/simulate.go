@@ -30,6 +30,7 @@ Examples:
   lineshot simulate --lamp mercury --focal-px 1500 --psf 1.5 --quality 75 -o webcam-hg.jpg
   lineshot simulate --lamp mercury --lines-per-mm 300 --orders -1,0,1 --peak 0.5 -o both-sides.jpg
   lineshot simulate --lamp hydrogen --peak 0.1 --read-noise 15 --frames 20 -o dim.avi
+  lineshot simulate --lamp mercury --second-lamp hydrogen -o two-bands.jpg
 `
 
 func runSimulate(args []string, stdout, stderr io.Writer) error {
@@ -42,6 +43,8 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 	order := fs.Int("order", 1, "diffraction order")
 	orders := fs.IntSlice("orders", nil, "signed orders to render, e.g. -1,0,1 (0: the white zero order); default: --order alone")
 	zeroGain := fs.Float64("zero-order-gain", 1, "zero order brightness per line relative to the first order")
+	second := fs.String("second-lamp", "", "a second lamp whose band lies beside the first (two lamps photographed together)")
+	secondOff := fs.Float64("second-offset", 0, "how far below the first band the second lies, px (negative: above); 0: a fifth of the image height")
 	gradient := fs.Float64("background-gradient", 0, "room-light slope: background change from left to right edge, fraction of full scale")
 	size := fs.String("size", "1920x1080", "image size WIDTHxHEIGHT in px")
 	focal := fs.Float64("focal-px", 0, "camera focal length in px; 0: frame 380-720 nm across 85% of the width")
@@ -84,6 +87,17 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 		TiltDeg: *tilt, PSFSigmaPX: *psf, LineHeightPX: *height, PeakLevel: *peak, FullWell: *fullWell,
 		ReadNoise: *readNoise, Background: *bg, Seed: *seed, Emissions: emissions(l),
 		Orders: *orders, ZeroOrderGain: *zeroGain, BackgroundGradient: *gradient}
+	if *second != "" {
+		l2, err := calibrate.LampByName(*second)
+		if err != nil {
+			return usagef("simulate: --second-lamp: %v", err)
+		}
+		off := *secondOff
+		if off == 0 {
+			off = float64(h) / 5
+		}
+		p.Stacked = []synth.StackedLamp{{Emissions: emissions(l2), OffsetPX: off}}
+	}
 	img, truth, err := synth.Render(p)
 	if err != nil {
 		return usagef("simulate: %v", err)

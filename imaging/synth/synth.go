@@ -67,10 +67,23 @@ type Params struct {
 	// BackgroundGradient adds a room-light slope to the background: its
 	// change from the left edge of the frame to the right, fraction of
 	// full scale (the background stays at Background in the middle).
-	BackgroundGradient float64    `json:"background_gradient,omitempty"`
-	NoNoise            bool       `json:"no_noise"` // render the expected image without noise
-	Seed               uint64     `json:"seed"`
-	Emissions          []Emission `json:"emissions"`
+	BackgroundGradient float64 `json:"background_gradient,omitempty"`
+	// Stacked are further lamps seen through the same grating, their slit
+	// images above or below the first (two lamps photographed together,
+	// one band over the other). Their strengths share the first lamp's
+	// scale.
+	Stacked   []StackedLamp `json:"stacked,omitempty"`
+	NoNoise   bool          `json:"no_noise"` // render the expected image without noise
+	Seed      uint64        `json:"seed"`
+	Emissions []Emission    `json:"emissions"`
+}
+
+// StackedLamp is a further lamp in the frame: its lines, and how far its
+// slit image's centre lies below the first lamp's (px in the image before
+// the roll; negative: above).
+type StackedLamp struct {
+	Emissions []Emission `json:"emissions"`
+	OffsetPX  float64    `json:"offset_px"`
 }
 
 // Defaults returns p with every zero optional field set.
@@ -142,6 +155,7 @@ type TruthLine struct {
 	InFrame    bool    `json:"in_frame"`
 	Order      int     `json:"order,omitempty"`      // signed diffraction order (0 in older files: the first)
 	Zero       bool    `json:"zero_order,omitempty"` // the zero order (NM is 0)
+	Band       int     `json:"band,omitempty"`       // 0: the first lamp; k: Stacked[k−1]
 	Dispersion float64 `json:"nm_per_px"`            // local dispersion along the band
 	PeakE      float64 `json:"peak_e"`               // expected peak signal, electrons, strongest channel
 }
@@ -210,63 +224,93 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 		xu      float64 // unrolled x of the line at η = 0
 		sigNM   float64 // intrinsic Gaussian σ, nm
 	}
-	var lines []ln
+	// One band per lamp: its slit's elevation η and its lines.
+	type band struct {
+		eta     float64
+		lines   []ln
+		zero    bool
+		zeroRGB [3]float64 // the zero order's amplitude per channel
+	}
+	lamps := [][]Emission{p.Emissions}
+	etas := []float64{0}
+	for _, sl := range p.Stacked {
+		lamps = append(lamps, sl.Emissions)
+		etas = append(etas, math.Atan(sl.OffsetPX/f))
+	}
 	var truth Truth
 	maxv := 0.0
-	for _, e := range p.Emissions {
-		r := response(e.NM)
-		v := e.Strength * math.Max(r[0], math.Max(r[1], r[2]))
-		maxv = math.Max(maxv, v)
+	for _, em := range lamps {
+		for _, e := range em {
+			r := response(e.NM)
+			v := e.Strength * math.Max(r[0], math.Max(r[1], r[2]))
+			maxv = math.Max(maxv, v)
+		}
 	}
 	if maxv <= 0 {
 		return nil, Truth{}, errors.New("synth: every emission has zero strength or lies outside the camera's response")
 	}
 	k := p.PeakLevel * fw / maxv
-	addTruth := func(t TruthLine, xu float64) {
-		t.X = cx + (xu-cx)*ct
-		t.Y = cy + (xu-cx)*st
+	// at places the ray of grating direction cosines (kx, sin η) in the
+	// image: the camera turned by θc, then rolled.
+	at := func(kx, eta float64) (x, y float64) {
+		ky := math.Sin(eta)
+		kz := math.Sqrt(math.Max(0, 1-kx*kx-ky*ky))
+		xc, zc := kx*cc-kz*sc, kx*sc+kz*cc
+		xu, yu := cx+f*xc/zc, cy+f*ky/zc
+		return cx + (xu-cx)*ct - (yu-cy)*st, cy + (xu-cx)*st + (yu-cy)*ct
+	}
+	addTruth := func(t TruthLine, xu, kx, eta float64) {
+		if eta == 0 {
+			t.X = cx + (xu-cx)*ct
+			t.Y = cy + (xu-cx)*st
+		} else {
+			t.X, t.Y = at(kx, eta)
+		}
 		t.InFrame = t.X >= 0 && t.X <= float64(W-1) && t.Y >= 0 && t.Y <= float64(H-1)
 		truth.Lines = append(truth.Lines, t)
 	}
-	zero := false
-	var zeroRGB [3]float64 // the zero order's amplitude per channel
 	zeroXU := cx + f*math.Tan(-tc)
-	for _, m := range p.Orders {
-		if m == 0 {
-			zero = true
-			continue
-		}
-		gain := 1.0
-		if m > 1 || m < -1 {
-			gain = p.HigherOrderGain
-		}
-		dm := d / float64(m)
-		for _, e := range p.Emissions {
-			s := e.NM / dm
-			if math.Abs(s) >= 1 {
-				continue // this order does not exist for this line
-			}
-			th := math.Asin(s)
-			if math.Abs(th-tc) >= math.Pi/2*0.95 {
+	bands := make([]band, len(lamps))
+	for bi, em := range lamps {
+		bd := &bands[bi]
+		bd.eta = etas[bi]
+		for _, m := range p.Orders {
+			if m == 0 {
+				bd.zero = true
 				continue
 			}
-			xu := cx + f*math.Tan(th-tc)
-			r := response(e.NM)
-			l := ln{dm: dm, nm: e.NM, amp: e.Strength * k * gain, rgb: r, xu: xu, sigNM: e.FWHMNM / 2.3548200450309493}
-			lines = append(lines, l)
-			X := (xu - cx) / f
-			addTruth(TruthLine{NM: e.NM, Name: e.Name, Order: m, Dispersion: math.Abs(dm) * math.Cos(tc+math.Atan(X)) / (1 + X*X) / f,
-				PeakE: l.amp * math.Max(r[0], math.Max(r[1], r[2]))}, xu)
-		}
-	}
-	if zero {
-		for _, e := range p.Emissions {
-			r := response(e.NM)
-			for ch := range zeroRGB {
-				zeroRGB[ch] += e.Strength * k * p.ZeroOrderGain * r[ch]
+			gain := 1.0
+			if m > 1 || m < -1 {
+				gain = p.HigherOrderGain
+			}
+			dm := d / float64(m)
+			for _, e := range em {
+				s := e.NM / dm
+				if math.Abs(s) >= 1 {
+					continue // this order does not exist for this line
+				}
+				th := math.Asin(s)
+				if math.Abs(th-tc) >= math.Pi/2*0.95 {
+					continue
+				}
+				xu := cx + f*math.Tan(th-tc)
+				r := response(e.NM)
+				l := ln{dm: dm, nm: e.NM, amp: e.Strength * k * gain, rgb: r, xu: xu, sigNM: e.FWHMNM / 2.3548200450309493}
+				bd.lines = append(bd.lines, l)
+				X := (xu - cx) / f
+				addTruth(TruthLine{NM: e.NM, Name: e.Name, Order: m, Band: bi, Dispersion: math.Abs(dm) * math.Cos(tc+math.Atan(X)) / (1 + X*X) / f,
+					PeakE: l.amp * math.Max(r[0], math.Max(r[1], r[2]))}, xu, s, bd.eta)
 			}
 		}
-		addTruth(TruthLine{Name: "zero order", Zero: true, PeakE: math.Max(zeroRGB[0], math.Max(zeroRGB[1], zeroRGB[2]))}, zeroXU)
+		if bd.zero {
+			for _, e := range em {
+				r := response(e.NM)
+				for ch := range bd.zeroRGB {
+					bd.zeroRGB[ch] += e.Strength * k * p.ZeroOrderGain * r[ch]
+				}
+			}
+			addTruth(TruthLine{Name: "zero order", Zero: true, Band: bi, PeakE: math.Max(bd.zeroRGB[0], math.Max(bd.zeroRGB[1], bd.zeroRGB[2]))}, zeroXU, 0, bd.eta)
+		}
 	}
 	truth.Params = p
 
@@ -285,20 +329,27 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 	}
 	halfH := p.LineHeightPX / 2 / f // slit half-height as an angle
 	sEta := p.PSFSigmaPX / f
-	// Bounding box of the band in the image.
+	// Bounding box of the bands in the image.
 	yMargin := p.LineHeightPX/2 + 6*p.PSFSigmaPX
+	vLo, vHi := cy-yMargin, cy+yMargin
+	for _, sl := range p.Stacked {
+		vLo, vHi = math.Min(vLo, cy+sl.OffsetPX-yMargin), math.Max(vHi, cy+sl.OffsetPX+yMargin)
+	}
+	reachY := math.Max(cy-vLo, vHi-cy)
 	xMin, xMax := math.Inf(1), math.Inf(-1)
-	for _, l := range lines {
-		xMin, xMax = math.Min(xMin, l.xu), math.Max(xMax, l.xu)
+	for _, bd := range bands {
+		for _, l := range bd.lines {
+			xMin, xMax = math.Min(xMin, l.xu), math.Max(xMax, l.xu)
+		}
+		if bd.zero {
+			xMin, xMax = math.Min(xMin, zeroXU), math.Max(xMax, zeroXU)
+		}
 	}
-	if zero {
-		xMin, xMax = math.Min(xMin, zeroXU), math.Max(xMax, zeroXU)
-	}
-	xMin -= 6*p.PSFSigmaPX + 2*yMargin*yMargin/f + 2
-	xMax += 6*p.PSFSigmaPX + 2*yMargin*yMargin/f + 2
+	xMin -= 6*p.PSFSigmaPX + 2*reachY*reachY/f + 2
+	xMax += 6*p.PSFSigmaPX + 2*reachY*reachY/f + 2
 	bx0, by0, bx1, by1 := math.Inf(1), math.Inf(1), math.Inf(-1), math.Inf(-1)
 	for _, u := range []float64{xMin, xMax} {
-		for _, v := range []float64{cy - yMargin, cy + yMargin} {
+		for _, v := range []float64{vLo, vHi} {
 			x := cx + (u-cx)*ct - (v-cy)*st
 			y := cy + (u-cx)*st + (v-cy)*ct
 			bx0, bx1 = math.Min(bx0, x), math.Max(bx1, x)
@@ -316,34 +367,37 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 			nrm := math.Sqrt(1 + X*X + Y*Y)
 			ky := Y / nrm
 			eta := math.Asin(ky)
-			if eta < -halfH-6*sEta || eta > halfH+6*sEta {
-				continue
-			}
 			kx := (X*cc + sc) / nrm
 			// dkx/dx along the band, per px, for the blur width.
 			dkdx := (cc*(1+Y*Y) - sc*X) / (nrm * nrm * nrm) / f
-			slit := 0.5 * (math.Erf((eta+halfH)/(math.Sqrt2*sEta)) - math.Erf((eta-halfH)/(math.Sqrt2*sEta)))
 			base := 3 * (j*W + i)
-			for _, l := range lines {
-				w := kx * l.dm
-				sw := p.PSFSigmaPX * math.Abs(dkdx*l.dm)
-				d := (w - l.nm) / math.Sqrt(sw*sw+l.sigNM*l.sigNM)
-				if d > 7 || d < -7 {
+			for _, bd := range bands {
+				e := eta - bd.eta
+				if e < -halfH-6*sEta || e > halfH+6*sEta {
 					continue
 				}
-				s := l.amp * math.Exp(-d*d/2) * slit
-				sig[base] += float32(s * l.rgb[0])
-				sig[base+1] += float32(s * l.rgb[1])
-				sig[base+2] += float32(s * l.rgb[2])
-			}
-			if zero {
-				// Straight through: kx = 0, blurred by the PSF alone.
-				d := kx / dkdx / p.PSFSigmaPX
-				if d < 7 && d > -7 {
-					s := math.Exp(-d*d/2) * slit
-					sig[base] += float32(s * zeroRGB[0])
-					sig[base+1] += float32(s * zeroRGB[1])
-					sig[base+2] += float32(s * zeroRGB[2])
+				slit := 0.5 * (math.Erf((e+halfH)/(math.Sqrt2*sEta)) - math.Erf((e-halfH)/(math.Sqrt2*sEta)))
+				for _, l := range bd.lines {
+					w := kx * l.dm
+					sw := p.PSFSigmaPX * math.Abs(dkdx*l.dm)
+					d := (w - l.nm) / math.Sqrt(sw*sw+l.sigNM*l.sigNM)
+					if d > 7 || d < -7 {
+						continue
+					}
+					s := l.amp * math.Exp(-d*d/2) * slit
+					sig[base] += float32(s * l.rgb[0])
+					sig[base+1] += float32(s * l.rgb[1])
+					sig[base+2] += float32(s * l.rgb[2])
+				}
+				if bd.zero {
+					// Straight through: kx = 0, blurred by the PSF alone.
+					d := kx / dkdx / p.PSFSigmaPX
+					if d < 7 && d > -7 {
+						s := math.Exp(-d*d/2) * slit
+						sig[base] += float32(s * bd.zeroRGB[0])
+						sig[base+1] += float32(s * bd.zeroRGB[1])
+						sig[base+2] += float32(s * bd.zeroRGB[2])
+					}
 				}
 			}
 		}
