@@ -435,9 +435,48 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 		ang = opt.AngleDeg
 	}
 	sx, sy := float64(fr.w)/float64(sw), float64(fr.h)/float64(sh)
-	guesses := crossBands(sp, ang, bg, sx, sy, all)
+	guesses := crossBands(sp, ang, bg, sx, sy, true)
 	if len(guesses) == 0 {
 		return nil, fmt.Errorf("%w: the bright pixels form no band (cut off by the frame edge?)", ErrNoBand)
+	}
+	if len(guesses) > 1 && !opt.FixAngle {
+		// Several bands pull the bright pixels' axis away from any one
+		// band's (two offset bands of unequal length): take the axis of the
+		// strongest band's own pixels, twice.
+		for iter := 0; iter < 2; iter++ {
+			best := guesses[0]
+			for _, g := range guesses {
+				if g.level > best.level {
+					best = g
+				}
+			}
+			sn, cs := math.Sincos(ang * math.Pi / 180)
+			var own []point
+			for _, q := range pts {
+				fx, fy := (q.x+0.5)*sx-0.5, (q.y+0.5)*sy-0.5
+				if math.Abs(-fx*sn+fy*cs-best.vc) <= best.hh+2*math.Max(sx, sy) {
+					own = append(own, q)
+				}
+			}
+			if len(own) < 10 {
+				break
+			}
+			ang = principalAngle(own)
+			if g := crossBands(sp, ang, bg, sx, sy, true); len(g) > 0 {
+				guesses = g
+			}
+		}
+	}
+	if !all {
+		// Just the strongest band.
+		best := guesses[0]
+		for _, g := range guesses {
+			if g.level > best.level {
+				best = g
+			}
+		}
+		best.reach = math.Inf(1)
+		guesses = []bandGuess{best}
 	}
 	located := time.Since(t0)
 	if all && len(guesses) > 1 && !opt.FixAngle {

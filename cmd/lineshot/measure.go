@@ -57,6 +57,10 @@ type measureConfig struct {
 	// frames are further exposures averaged with each measured photo
 	// (--stack). Calibration photos get neither.
 	dark, frames []string
+	// bands measures every band of a photo (--bands); sameFrame says the
+	// calibration came from another band of the same photo, so its band's
+	// place says nothing about the setup moving.
+	bands, sameFrame bool
 }
 
 // lamps returns the built-in lamps and the user's.
@@ -115,6 +119,7 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	saveStrip := fs.String("save-strip", "", "save the straightened band with the measured lines marked (JPEG; with several photos, the last)")
 	asJSON := fs.Bool("json", false, "print a JSON document instead of tables")
 	dark := fs.StringArray("dark", nil, "dark frame (lamp off, same exposure; a still or a video) subtracted from the measured photos; repeat to average several")
+	bands := fs.Bool("bands", false, "the photos may hold several bands (lamps photographed together, one above the other): measure each; without -c, the calibration-lamp bands calibrate the others")
 	stack := fs.Bool("stack", false, "the photos are exposures of one setup: average them and measure them as one (a video file is always averaged)")
 	if err := parse(fs, args); err != nil {
 		return err
@@ -130,7 +135,7 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		return usagef("measure: --lines-per-mm %g outside 0-10000", *lpm)
 	}
 	cfg := measureConfig{lamp: *lamp, calLamp: *calLamp, model: *model, minSNR: *minSNR, linear: *linear, tolNM: *tol, floorPX: *floor,
-		linesPerMM: *lpm, imageOpts: imaging.Options{Linear: *linear}, dark: *dark}
+		linesPerMM: *lpm, imageOpts: imaging.Options{Linear: *linear}, dark: *dark, bands: *bands}
 	photos := fs.Args()
 	if *stack && len(photos) > 1 {
 		cfg.frames, photos = photos[1:], photos[:1]
@@ -203,12 +208,19 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		if err := ctx.Err(); err != nil {
 			return err
 		}
-		r := measureOne(path, cal, cfg)
-		if r.Error != "" {
-			failed++
-			fmt.Fprintf(stderr, "lineshot: %s\n", r.Error)
+		results := []imageResult{}
+		if cfg.bands {
+			results = measureBands(path, cal, cfg)
+		} else {
+			results = append(results, measureOne(path, cal, cfg))
 		}
-		doc.Images = append(doc.Images, r)
+		for _, r := range results {
+			if r.Error != "" {
+				failed++
+				fmt.Fprintf(stderr, "lineshot: %s\n", r.Error)
+			}
+			doc.Images = append(doc.Images, r)
+		}
 	}
 	if *asJSON {
 		enc := json.NewEncoder(stdout)
@@ -499,6 +511,12 @@ func extractAndFind(path string, cfg measureConfig) (measured, error) {
 	if err != nil {
 		return measured{}, err
 	}
+	return findLines(s, path, cfg)
+}
+
+// findLines measures the lines of a straightened band; path names it in
+// errors.
+func findLines(s imaging.Strip, path string, cfg measureConfig) (measured, error) {
 	r, err := peaks.Find(s.Profile, peaks.Options{MinSNR: cfg.minSNR, Clipped: s.Clipped})
 	if err != nil {
 		return measured{}, fmt.Errorf("%s: %w", path, err)
@@ -706,6 +724,72 @@ func measureOne(path string, cal *calibration, cfg measureConfig) imageResult {
 	return measureWith(alongCalibration(m, path, *cal, cfg), path, *cal, cfg)
 }
 
+// measureBands measures every band of a photo on its own. With a
+// calibration each band is measured with it; without one, the bands whose
+// lines identify a calibration lamp (not hydrogen) are fitted together
+// into one calibration, as several calibration photos of a setup are,
+// and it is applied to the other bands. Each result is named after the
+// photo and its band.
+func measureBands(path string, cal *calibration, cfg measureConfig) []imageResult {
+	strips, err := imaging.ExtractBands(path, cfg.imageOpts)
+	if err != nil {
+		return []imageResult{{File: path, Error: err.Error()}}
+	}
+	name := func(s imaging.Strip) string {
+		return fmt.Sprintf("%s [band %d of %d]", path, s.BandIndex+1, s.BandCount)
+	}
+	var ms []measured
+	var out []imageResult
+	for _, s := range strips {
+		m, err := findLines(s, name(s), cfg)
+		if err != nil {
+			out = append(out, imageResult{File: name(s), Error: err.Error()})
+			continue
+		}
+		ms = append(ms, m)
+	}
+	if cal != nil {
+		for _, m := range ms {
+			out = append(out, measureWith(m, name(m.strip), *cal, cfg))
+		}
+		return out
+	}
+	// Sort the bands: calibration lamps, and the rest.
+	var calIDs []selfID
+	var calRes []imageResult
+	var calNames []string
+	var others []measured
+	for _, m := range ms {
+		s, r := identify(m, name(m.strip), cfg, cfg.lamps())
+		if r.Error != "" || s.id.Lamp == "hydrogen" {
+			others = append(others, m)
+			continue
+		}
+		calIDs, calRes, calNames = append(calIDs, s), append(calRes, r), append(calNames, name(m.strip))
+	}
+	if len(calIDs) == 0 {
+		// No calibration lamp among the bands: each calibrates itself.
+		for _, m := range ms {
+			out = append(out, measureSelfFrom(m, name(m.strip), cfg))
+		}
+		return out
+	}
+	c, res, err := combineCalibration(calIDs, calRes, calNames, cfg)
+	out = append(out, res...)
+	if err != nil {
+		for _, m := range others {
+			out = append(out, measureSelfFrom(m, name(m.strip), cfg))
+		}
+		return out
+	}
+	bcfg := cfg
+	bcfg.sameFrame = true
+	for _, m := range others {
+		out = append(out, measureWith(m, name(m.strip), c, bcfg))
+	}
+	return out
+}
+
 // alongCalibration measures a photo again along the calibration's band
 // direction when the band found runs across it (more than 20° off): a lamp
 // with one bright line, such as sodium, shows no band of its own, and the
@@ -731,7 +815,9 @@ func alongCalibration(m measured, path string, cal calibration, cfg measureConfi
 // recognises its lamp and fits R when it is hydrogen.
 func measureWith(m measured, path string, cal calibration, cfg measureConfig) imageResult {
 	r := m.baseResult(path)
-	r.Warnings = append(r.Warnings, setupMoved(m.strip, cal)...)
+	if !cfg.sameFrame {
+		r.Warnings = append(r.Warnings, setupMoved(m.strip, cal)...)
+	}
 	// Which lamp is it? The one whose lines the calibrated wavelengths hit
 	// best, weighted by the heights of the lines they explain.
 	lamps := cfg.lamps()
