@@ -24,6 +24,12 @@ type Point struct {
 	NM      float64 // reference air wavelength, nm
 	SigmaNM float64 // uncertainty of the reference (bands); 0 means FitOptions.RefSigmaNM
 	Line    string  // reference line name
+	// AcrossPX is the point's distance across the band from the optical
+	// axis (px, from the line through the principal point along the
+	// dispersion direction). The grating model uses it: a band away from
+	// the axis sees the grating at an elevation, and its lines sit
+	// elsewhere (conical diffraction). 0 for a band through the axis.
+	AcrossPX float64
 	// Order is the line's signed diffraction order when the photo shows
 	// the zero order or both first orders (−1 on one side of the zero
 	// order, +1 on the other); 0 means +1. Any point with an order other
@@ -104,6 +110,20 @@ type Dispersion struct {
 	// ZeroOrderPX is the zero order's measured position, when it was in
 	// the calibration photo (0 otherwise).
 	ZeroOrderPX float64 `json:"zero_order_px,omitempty"`
+
+	across float64 // see Across
+}
+
+// Across returns d evaluated at distance a (px) across the band from the
+// optical axis, for a band other than the one it was fitted on (another
+// band of the same photo, two lamps stacked): the grating model then
+// accounts for conical diffraction, λ = (a + b·t)/sqrt(1 + c·(t² + w²))
+// with w = a/Scale (the pinhole camera's ray to (x, y) has
+// sqrt(1 + (x² + y²)/F²) in the denominator of its direction cosine).
+// Polynomial models have no such term and are unchanged.
+func (d Dispersion) Across(a float64) Dispersion {
+	d.across = a
+	return d
 }
 
 // Resolve returns the air wavelength at profile position p and its
@@ -218,12 +238,20 @@ func (d Dispersion) Covariance(ps, sps []float64) *mat.SymDense {
 	return c
 }
 
-// eval computes λ(p) for params and writes ∂λ/∂params into grad if not nil.
+// eval computes λ(p) for params (at d's distance across the band) and
+// writes ∂λ/∂params into grad if not nil.
 func (d Dispersion) eval(p float64, params, grad []float64) float64 {
+	return d.evalAt(p, d.across, params, grad)
+}
+
+// evalAt is eval at distance across from the optical axis.
+func (d Dispersion) evalAt(p, across float64, params, grad []float64) float64 {
 	if d.Model == ModelGrating {
 		a, b, c := params[0], params[1], params[2]
 		t := (p - d.Center) / d.Scale
-		q := 1 + c*t*t
+		w := across / d.Scale
+		r2 := t*t + w*w
+		q := 1 + c*r2
 		if q <= 0 {
 			return math.NaN()
 		}
@@ -232,7 +260,7 @@ func (d Dispersion) eval(p float64, params, grad []float64) float64 {
 		if grad != nil {
 			grad[0] = 1 / s
 			grad[1] = t / s
-			grad[2] = -v * t * t / (2 * q)
+			grad[2] = -v * r2 / (2 * q)
 		}
 		return v
 	}
@@ -450,7 +478,7 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 			if i == n {
 				return gratingD(params, grad)
 			}
-			return dd.eval(pts[i].PX, params, grad)
+			return dd.evalAt(pts[i].PX, pts[i].AcrossPX, params, grad)
 		}}
 		res, err = lsq.Fit(prob, init)
 		if iter == 0 {
@@ -492,9 +520,10 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 	for _, p := range pts {
 		// In λ, not m·λ: the fitted wavelength of a line in order m is
 		// F/m. The zero order's residual is −F, in nm of m·λ.
-		f, ref, m := d.Wavelength(p.PX), p.target(), p.order()
+		da := d.Across(p.AcrossPX)
+		f, ref, m := da.Wavelength(p.PX), p.target(), p.order()
 		r := ref - f
-		rp := r / d.Slope(p.PX)
+		rp := r / da.Slope(p.PX)
 		if m != 0 {
 			f, ref, r = f/float64(m), ref/float64(m), r/float64(m)
 		}
@@ -575,14 +604,15 @@ func floorFor(pts []Point, d Dispersion, opt FitOptions) float64 {
 	chi2 := func(f float64) float64 {
 		var s float64
 		for _, p := range pts {
-			sl := d.Slope(p.PX)
+			da := d.Across(p.AcrossPX)
+			sl := da.Slope(p.PX)
 			rs := refSig
 			if p.SigmaNM > 0 {
 				rs = p.SigmaNM
 			}
 			rs *= math.Abs(float64(p.order()))
 			v := sl*sl*(p.SigmaPX*p.SigmaPX+f*f) + rs*rs
-			r := p.target() - d.Wavelength(p.PX)
+			r := p.target() - da.Wavelength(p.PX)
 			s += r * r / v
 		}
 		return s

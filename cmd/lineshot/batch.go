@@ -687,6 +687,7 @@ func assembleBench(b bench, recs []photoRecord, cfg measureConfig) benchResult {
 		out.Warnings = append(out.Warnings, "no calibration photo: lines are given in pixels only; add a mercury (or helium, neon) photo of the same setup")
 	}
 	var ps, sps []float64
+	var across float64
 	var balmer []calibrate.Balmer
 	for _, r := range others {
 		name := displayName(r.File)
@@ -707,13 +708,14 @@ func assembleBench(b bench, recs []photoRecord, cfg measureConfig) benchResult {
 				if l.N >= 3 {
 					balmer = append(balmer, calibrate.Balmer{N: l.N, AirNM: l.WavelengthNM, SigmaNM: l.WavelengthErrNM})
 					ps = append(ps, cal.position(l.X, l.Y))
+					across += cal.across(l.X, l.Y)
 					sps = append(sps, l.PositionErrPX)
 				}
 			}
 		}
 	}
 	if cal != nil && len(balmer) >= 2 {
-		if r, err := calibrate.FitRydberg(balmer, cal.Dispersion.Covariance(ps, sps)); err == nil {
+		if r, err := calibrate.FitRydberg(balmer, cal.Dispersion.Across(across/float64(len(ps))).Covariance(ps, sps)); err == nil {
 			out.Rydberg = &r
 		}
 	}
