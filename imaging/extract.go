@@ -142,29 +142,11 @@ func (b Bow) zero() bool { return b.C0 == 0 && b.C1 == 0 && b.C2 == 0 }
 // Extract decodes the photo at path, finds the spectrum band, straightens
 // it and collapses it to profiles. Errors name the file and the reason.
 func Extract(path string, opt Options) (Strip, error) {
-	format, err := checkFile(path, opt)
+	ss, err := extractFile(path, opt, false)
 	if err != nil {
 		return Strip{}, err
 	}
-	if opt.Profile == "" {
-		opt.Profile = ProfileSum
-		if format == "jpeg" {
-			opt.Profile = ProfileLuma
-		}
-	}
-	t0 := time.Now()
-	m := gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
-	defer m.Close()
-	if m.Empty() {
-		return Strip{}, fmt.Errorf("%s: not an image OpenCV can decode", path)
-	}
-	decoded := time.Since(t0)
-	s, err := extractMat(m, opt)
-	if err != nil {
-		return Strip{}, fmt.Errorf("%s: %w", path, err)
-	}
-	s.Timing.Decode = decoded
-	return s, nil
+	return ss[0], nil
 }
 
 // ExtractBands is Extract for a photo that may hold several bands side by
@@ -174,6 +156,12 @@ func Extract(path string, opt Options) (Strip, error) {
 // (Strip.BandIndex). A band that cannot be measured among others is left
 // out; an error comes only when none can be.
 func ExtractBands(path string, opt Options) ([]Strip, error) {
+	return extractFile(path, opt, true)
+}
+
+// extractFile checks and decodes the photo at path and measures its
+// strongest band, or with all every band.
+func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	format, err := checkFile(path, opt)
 	if err != nil {
 		return nil, err
@@ -191,7 +179,7 @@ func ExtractBands(path string, opt Options) ([]Strip, error) {
 		return nil, fmt.Errorf("%s: not an image OpenCV can decode", path)
 	}
 	decoded := time.Since(t0)
-	ss, err := extractBandsMat(m, opt, true)
+	ss, err := extractBandsMat(m, opt, all)
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", path, err)
 	}
