@@ -68,6 +68,14 @@ const (
 	ModelPoly2   = "poly2"
 	ModelPoly3   = "poly3"
 	ModelGrating = "grating"
+	// ModelLens is the grating model seen through a lens with radial
+	// distortion: a position is undistorted (the lens maps undistorted
+	// radius u to u·(1 + k·u²), in units of Scale about the principal
+	// point; the first term of the usual radial model, common practice)
+	// before the grating model applies. Params [a, b, c, k]. Wide phone lenses bend
+	// the frame enough that the plain model extrapolates Hα 0.6 nm long
+	// from mercury lines (simulated, k1 = −0.08).
+	ModelLens = "grating-lens"
 )
 
 // Dispersion maps a profile position to an air wavelength.
@@ -246,10 +254,37 @@ func (d Dispersion) eval(p float64, params, grad []float64) float64 {
 
 // evalAt is eval at distance across from the optical axis.
 func (d Dispersion) evalAt(p, across float64, params, grad []float64) float64 {
-	if d.Model == ModelGrating {
+	if d.Model == ModelGrating || d.Model == ModelLens {
 		a, b, c := params[0], params[1], params[2]
 		t := (p - d.Center) / d.Scale
 		w := across / d.Scale
+		var k, dtdk, dwdk float64 // lens: distortion; ∂t/∂k, ∂w/∂k
+		if d.Model == ModelLens {
+			// The lens maps an undistorted radius u to s = u·(1 + k·u²)
+			// (the usual radial model, distortion in undistorted
+			// coordinates, as OpenCV's): solve for u by Newton, scale t
+			// and w by u/s.
+			k = params[3]
+			sd := math.Hypot(t, w)
+			if sd > 0 {
+				u := sd
+				for it := 0; it < 20; it++ {
+					f := u*(1+k*u*u) - sd
+					fp := 1 + 3*k*u*u
+					if fp <= 0 {
+						return math.NaN()
+					}
+					du := f / fp
+					u -= du
+					if math.Abs(du) < 1e-13 {
+						break
+					}
+				}
+				dudk := -u * u * u / (1 + 3*k*u*u)
+				dtdk, dwdk = t/sd*dudk, w/sd*dudk
+				t, w = t*u/sd, w*u/sd
+			}
+		}
 		r2 := t*t + w*w
 		q := 1 + c*r2
 		if q <= 0 {
@@ -261,6 +296,9 @@ func (d Dispersion) evalAt(p, across float64, params, grad []float64) float64 {
 			grad[0] = 1 / s
 			grad[1] = t / s
 			grad[2] = -v * r2 / (2 * q)
+			if d.Model == ModelLens {
+				grad[3] = b*dtdk/s - v*c*(t*dtdk+w*dwdk)/q
+			}
 		}
 		return v
 	}
@@ -312,7 +350,7 @@ func FitDispersion(pts []Point, opt FitOptions) (Dispersion, error) {
 	}
 	pts = append([]Point(nil), pts...)
 	sort.Slice(pts, func(i, j int) bool { return pts[i].PX < pts[j].PX })
-	models := []string{ModelPoly1, ModelPoly2, ModelPoly3, ModelGrating}
+	models := []string{ModelPoly1, ModelPoly2, ModelPoly3, ModelGrating, ModelLens}
 	if opt.Model != "" {
 		models = []string{opt.Model}
 	}
@@ -325,6 +363,8 @@ func FitDispersion(pts []Point, opt FitOptions) (Dispersion, error) {
 			k = 2
 		case ModelPoly3:
 			k = 4
+		case ModelLens:
+			k = 5 // four parameters and a degree of freedom to judge them
 		}
 		if len(pts) < k {
 			continue
@@ -353,7 +393,7 @@ func FitDispersion(pts []Point, opt FitOptions) (Dispersion, error) {
 		if math.IsInf(v, 1) {
 			v = 1e12 + f.ChiSq + 2*float64(len(f.Params))
 		}
-		if f.Model == ModelGrating {
+		if f.Model == ModelGrating || f.Model == ModelLens {
 			v -= 2
 		}
 		return v
@@ -447,6 +487,16 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 				starts = append(starts, []float64{q3[0], q3[1], -2 * q3[3] / q3[1]})
 			}
 		}
+	case ModelLens:
+		// From the plain grating fit, undistorted.
+		o := opt
+		o.Model, o.EstimateFloor = ModelGrating, false
+		g, err := fitModel(pts, ModelGrating, o)
+		if err != nil {
+			return Dispersion{}, err
+		}
+		d.Center, d.Scale = g.Center, g.Scale
+		init = append(append([]float64(nil), g.Params...), 0)
 	default:
 		return Dispersion{}, fmt.Errorf("calibrate: unknown dispersion model %q", model)
 	}
@@ -464,7 +514,7 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 		}
 		dd := d
 		yy, ss := y, sig
-		prior := model == ModelGrating && opt.LinesPerMM > 0
+		prior := (model == ModelGrating || model == ModelLens) && opt.LinesPerMM > 0
 		if prior {
 			tol := opt.LinesPerMMTolerance
 			if tol == 0 {
@@ -569,7 +619,7 @@ func polyFit(pts []Point, deg int, center, scale float64, sig []float64) ([]floa
 // Physical returns the grating model's D = d/m (nm), α (degrees) and F
 // (px), and false for a polynomial model or an unphysical fit (c ≤ 0).
 func (d Dispersion) Physical() (dNM, alphaDeg, focalPX float64, ok bool) {
-	if d.Model != ModelGrating || len(d.Params) != 3 || d.Params[2] <= 0 {
+	if !(d.Model == ModelGrating && len(d.Params) == 3 || d.Model == ModelLens && len(d.Params) == 4) || d.Params[2] <= 0 {
 		return 0, 0, 0, false
 	}
 	a, b, c := d.Params[0], d.Params[1], d.Params[2]

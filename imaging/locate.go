@@ -288,7 +288,7 @@ func solve6(a [6][6]float64, b [6]float64) ([6]float64, bool) {
 // Bands come ordered across the frame; each gets the reach halfway to
 // its neighbours' edges. A further band counts when its plateau is at
 // least a tenth of the strongest band's (dimmer bumps are the strongest
-// band's wings or room light).
+// band's wings or room light) and its height within a factor 3 of it.
 func crossBands(p plane, ang, bg, sx, sy float64, all bool) []bandGuess {
 	sn, cs := math.Sincos(ang * math.Pi / 180)
 	vmin, vmax := math.Inf(1), math.Inf(-1)
@@ -323,7 +323,12 @@ func crossBands(p plane, ang, bg, sx, sy float64, all bool) []bandGuess {
 		if len(found) > 0 && lv < 0.1*found[0].level {
 			break
 		}
-		found = append(found, bump{c, h, lv})
+		// Slit images of one slit through one lens are of one height: a
+		// bump much wider or narrower than the strongest band is room
+		// light or a reflection, not a band.
+		if len(found) == 0 || (h < 3*found[0].h && h > found[0].h/3) {
+			found = append(found, bump{c, h, lv})
+		}
 		if !all {
 			break
 		}

@@ -107,7 +107,7 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	lamp := fs.StringP("lamp", "l", "", "lamp of the measured photos (mercury, hydrogen, helium, neon, sodium); default: recognised")
 	calLamp := fs.String("calibration-lamp", "", "lamp of the calibration photo; default: recognised among mercury, helium, neon, sodium")
 	pins := fs.StringArray("line", nil, "pin a line as NM@PX (air nm at profile position px); repeatable")
-	model := fs.String("model", "", "dispersion model: poly1, poly2, poly3 or grating; default: chosen by AICc")
+	model := fs.String("model", "", "dispersion model: poly1, poly2, poly3, grating or grating-lens (with radial lens distortion); default: chosen by AICc")
 	lpm := fs.Float64("lines-per-mm", 0, "nominal grating ruling; the grating model then treats it as a measurement (±3 %)")
 	lineFiles := fs.StringArray("lines", nil, "extra reference lamp from a CSV line list (header with nm[,name,strength,sigma_nm,source]); the lamp is named after the file; repeatable")
 	minSNR := fs.Float64("min-snr", 5, "least line height and prominence, in units of the profile noise")
@@ -180,9 +180,9 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		}
 	}
 	switch cfg.model {
-	case "", calibrate.ModelPoly1, calibrate.ModelPoly2, calibrate.ModelPoly3, calibrate.ModelGrating:
+	case "", calibrate.ModelPoly1, calibrate.ModelPoly2, calibrate.ModelPoly3, calibrate.ModelGrating, calibrate.ModelLens:
 	default:
-		return usagef("measure: --model %q: want poly1, poly2, poly3 or grating", cfg.model)
+		return usagef("measure: --model %q: want poly1, poly2, poly3, grating or grating-lens", cfg.model)
 	}
 
 	doc := document{Tool: "lineshot", Schema: 1}
@@ -416,7 +416,7 @@ func (c calibration) validate() error {
 	if c.Schema != 1 {
 		return fmt.Errorf("unknown calibration format version %d", c.Schema)
 	}
-	k := map[string]int{calibrate.ModelPoly1: 2, calibrate.ModelPoly2: 3, calibrate.ModelPoly3: 4, calibrate.ModelGrating: 3}[d.Model]
+	k := map[string]int{calibrate.ModelPoly1: 2, calibrate.ModelPoly2: 3, calibrate.ModelPoly3: 4, calibrate.ModelGrating: 3, calibrate.ModelLens: 4}[d.Model]
 	if k == 0 || len(d.Params) != k || len(d.Cov) != k {
 		return fmt.Errorf("dispersion model %q with %d parameters is not valid", d.Model, len(d.Params))
 	}

