@@ -60,6 +60,70 @@ type IdentifyOptions struct {
 // extra peaks and weak lines are tolerated; it returns ErrNoMatch when fewer
 // than three lines (two for a two-line lamp) can be matched.
 func Identify(peaks []Peak, lamp Lamp, opt IdentifyOptions) (Identification, error) {
+	// Both first orders about the zero order: identify on one side only
+	// (a pattern spanning the zero order can fit some other lamp by
+	// chance); FindOrders adds the rest.
+	if z, ok := MirrorCentre(peaks); ok && len(opt.Pins) == 0 {
+		var side []Peak
+		var back []int
+		for i, p := range peaks {
+			if p.PX > peaks[z].PX+2 {
+				side, back = append(side, p), append(back, i)
+			}
+		}
+		if id, err := identify(side, lamp, opt); err == nil {
+			for k := range id.Matches {
+				id.Matches[k].Peak = back[id.Matches[k].Peak]
+			}
+			return id, nil
+		}
+	}
+	return identify(peaks, lamp, opt)
+}
+
+// MirrorCentre finds the zero order of a photo holding both first orders:
+// the bright peak (one of the three brightest) about which at least three
+// pairs of other peaks lie mirrored, each pair's distances within 5 % + 2 px
+// of each other (a camera aimed off the grating normal by a few degrees
+// makes the two sides differ by a few per cent; common practice, checked on
+// the simulator), and the pairs make up at least 40 % of the peaks on the
+// sparser side.
+func MirrorCentre(peaks []Peak) (int, bool) {
+	if len(peaks) < 7 {
+		return -1, false
+	}
+	order := strongest(len(peaks), min(3, len(peaks)), func(i int) float64 { return peaks[i].Height })
+	for _, z := range order {
+		c := peaks[z].PX
+		var left, right []float64
+		for i, p := range peaks {
+			switch {
+			case i == z:
+			case p.PX < c-2:
+				left = append(left, c-p.PX)
+			case p.PX > c+2:
+				right = append(right, p.PX-c)
+			}
+		}
+		pairs := 0
+		used := make([]bool, len(right))
+		for _, dl := range left {
+			for j, dr := range right {
+				if !used[j] && math.Abs(dl-dr) <= 0.05*dl+2 {
+					used[j] = true
+					pairs++
+					break
+				}
+			}
+		}
+		if pairs >= 3 && float64(pairs) >= 0.4*float64(min(len(left), len(right))) {
+			return z, true
+		}
+	}
+	return -1, false
+}
+
+func identify(peaks []Peak, lamp Lamp, opt IdentifyOptions) (Identification, error) {
 	refs := lamp.sorted()
 	need := 3
 	if len(refs) < 3 {
@@ -158,9 +222,29 @@ func Classify(peaks []Peak, lamps []Lamp, opt IdentifyOptions) []Identification 
 	var out []Identification
 	for _, l := range lamps {
 		id, err := Identify(peaks, l, opt)
-		if err == nil {
-			out = append(out, id)
+		if err != nil {
+			continue
 		}
+		// A photo with the zero order or both first orders: the lines the
+		// orders explain count too (the score's share of the photo's peak
+		// height), or a lamp seen on both sides would lose to whichever
+		// lamp's pattern the mirrored lines happen to fit.
+		if os := FindOrders(peaks, id, l, FitOptions{}); os.Zero >= 0 || os.Opposite > 0 {
+			var base, with float64
+			for _, mt := range id.Matches {
+				base += peaks[mt.Peak].Height
+			}
+			for _, mt := range os.Matches { // the identification's and the opposite order's
+				with += peaks[mt.Peak].Height
+			}
+			if os.Zero >= 0 {
+				with += peaks[os.Zero].Height
+			}
+			if base > 0 {
+				id.Score *= with / base
+			}
+		}
+		out = append(out, id)
 	}
 	sort.SliceStable(out, func(a, b int) bool { return out[a].Score > out[b].Score })
 	return out

@@ -148,3 +148,35 @@ func TestFindOrdersIgnoresAStrayBrightPeak(t *testing.T) {
 		}
 	}
 }
+
+// With both first orders about the zero order, a pattern spanning the zero
+// order can fit another lamp by chance (a hydrogen photo once came out as
+// helium, its zero order taken for He 587.56). MirrorCentre finds the zero
+// order by the mirrored pairs, identification keeps to one side, and
+// Classify names every lamp right; single-order photos show no mirror.
+func TestBothOrdersClassifiedRight(t *testing.T) {
+	for _, name := range []string{"hydrogen", "mercury", "helium", "neon"} {
+		lamp, _ := LampByName(name)
+		for _, aim := range []float64{0, 3} {
+			sc := orderScene{300, 3700, aim, 1920, 0.05, []int{-1, 0, 1}}
+			ps, truth := sc.peaks(lamp, rand.New(rand.NewPCG(21, 22)))
+			z, ok := MirrorCentre(ps)
+			if !ok || truth[z].order != 0 {
+				t.Errorf("%s, aimed %g°: zero order not found by its mirror (%v, %d)", name, aim, ok, z)
+			}
+			ids := Classify(ps, Lamps(), IdentifyOptions{})
+			if len(ids) == 0 || ids[0].Lamp != name {
+				got := "nothing"
+				if len(ids) > 0 {
+					got = ids[0].Lamp
+				}
+				t.Errorf("%s, aimed %g°: classified as %s", name, aim, got)
+			}
+		}
+		one := orderScene{600, 2600, 19, 1920, 0.05, []int{1}}
+		ps, _ := one.peaks(lamp, rand.New(rand.NewPCG(23, 24)))
+		if _, ok := MirrorCentre(ps); ok {
+			t.Errorf("%s, one order: a mirror found where there is none", name)
+		}
+	}
+}
