@@ -107,8 +107,11 @@ type Strip struct {
 	// ResidualTiltDeg is the slope left in the band's centre line after
 	// straightening, degrees (0 when it could not be measured).
 	ResidualTiltDeg float64
-	Image           *image.RGBA
-	Timing          Timing
+	// ResidualTiltErrDeg is its standard error (from the scatter of the
+	// line centres it was measured on; +Inf with fewer than three lines).
+	ResidualTiltErrDeg float64
+	Image              *image.RGBA
+	Timing             Timing
 	// Frames and DarkFrames count the exposures ExtractStack averaged
 	// (0 from Extract).
 	Frames, DarkFrames int
@@ -616,7 +619,10 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		fit := centreOnly(lumaPlane, roi, ang, vc, hh, side, u0, u1)
 		// Flat enough when the centre line rises less than 0.1 px from one
 		// end of the band to the other.
-		if !fit.ok || math.Abs(fit.slope)*(u1-u0) < 0.1 {
+		// …or, after the first correction, when the slope is no more than
+		// twice its own error: a dim
+		// band's centres scatter, and chasing them turned one 0.4° away.
+		if !fit.ok || math.Abs(fit.slope)*(u1-u0) < 0.1 || (round > 0 && math.Abs(fit.slope) < 2*fit.slopeErr) {
 			break
 		}
 		b := fit.slope
@@ -701,6 +707,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 	}
 	if fit.ok {
 		s.ResidualTiltDeg = math.Atan(fit.slope) * 180 / math.Pi
+		s.ResidualTiltErrDeg = math.Atan(fit.slopeErr) * 180 / math.Pi
 	}
 	ang = s.AngleDeg
 	s.Timing.Straighten = time.Since(t1)
@@ -729,7 +736,7 @@ func qualityWarnings(s Strip, cut bool) []string {
 	if s.Saturated > 0.3 {
 		out = append(out, fmt.Sprintf("%.0f%% of the band is saturated: shorten the exposure", 100*s.Saturated))
 	}
-	if math.Abs(s.ResidualTiltDeg) > 0.05 {
+	if math.Abs(s.ResidualTiltDeg) > math.Max(0.05, 2*s.ResidualTiltErrDeg) {
 		out = append(out, fmt.Sprintf("the lines still lean %.3f° after straightening (curved or sheared line images?): centres may be smeared", s.ResidualTiltDeg))
 	}
 	if s.BackgroundRange > 0.15 {
@@ -1417,6 +1424,7 @@ func centreOnly(luma []float32, roi image.Rectangle, ang, vc, hh, side, u0, u1 f
 type centreFit struct {
 	slope, offset float64
 	ok            bool
+	slopeErr      float64 // standard error of slope
 	// The centre line as a parabola, row = q0 + q1·(i − mid) + q2·(i −
 	// mid)², when enough strong lines spread along the strip (qok).
 	q0, q1, q2, mid float64
@@ -1494,6 +1502,25 @@ func fitCentreLine(px []float32, stride, off, L, H int, prof []float64) centreFi
 	}
 	slope := (sw*sxy - sx*sy) / d
 	f := centreFit{slope: slope, offset: (sy - slope*sx) / sw, ok: math.Abs(slope) < 0.1}
+	// The slope's standard error from the centres' scatter about the line
+	// (weights are line strengths, not inverse variances: the sandwich
+	// form), so that a dim band's noisy centres do not steer the angle.
+	if n := len(xs); n >= 3 {
+		xm := sx / sw
+		var rss, sxx2, sw2 float64
+		for k := range xs {
+			r := cs[k] - (f.offset + slope*xs[k])
+			rss += r * r
+			dx := xs[k] - xm
+			sxx2 += ws[k] * dx * dx
+			sw2 += ws[k] * ws[k] * dx * dx
+		}
+		if sxx2 > 0 {
+			f.slopeErr = math.Sqrt(rss / float64(n-2) * sw2 / (sxx2 * sxx2))
+		}
+	} else {
+		f.slopeErr = math.Inf(1)
+	}
 	for k := range xs {
 		f.pts = append(f.pts, [3]float64{xs[k], cs[k], ws[k]})
 	}

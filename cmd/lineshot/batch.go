@@ -486,7 +486,7 @@ type stripRecord struct {
 	FrameW, FrameH                          int
 	Background, Noise, Saturated            float64
 	ResidualTiltDeg                         float64
-	BackgroundRange                         float64
+	BackgroundRange, ResidualTiltErrDeg     float64
 	Frames, DarkFrames                      int
 	Warnings                                []string
 	Profile                                 []float32
@@ -496,6 +496,9 @@ func toRecord(s imaging.Strip) stripRecord {
 	r := stripRecord{AngleDeg: s.AngleDeg, BandHalfHeight: s.BandHalfHeight, OpticalCenter: s.OpticalCenter, Origin: s.Origin, Band: s.Band,
 		FrameW: s.FrameW, FrameH: s.FrameH, Background: s.Background, Noise: s.Noise, Saturated: s.Saturated, ResidualTiltDeg: s.ResidualTiltDeg, Warnings: s.Warnings,
 		BackgroundRange: s.BackgroundRange, Frames: s.Frames, DarkFrames: s.DarkFrames}
+	if !math.IsInf(s.ResidualTiltErrDeg, 0) && !math.IsNaN(s.ResidualTiltErrDeg) {
+		r.ResidualTiltErrDeg = s.ResidualTiltErrDeg
+	}
 	r.Profile = make([]float32, len(s.Profile))
 	for i, v := range s.Profile {
 		r.Profile[i] = float32(v)
@@ -506,7 +509,7 @@ func toRecord(s imaging.Strip) stripRecord {
 func (r stripRecord) strip() imaging.Strip {
 	s := imaging.Strip{AngleDeg: r.AngleDeg, BandHalfHeight: r.BandHalfHeight, OpticalCenter: r.OpticalCenter, Origin: r.Origin, Band: r.Band,
 		FrameW: r.FrameW, FrameH: r.FrameH, Background: r.Background, Noise: r.Noise, Saturated: r.Saturated, ResidualTiltDeg: r.ResidualTiltDeg, Warnings: r.Warnings,
-		BackgroundRange: r.BackgroundRange, Frames: r.Frames, DarkFrames: r.DarkFrames}
+		BackgroundRange: r.BackgroundRange, Frames: r.Frames, DarkFrames: r.DarkFrames, ResidualTiltErrDeg: r.ResidualTiltErrDeg}
 	s.Profile = make([]float64, len(r.Profile))
 	for i, v := range r.Profile {
 		s.Profile[i] = float64(v)
@@ -526,7 +529,7 @@ type batchRun struct {
 // optionsKey changes whenever an option that changes a photo's result
 // changes, so that cached results are not reused across them.
 func (b *batchRun) optionsKey() string {
-	return fmt.Sprintf("v3 snr=%g", b.cfg.minSNR)
+	return fmt.Sprintf("v4 snr=%g", b.cfg.minSNR)
 }
 
 func cacheName(path string) string {

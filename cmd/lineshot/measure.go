@@ -503,6 +503,7 @@ type quality struct {
 	ProfileNoise    float64       `json:"profile_noise"`
 	Saturated       float64       `json:"saturated_fraction"`
 	ResidualTiltDeg float64       `json:"residual_tilt_deg"`
+	ResidualTiltErr float64       `json:"residual_tilt_err_deg,omitempty"`
 	Frames          int           `json:"frames_averaged,omitempty"` // exposures averaged (video, --stack)
 	DarkFrames      int           `json:"dark_frames,omitempty"`     // dark frames subtracted
 }
@@ -632,6 +633,9 @@ func (m measured) baseResult(path string) imageResult {
 	}
 	r.Warnings = append(r.Warnings, m.strip.Warnings...)
 	r.Quality.ResidualTiltDeg = m.strip.ResidualTiltDeg
+	if e := m.strip.ResidualTiltErrDeg; !math.IsInf(e, 0) && !math.IsNaN(e) {
+		r.Quality.ResidualTiltErr = e
+	}
 	if m.strip.Saturated > 0.001 {
 		r.Warnings = append(r.Warnings, fmt.Sprintf("%.1f%% of the band's pixels are saturated: saturated lines were measured on their flanks", 100*m.strip.Saturated))
 	}
