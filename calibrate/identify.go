@@ -22,8 +22,9 @@ type Peak struct {
 type Match struct {
 	Peak int  // index into the peaks given
 	Line Line // the reference line
-	// Order is the line's signed diffraction order (±1) once FindOrders
-	// has placed the zero order; 0 when only one first order is known.
+	// Order is the line's signed diffraction order (±1, ±2) once
+	// FindOrders has placed the zero order, the opposite order or the
+	// second order; 0 when only one first order is known.
 	Order int
 }
 

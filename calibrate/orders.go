@@ -18,8 +18,9 @@ type OrderSet struct {
 	Matches []Match
 	// Zero is the index of the zero-order peak, −1 when none was found.
 	Zero int
-	// Opposite is how many lines were matched in the opposite first order.
-	Opposite int
+	// Opposite is how many lines were matched in the opposite first order,
+	// Second how many in the second order on the identified side.
+	Opposite, Second int
 }
 
 // FindOrders looks beyond a first-order identification for the zero order
@@ -71,15 +72,17 @@ func FindOrders(peaks []Peak, id Identification, lamp Lamp, opt FitOptions) Orde
 		used[mt.Peak] = true
 		maxH = math.Max(maxH, peaks[mt.Peak].Height)
 	}
-	signed := func(zero int, opp []Match) []Point {
+	// signed: the calibration points with their orders; extra matches
+	// carry their own (Match.Order).
+	signed := func(zero int, extra []Match) []Point {
 		var pts []Point
 		for _, p := range out.Points[:len(id.Matches)] {
 			p.Order = m
 			pts = append(pts, p)
 		}
-		for _, mt := range opp {
+		for _, mt := range extra {
 			p := peaks[mt.Peak]
-			pts = append(pts, Point{PX: p.PX, SigmaPX: p.SigmaPX, NM: mt.Line.NM, SigmaNM: mt.Line.SigmaNM, Line: mt.Line.Name, Order: -m})
+			pts = append(pts, Point{PX: p.PX, SigmaPX: p.SigmaPX, NM: mt.Line.NM, SigmaNM: mt.Line.SigmaNM, Line: mt.Line.Name, Order: mt.Order})
 		}
 		if zero >= 0 {
 			// The zero order is the brightest thing in frame, often
@@ -155,7 +158,7 @@ func FindOrders(peaks []Peak, id Identification, lamp Lamp, opt FitOptions) Orde
 		}
 		var got []Match
 		for _, mt := range Assign(nm, sig, lamp, 0.5) {
-			mt.Peak = idx[mt.Peak]
+			mt.Peak, mt.Order = idx[mt.Peak], -m
 			got = append(got, mt)
 		}
 		if len(got) < 2 {
@@ -167,18 +170,106 @@ func FindOrders(peaks []Peak, id Identification, lamp Lamp, opt FitOptions) Orde
 		}
 		opp, cur = got, d
 	}
-	if out.Zero < 0 && len(opp) == 0 {
+	for _, mt := range opp {
+		used[mt.Peak] = true
+	}
+
+	// 3. The second order on the identified side: unmatched peaks past
+	// the first order's reach where m·λ is twice a lamp line (a lamp's
+	// violet lines reappear beyond the red end), matched at half their
+	// value; kept, like the others, only if the joint fit stays good. They
+	// pin the grating model far better than an extrapolation of the first
+	// order alone.
+	minNM := math.Inf(1)
+	for _, l := range lamp.Lines {
+		minNM = math.Min(minNM, l.NM)
+	}
+	var sec []Match
+	for round := 0; round < 2; round++ {
+		var idx []int
+		var nm, sig []float64
+		for i, p := range peaks {
+			if used[i] {
+				continue
+			}
+			v := cur.Wavelength(p.PX)
+			if !cur.Signed {
+				v *= float64(m)
+			}
+			v *= float64(m) // now positive on the identified side
+			s := cur.Sigma(p.PX, p.SigmaPX)
+			if math.IsNaN(v) || v < 2*minNM-4*s-1 {
+				continue
+			}
+			idx = append(idx, i)
+			nm = append(nm, v/2)
+			// The first round extrapolates the first order's fit far past
+			// its lines, where its σ was seen to be 2-3 times too small:
+			// a wider window then (a wrong match fails the joint fit).
+			if round == 0 {
+				s *= 3
+			}
+			sig = append(sig, s/2)
+		}
+		var got []Match
+		for _, mt := range Assign(nm, sig, lamp, 0.5) {
+			if round == 0 && ambiguous(lamp, nm[mt.Peak], math.Max(0.5, 4*sig[mt.Peak])) {
+				continue // two lamp lines in the window: wait for a better fit
+			}
+			mt.Peak, mt.Order = idx[mt.Peak], 2*m
+			got = append(got, mt)
+		}
+		// Far out, close pairs (the mercury yellow lines) may swap: drop
+		// the worst-fitting match until the joint fit is good; the second
+		// round, predicted by the better fit, finds the dropped ones.
+		var d Dispersion
+		var err error
+		for len(got) >= 2 {
+			d, err = FitDispersion(signed(out.Zero, append(append([]Match(nil), opp...), got...)), gopt)
+			if err == nil && acceptable(d) {
+				break
+			}
+			if err != nil {
+				got = nil
+				break
+			}
+			worst, wr := -1, 0.0
+			for k, mt := range got {
+				p := peaks[mt.Peak]
+				r := math.Abs(d.Wavelength(p.PX)/float64(mt.Order)-mt.Line.NM) / math.Max(d.Sigma(p.PX, p.SigmaPX), 1e-6)
+				if r > wr {
+					worst, wr = k, r
+				}
+			}
+			got = append(got[:worst:worst], got[worst+1:]...)
+		}
+		if len(got) < 2 {
+			break
+		}
+		sec, cur = got, d
+	}
+	if out.Zero < 0 && len(opp) == 0 && len(sec) == 0 {
 		return out
 	}
-	out.Points = signed(out.Zero, opp)
-	out.Opposite = len(opp)
+	extra := append(append([]Match(nil), opp...), sec...)
+	out.Points = signed(out.Zero, extra)
+	out.Opposite, out.Second = len(opp), len(sec)
 	for i := range out.Matches {
 		out.Matches[i].Order = m
 	}
-	for _, mt := range opp {
-		mt.Order = -m
-		out.Matches = append(out.Matches, mt)
-	}
+	out.Matches = append(out.Matches, extra...)
 	sort.Slice(out.Matches, func(a, b int) bool { return peaks[out.Matches[a].Peak].PX < peaks[out.Matches[b].Peak].PX })
 	return out
+}
+
+// ambiguous reports whether more than one of lamp's lines lies within tol
+// of nm.
+func ambiguous(lamp Lamp, nm, tol float64) bool {
+	n := 0
+	for _, l := range lamp.Lines {
+		if math.Abs(l.NM-nm) <= tol {
+			n++
+		}
+	}
+	return n > 1
 }

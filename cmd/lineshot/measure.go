@@ -968,24 +968,50 @@ func applyCalibration(r *imageResult, cal calibration, lamp calibrate.Lamp, cfg 
 		}
 	}
 	type sideLine struct {
-		nm   float64
-		side int
+		nm          float64
+		side, order int
 	}
 	usedLine, usedPeak := map[sideLine]bool{}, map[int]bool{}
+	// label names a line; a second-order line (|Order| 2) is a lamp line
+	// at twice its wavelength: its λ and σ are halved and it says so.
 	label := func(mt calibrate.Match) {
-		k := sideLine{mt.Line.NM, side[mt.Peak]}
+		second := mt.Order == 2 || mt.Order == -2
+		k := sideLine{mt.Line.NM, side[mt.Peak], 1}
+		if second {
+			k.order = 2
+		}
 		if usedLine[k] || usedPeak[mt.Peak] || mt.Peak == zero {
 			return
 		}
 		usedLine[k], usedPeak[mt.Peak] = true, true
 		l := &r.Lines[mt.Peak]
 		l.ID, l.RefNM, l.N = mt.Line.Name, mt.Line.NM, mt.Line.N
+		if second {
+			l.ID += " (2nd order)"
+			l.N = 0 // not in the Rydberg fit
+			l.WavelengthNM, l.WavelengthErrNM = nm[mt.Peak]/2, sig[mt.Peak]/2
+			l.VacuumNM = calibrate.AirToVacuum(l.WavelengthNM)
+			l.Order = 2 * side[mt.Peak]
+		}
 		l.DeltaNM = l.WavelengthNM - mt.Line.NM
 	}
 	for _, mt := range fixed {
 		label(mt)
 	}
 	for _, mt := range assignBySide(nm, sig, side, lamp, cfg.tolNM) {
+		label(mt)
+	}
+	// Lines still unnamed may be the lamp's lines in the second order,
+	// at twice their wavelength (past the red end of the first order).
+	half, halfSig := make([]float64, len(nm)), make([]float64, len(nm))
+	for i := range nm {
+		half[i], halfSig[i] = math.NaN(), sig[i]/2
+		if !usedPeak[i] && i != zero {
+			half[i] = nm[i] / 2
+		}
+	}
+	for _, mt := range assignBySide(half, halfSig, side, lamp, cfg.tolNM/2) {
+		mt.Order = 2
 		label(mt)
 	}
 	out := &calibrationOut{From: cal.Source, Lamp: cal.Lamp, Dispersion: d}

@@ -318,3 +318,52 @@ func TestLensDistortionCalibrated(t *testing.T) {
 		}
 	}
 }
+
+// A frame wide enough for the second order past the red end of the first
+// (simulator truth, 600 lines/mm, camera at 25°, f = 2400 px): the mercury
+// photo's second-order lines are found and join the calibration, which
+// then recovers the grating (the one-sided fit said 668 lines/mm, 28° and
+// 2120 px); every second-order line is labelled with its lamp line within
+// 0.1 nm; a hydrogen photo of the same setup has its Balmer lines within
+// 0.1 nm of NIST (REFERENCE-DATA.md sections 1-2).
+func TestSecondOrderCalibrates(t *testing.T) {
+	dir := t.TempDir()
+	args := []string{"--lines-per-mm", "600", "--orders", "1,2", "--focal-px", "2400", "--camera-angle", "25"}
+	hg, trHg := simulate(t, dir, "hg2.jpg", append([]string{"--lamp", "mercury", "--seed", "3"}, args...)...)
+	h, _ := simulate(t, dir, "h2.jpg", append([]string{"--lamp", "hydrogen", "--seed", "4"}, args...)...)
+	cal, res, err := buildCalibration([]string{hg}, defaultCfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	D, a, f, ok := cal.Dispersion.Physical()
+	t.Logf("grating %.1f lines/mm, camera %.2f°, focal %.0f px, %d points", 1e6/D, a, f, len(cal.Dispersion.Residuals))
+	if !ok || math.Abs(1e6/D-600) > 3 || math.Abs(a-25) > 0.3 || math.Abs(f-2400) > 30 {
+		t.Errorf("grating %.1f lines/mm, %.2f°, %.0f px; truth 600, 25°, 2400", 1e6/D, a, f)
+	}
+	second := 0
+	for _, l := range res[0].Lines {
+		if strings.Contains(l.ID, "2nd order") {
+			second++
+			tl, d := nearestTruth(trHg.Truth, l.X, l.Y)
+			if tl.Order != 2 || d > 0.5 || math.Abs(l.WavelengthNM-l.RefNM) > 0.1 || tl.NM != l.RefNM {
+				t.Errorf("%s at %.3f nm: truth order %d %.4f nm, %.2f px away", l.ID, l.WavelengthNM, tl.Order, tl.NM, d)
+			}
+		}
+	}
+	if second < 5 {
+		t.Errorf("%d second-order lines labelled, want at least 5", second)
+	}
+	r := measureOne(h, &cal, defaultCfg)
+	n := 0
+	for _, l := range r.Lines {
+		if l.N >= 3 {
+			n++
+			if math.Abs(l.WavelengthNM-l.RefNM) > 0.1 {
+				t.Errorf("%s at %.3f ± %.3f nm, NIST %.4f", l.ID, l.WavelengthNM, l.WavelengthErrNM, l.RefNM)
+			}
+		}
+	}
+	if n < 4 || r.Rydberg == nil {
+		t.Errorf("%d Balmer lines, R fitted %v", n, r.Rydberg != nil)
+	}
+}
