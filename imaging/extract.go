@@ -17,6 +17,11 @@ import (
 	"unsafe"
 
 	"gocv.io/x/gocv"
+	// TIFF, BMP and WebP headers too, so that their declared size is
+	// checked against the pixel cap before OpenCV allocates for it.
+	_ "golang.org/x/image/bmp"
+	_ "golang.org/x/image/tiff"
+	_ "golang.org/x/image/webp"
 )
 
 // ErrNoBand is returned when no spectrum band stands out of the frame.

@@ -3,12 +3,17 @@ package imaging
 import (
 	"bytes"
 	"encoding/json"
+	"image"
+	"image/color"
 	"image/jpeg"
+	"image/png"
+	"math"
 	"os"
 	"path/filepath"
 	"testing"
 
 	"gocv.io/x/gocv"
+	"golang.org/x/image/tiff"
 
 	"lineshot/imaging/synth"
 	"lineshot/peaks"
@@ -115,5 +120,62 @@ func TestCMYKAndProgressiveFiles(t *testing.T) {
 				t.Errorf("%s: %.2f nm %.3f px off", name, l.NM, best)
 			}
 		}
+	}
+}
+
+// TIFF (16-bit colour, as raw converters write) is measured like the PNG
+// it was made from, within 0.1 px; its header's size is checked against
+// the pixel cap before OpenCV decodes it (a cap of 1000 px refuses it).
+func TestTIFF16(t *testing.T) {
+	p := synth.Params{Width: 960, Height: 540, LinesPerMM: 600, TiltDeg: 2, Seed: 31, Emissions: mercury}
+	img, _, err := synth.Render(p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	deep := image.NewRGBA64(img.Bounds())
+	for y := 0; y < p.Height; y++ {
+		for x := 0; x < p.Width; x++ {
+			r, g, b, _ := img.At(x, y).RGBA()
+			deep.SetRGBA64(x, y, color.RGBA64{uint16(r), uint16(g), uint16(b), 0xffff})
+		}
+	}
+	pngPath, tifPath := filepath.Join(dir, "a.png"), filepath.Join(dir, "a.tif")
+	for _, w := range []struct {
+		path string
+		enc  func(*os.File) error
+	}{
+		{pngPath, func(f *os.File) error { return png.Encode(f, deep) }},
+		{tifPath, func(f *os.File) error { return tiff.Encode(f, deep, nil) }},
+	} {
+		f, err := os.Create(w.path)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := w.enc(f); err != nil {
+			t.Fatal(err)
+		}
+		f.Close()
+	}
+	a, err := Extract(pngPath, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := Extract(tifPath, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ra, _ := peaks.Find(a.Profile, peaks.Options{})
+	rb, _ := peaks.Find(b.Profile, peaks.Options{})
+	if len(ra.Peaks) == 0 || len(ra.Peaks) != len(rb.Peaks) {
+		t.Fatalf("PNG %d lines, TIFF %d", len(ra.Peaks), len(rb.Peaks))
+	}
+	for i := range ra.Peaks {
+		if d := math.Abs(ra.Peaks[i].Center - rb.Peaks[i].Center); d > 0.1 {
+			t.Errorf("line %d: TIFF %.3f px from PNG", i, d)
+		}
+	}
+	if _, err := Extract(tifPath, Options{MaxPixels: 1000}); err == nil || !contains(err.Error(), "exceeds the limit") {
+		t.Errorf("TIFF over the pixel cap: %v", err)
 	}
 }
