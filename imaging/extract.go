@@ -75,6 +75,11 @@ type Strip struct {
 	// Without Options.KeepImage only the profile's own channel is
 	// straightened: Profile and one of Luma or Sum are set, Channels not.
 	Clipped []bool // positions whose band pixels hold a saturated value in some channel
+	// NoiseShape is how the background noise varies along the band,
+	// relative to its median (1): the scatter of the rows beside the
+	// band, per column, smoothed. Stray light or a glow raises it where it
+	// falls; peaks.Options.NoiseShape uses it. Nil when unmeasured.
+	NoiseShape []float64
 	// ChannelClipped is Clipped per linear channel (R, G, B), set with
 	// Channels. When the band holds saturated pixels, Channels are
 	// straightened even without Options.KeepImage, so that a line
@@ -1031,6 +1036,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	}
 	rows := float64(2*half + 1)
 	tmp := make([]float64, nbg)
+	spread := make([]float64, L) // the profile channel's scatter beside the band, per column
 	for i := 0; i < L; i++ {
 		for c := 0; c < nc; c++ {
 			bgv := 0.0
@@ -1040,6 +1046,12 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 					v[k] = float64(bg[(c*L+i)*nbg+k])
 				}
 				bgv = medianOf(v)
+				if c == nc-1 && nb[i] >= 4 {
+					for k := range v {
+						v[k] = math.Abs(v[k] - bgv)
+					}
+					spread[i] = medianOf(v)
+				}
 			}
 			if nIn[i] > 0 {
 				acc[c][i] = (acc[c][i] - float64(nIn[i])*bgv) * rows / float64(nIn[i])
@@ -1068,6 +1080,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	if nBand > 0 {
 		s.Saturated = float64(nClip) / float64(nBand)
 	}
+	s.NoiseShape = noiseShape(spread)
 	if keep && nc == 4 {
 		s.Image = stripImage(px, L, H)
 	}
@@ -1622,4 +1635,41 @@ func lineFit(t, y, w []float64) (a, b float64, ok bool) {
 	}
 	b = (sw*sty - st*sy) / d
 	return (sy - b*st) / sw, b, true
+}
+
+// noiseShape turns per-column scatters into a smooth profile relative to
+// its median: a running median over 31 columns (the scatter of a few
+// dozen rows is itself noisy), columns without a measure taking their
+// neighbours'. Nil when fewer than a third of the columns were measured.
+func noiseShape(spread []float64) []float64 {
+	L := len(spread)
+	var have []float64
+	for _, v := range spread {
+		if v > 0 {
+			have = append(have, v)
+		}
+	}
+	if L == 0 || len(have) < L/3 {
+		return nil
+	}
+	med := medianOf(append([]float64(nil), have...))
+	if med <= 0 {
+		return nil
+	}
+	out := make([]float64, L)
+	const h = 15
+	win := make([]float64, 0, 2*h+1)
+	for i := range out {
+		win = win[:0]
+		for j := max(0, i-h); j <= min(L-1, i+h); j++ {
+			if spread[j] > 0 {
+				win = append(win, spread[j])
+			}
+		}
+		out[i] = 1
+		if len(win) > 0 {
+			out[i] = medianOf(win) / med
+		}
+	}
+	return out
 }

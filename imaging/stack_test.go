@@ -4,6 +4,7 @@ import (
 	"image"
 	"image/color"
 	"image/png"
+	"math/rand/v2"
 	"math"
 	"os"
 	"path/filepath"
@@ -210,5 +211,46 @@ func TestStackReadsVideo(t *testing.T) {
 	os.WriteFile(bogus, []byte("not a video at all"), 0o644)
 	if _, err := ExtractStack(Stack{Frames: []string{bogus}}, Options{}); err == nil || !contains(err.Error(), "bogus.mp4") {
 		t.Errorf("bogus video: %v", err)
+	}
+}
+
+// Extra noise over part of the frame (stray light's shot noise, a hot
+// region of the sensor) shows in Strip.NoiseShape: several times the
+// typical level there, about 1 elsewhere.
+func TestNoiseShapeFollowsTheFrame(t *testing.T) {
+	img, _, err := synth.Render(synth.Params{Width: 1280, Height: 720, LinesPerMM: 600, Seed: 8, Emissions: mercury})
+	if err != nil {
+		t.Fatal(err)
+	}
+	rng := rand.New(rand.NewPCG(1, 1))
+	for y := 0; y < 720; y++ {
+		for x := 600; x < 800; x++ {
+			c := img.RGBAAt(x, y)
+			n := func(u uint8) uint8 { return uint8(math.Max(0, math.Min(255, float64(u)+12*rng.NormFloat64()))) }
+			img.SetRGBA(x, y, color.RGBA{n(c.R), n(c.G), n(c.B), 255})
+		}
+	}
+	path := writePNG(t, t.TempDir(), "noisy.png", img)
+	s, err := Extract(path, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(s.NoiseShape) != len(s.Profile) {
+		t.Fatalf("noise shape of %d values for %d samples", len(s.NoiseShape), len(s.Profile))
+	}
+	var in, out []float64
+	for i, v := range s.NoiseShape {
+		x, _ := s.ToImage(float64(i))
+		switch {
+		case x > 620 && x < 780:
+			in = append(in, v)
+		case x < 550 || x > 850:
+			out = append(out, v)
+		}
+	}
+	mi, mo := medianOf(in), medianOf(out)
+	t.Logf("noise shape: %.2f in the noisy columns, %.2f elsewhere", mi, mo)
+	if mi < 3 || mo < 0.7 || mo > 1.3 {
+		t.Errorf("noise shape %.2f in the noisy columns, %.2f elsewhere", mi, mo)
 	}
 }

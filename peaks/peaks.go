@@ -56,6 +56,13 @@ type Options struct {
 	BaselineWindow int
 	// Clipped marks samples that hold saturated pixels; nil means none.
 	Clipped []bool
+	// NoiseShape, when set (one value per sample), is how the noise varies
+	// along the profile relative to the estimated noise (1 where it is
+	// typical). A line must then clear MinSNR times the local noise, its
+	// SNR is against the local noise and its σ grows with it: stray light
+	// raises the noise where it falls, and a global noise level would let
+	// its fluctuations pass for lines. Values below 1 are taken as 1.
+	NoiseShape []float64
 	// Gain is the profile value of one detected photoelectron, so that a
 	// line signal S carries shot-noise variance Gain·S; with it the fit
 	// weights each sample by noise² + Gain·S and approaches the Cramér–Rao
@@ -89,6 +96,9 @@ func Find(profile []float64, opt Options) (Result, error) {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
 			return Result{}, fmt.Errorf("peaks: sample %d is not a finite number", i)
 		}
+	}
+	if opt.NoiseShape != nil && len(opt.NoiseShape) != n {
+		return Result{}, fmt.Errorf("peaks: %d noise-shape values for %d samples", len(opt.NoiseShape), n)
 	}
 	if opt.Clipped != nil && len(opt.Clipped) != n {
 		return Result{}, fmt.Errorf("peaks: %d clip flags for %d samples", len(opt.Clipped), n)
@@ -191,6 +201,20 @@ func Find(profile []float64, opt Options) (Result, error) {
 		res.Peaks = f.fitAll(est, minSNR)
 	}
 	f.splitWide(&res, minSNR)
+	if len(opt.NoiseShape) == n {
+		kept := res.Peaks[:0]
+		for _, p := range res.Peaks {
+			i := min(n-1, max(0, int(math.Round(p.Center))))
+			if k := opt.NoiseShape[i]; k > 1 {
+				p.SNR /= k
+				p.Sigma *= k
+			}
+			if p.SNR >= minSNR {
+				kept = append(kept, p)
+			}
+		}
+		res.Peaks = kept
+	}
 	sort.Slice(res.Peaks, func(a, b int) bool { return res.Peaks[a].Center < res.Peaks[b].Center })
 	return res, nil
 }

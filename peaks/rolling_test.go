@@ -69,3 +69,64 @@ func TestMedianMatchesSort(t *testing.T) {
 		}
 	}
 }
+
+// Noise that triples over part of the profile (stray light falling there)
+// passes for lines against the profile's typical noise; with NoiseShape
+// saying where it is higher, no line is reported there, the real lines
+// are still found, and their SNR and σ are against the local noise.
+func TestNoiseShapeRejectsLocalNoise(t *testing.T) {
+	const n = 2000
+	rng := rand.New(rand.NewPCG(5, 6))
+	y := make([]float64, n)
+	shape := make([]float64, n)
+	truth := []float64{300.4, 900.7, 1500.2}
+	for i := range y {
+		shape[i] = 1
+		if i >= 1100 && i < 1400 {
+			shape[i] = 3
+		}
+		y[i] = shape[i] * rng.NormFloat64()
+		for _, c := range truth {
+			d := (float64(i) - c) / 1.5
+			y[i] += 60 * math.Exp(-d*d/2)
+		}
+	}
+	inRegion := func(r Result) int {
+		k := 0
+		for _, p := range r.Peaks {
+			if p.Center >= 1100 && p.Center < 1400 {
+				k++
+			}
+		}
+		return k
+	}
+	plain, err := Find(y, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	shaped, err := Find(y, Options{NoiseShape: shape})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Logf("without the shape %d lines in the noisy part, with it %d", inRegion(plain), inRegion(shaped))
+	if inRegion(plain) == 0 {
+		t.Error("the noisy part gave no false line even without the shape: the test is not testing")
+	}
+	if inRegion(shaped) > 0 {
+		t.Errorf("%d false lines in the noisy part with the noise shape", inRegion(shaped))
+	}
+	for _, c := range truth {
+		found := false
+		for _, p := range shaped.Peaks {
+			if math.Abs(p.Center-c) < 0.3 {
+				found = true
+			}
+		}
+		if !found {
+			t.Errorf("line at %.1f lost", c)
+		}
+	}
+	if _, err := Find(y, Options{NoiseShape: shape[:10]}); err == nil {
+		t.Error("a noise shape of the wrong length was accepted")
+	}
+}

@@ -538,7 +538,7 @@ func extractAndFind(path string, cfg measureConfig) (measured, error) {
 // findLines measures the lines of a straightened band; path names it in
 // errors.
 func findLines(s imaging.Strip, path string, cfg measureConfig) (measured, error) {
-	r, err := peaks.Find(s.Profile, peaks.Options{MinSNR: cfg.minSNR, Clipped: s.Clipped})
+	r, err := peaks.Find(s.Profile, peaks.Options{MinSNR: cfg.minSNR, Clipped: s.Clipped, NoiseShape: s.NoiseShape})
 	if err != nil {
 		return measured{}, fmt.Errorf("%s: %w", path, err)
 	}
