@@ -132,6 +132,28 @@ func TestGratingEquation(t *testing.T) {
 	}
 }
 
+// A textbook worked solution (Halliday, Resnick & Walker, Fundamentals of
+// Physics, chapter 36 problem 54, as its published solution page shows
+// it): a grating of 160 lines/mm sends 460 nm to 8.46° in the second order,
+// 640 nm to 11.81° in the second, 460 nm to 12.75° and 640 nm to 17.89° in
+// the third, and 460 nm to 17.12° in the fourth (where orders overlap).
+// Higher orders and their overlap are what the second-order search uses.
+func TestGratingTextbookExample(t *testing.T) {
+	cases := []struct {
+		nm  float64
+		m   int
+		deg float64
+	}{{460, 2, 8.46}, {640, 2, 11.81}, {460, 3, 12.75}, {640, 3, 17.89}, {460, 4, 17.12}}
+	for _, c := range cases {
+		got, ok := GratingAngle(160, c.nm, c.m)
+		// The solution quotes two decimals, cut rather than rounded
+		// (11.818° is given as 11.81°): agree within 0.01°.
+		if !ok || math.Abs(got-c.deg) >= 0.01 {
+			t.Errorf("%g nm, order %d: %.3f°, the worked solution gives %.2f°", c.nm, c.m, got, c.deg)
+		}
+	}
+}
+
 // camera is the pinhole-camera-and-grating geometry used to make synthetic
 // line positions with a known truth.
 type camera struct {
