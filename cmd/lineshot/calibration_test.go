@@ -1,6 +1,7 @@
 package main
 
 import (
+	"fmt"
 	"image/jpeg"
 	"math"
 	"os"
@@ -59,7 +60,8 @@ var defaultCfg = measureConfig{minSNR: 5, tolNM: 1}
 // Every lamp on every bench, no hints: the lamp is classified right and
 // every line found at SNR ≥ 20 is identified as the truth line it is.
 // Sodium is left out: its D pair is one blended line at these dispersions,
-// too few to identify by pattern (name it with --lamp).
+// too few to identify by pattern (TestSodiumUnaided recognises it by its
+// colour, TestSodiumWithACalibration measures it).
 func TestIdentifyEveryLampOnEveryBench(t *testing.T) {
 	dir := t.TempDir()
 	for _, s := range setups {
@@ -283,6 +285,36 @@ func TestSodiumWithACalibration(t *testing.T) {
 		}
 		if !ok {
 			t.Errorf("%s: no Na D line measured: %+v", s.name, r.Lines)
+		}
+	}
+}
+
+// Sodium with no calibration and no hint: one yellow line (its D pair),
+// recognised by its colour on every bench, its place in the photo given
+// within 3 px of the simulator's truth; the other lamps are not taken for
+// it (TestIdentifyEveryLampOnEveryBench).
+func TestSodiumUnaided(t *testing.T) {
+	dir := t.TempDir()
+	for k, s := range setups {
+		na, tr := s.render(t, dir, "sodium", uint64(980+k))
+		r := measureOne(na, nil, defaultCfg)
+		if r.Error != "" || r.Lamp != "sodium" {
+			t.Errorf("%s: lamp %q, error %q", s.name, r.Lamp, r.Error)
+			continue
+		}
+		var x, y float64
+		for _, l := range tr.Lines {
+			x, y = x+l.X/2, y+l.Y/2 // the two D lines, a fraction of a pixel to 3 px apart
+		}
+		found := false
+		for _, w := range r.Warnings {
+			var wx, wy float64
+			if n, _ := fmt.Sscanf(w[strings.Index(w, "(")+1:], "%f, %f", &wx, &wy); n == 2 && math.Hypot(wx-x, wy-y) < 3 {
+				found = true
+			}
+		}
+		if !found {
+			t.Errorf("%s: the line's place (truth %.1f, %.1f) not given: %v", s.name, x, y, r.Warnings)
 		}
 	}
 }

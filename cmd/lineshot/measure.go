@@ -675,8 +675,27 @@ func identify(m measured, path string, cfg measureConfig, lamps []calibrate.Lamp
 		l, _ := cfg.lampByName(cfg.lamp)
 		lamps = []calibrate.Lamp{l}
 	}
-	ids := calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{Pins: cfg.pins})
+	// A "band" a few pixels across is one line image seen lengthwise: the
+	// photo holds a single line, whose profile is no spectrum to match.
+	single := m.strip.BandHalfHeight < 6 && len(cfg.pins) == 0
+	var ids []calibrate.Identification
+	if !single {
+		ids = calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{Pins: cfg.pins})
+	}
 	if len(ids) == 0 {
+		if oneYellowLine(m, path, cfg, single) && hasLamp(lamps, "sodium") {
+			r.Lamp, r.LampScore = "sodium", 0.5
+			at := ""
+			if single {
+				// The profile ran along the line image: its samples are no
+				// lines. Say where the one line is instead.
+				x, y := m.strip.ToImage(profileCentroid(m.strip.Profile))
+				at = fmt.Sprintf(" at (%.0f, %.0f)", x, y)
+				r.Lines = nil
+			}
+			r.Warnings = append(r.Warnings, fmt.Sprintf("one yellow line%s and nothing else: a sodium lamp, recognised by its colour (its D pair has no pattern to identify, nor a band direction of its own); measure it with a calibration of the setup (-c) for its wavelength", at))
+			return selfID{m: m, id: calibrate.Identification{Lamp: "sodium"}}, r
+		}
 		r.Error = fmt.Sprintf("%s: the %d lines found match no known lamp's pattern (name the lamp with --lamp, or pin a line with --line)", path, len(m.found.Peaks))
 		return selfID{}, r
 	}
@@ -688,6 +707,76 @@ func identify(m measured, path string, cfg measureConfig, lamps []calibrate.Lamp
 	}
 	r.Lamp, r.LampScore = ids[0].Lamp, confidence(ids)
 	return selfID{m: m, id: ids[0], lamp: lamp}, r
+}
+
+// oneYellowLine reports whether a photo holds a single strong line (at
+// least 85 % of the height of everything at SNR ≥ 20, or single: the band
+// found is one line image seen lengthwise) whose light is
+// yellow: red and green both present (green 0.2-1.5 times red) and blue
+// under a tenth of the whole. A single yellow line is a sodium lamp's D
+// pair (common practice: no other lamp lineshot knows shows one yellow
+// line alone; helium's and mercury's yellow lines come with others). The
+// colour needs the band's channels, so the photo is measured again with
+// them when they were not kept.
+func oneYellowLine(m measured, path string, cfg measureConfig, single bool) bool {
+	var total, top float64
+	for _, p := range m.found.Peaks {
+		if p.SNR >= 20 {
+			total += p.Height
+			top = math.Max(top, p.Height)
+		}
+	}
+	if !single && (total == 0 || top < 0.85*total) {
+		return false
+	}
+	s := m.strip
+	if s.Channels[0] == nil {
+		if _, err := os.Stat(path); err != nil {
+			return false
+		}
+		o := cfg.imageOpts
+		o.KeepImage = true
+		var err error
+		if s, err = imaging.Extract(path, o); err != nil || s.Channels[0] == nil {
+			return false
+		}
+	}
+	var rgb [3]float64
+	for c := range rgb {
+		for _, v := range s.Channels[c] {
+			rgb[c] += math.Max(0, v)
+		}
+	}
+	sum := rgb[0] + rgb[1] + rgb[2]
+	if sum <= 0 || rgb[0] <= 0 {
+		return false
+	}
+	g := rgb[1] / rgb[0]
+	return rgb[2]/sum < 0.1 && g >= 0.2 && g <= 1.5
+}
+
+// profileCentroid is the position of a profile's centre of light.
+func profileCentroid(p []float64) float64 {
+	var sw, sx float64
+	for i, v := range p {
+		if v > 0 {
+			sw += v
+			sx += v * float64(i)
+		}
+	}
+	if sw == 0 {
+		return float64(len(p)) / 2
+	}
+	return sx / sw
+}
+
+func hasLamp(lamps []calibrate.Lamp, name string) bool {
+	for _, l := range lamps {
+		if l.Name == name {
+			return true
+		}
+	}
+	return false
 }
 
 // measureSelf measures a photo that calibrates itself: its lines are
@@ -703,8 +792,8 @@ func measureSelf(path string, cfg measureConfig) imageResult {
 // measureSelfFrom is measureSelf on a photo already measured.
 func measureSelfFrom(m measured, path string, cfg measureConfig) imageResult {
 	s, r := identify(m, path, cfg, cfg.lamps())
-	if r.Error != "" {
-		return r
+	if r.Error != "" || len(s.id.Matches) == 0 {
+		return r // failed, or recognised without lines to calibrate on (sodium by colour)
 	}
 	fopt := calibrate.FitOptions{Model: cfg.model, OpticalCenterPX: s.m.strip.OpticalCenter, LinesPerMM: cfg.linesPerMM, EstimateFloor: true}
 	ord := calibrate.FindOrders(s.m.calPeaks(), s.id, s.lamp, fopt)
