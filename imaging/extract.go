@@ -837,9 +837,14 @@ func bandROI(w, h int, ang, vc, reach float64) (image.Rectangle, error) {
 	return r, nil
 }
 
-// linearRegion copies the region of the frame into its channel sum, its
-// linearised luma, a per-pixel clip mask and, when all is set, linear
-// float32 R, G, B and luma interleaved (four values a pixel).
+// bgr returns the code values of the pixel whose blue sample is at i.
+func (f frame) bgr(i int) (b, g, r int) {
+	if f.bytes8 != nil {
+		return int(f.bytes8[i]), int(f.bytes8[i+1]), int(f.bytes8[i+2])
+	}
+	return int(f.words16[i]), int(f.words16[i+1]), int(f.words16[i+2])
+}
+
 // regionRGB returns the region's linear R, G, B and the given luma plane
 // interleaved, as linearRegion does with all set.
 func regionRGB(fr frame, roi image.Rectangle, lut []float32, lp []float32) []float32 {
@@ -849,18 +854,16 @@ func regionRGB(fr frame, roi image.Rectangle, lut []float32, lp []float32) []flo
 		for x := 0; x < w; x++ {
 			src := 3 * ((y+roi.Min.Y)*fr.w + x + roi.Min.X)
 			dst := y*w + x
-			var b, g, r int
-			if fr.bytes8 != nil {
-				b, g, r = int(fr.bytes8[src]), int(fr.bytes8[src+1]), int(fr.bytes8[src+2])
-			} else {
-				b, g, r = int(fr.words16[src]), int(fr.words16[src+1]), int(fr.words16[src+2])
-			}
+			b, g, r := fr.bgr(src)
 			rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2], rgb[4*dst+3] = lut[r], lut[g], lut[b], lp[dst]
 		}
 	}
 	return rgb
 }
 
+// linearRegion copies the region of the frame into its channel sum, its
+// linearised luma, a per-pixel clip mask and, when all is set, linear
+// float32 R, G, B and luma interleaved (four values a pixel).
 func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma lumaLUT, all bool) (plane, []float32, []uint8, []float32) {
 	w, h := roi.Dx(), roi.Dy()
 	// Every element is written below: pooled buffers need no clearing.
@@ -875,12 +878,7 @@ func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma
 		for x := 0; x < w; x++ {
 			src := 3 * ((y+roi.Min.Y)*fr.w + x + roi.Min.X)
 			dst := y*w + x
-			var b, g, r int
-			if fr.bytes8 != nil {
-				b, g, r = int(fr.bytes8[src]), int(fr.bytes8[src+1]), int(fr.bytes8[src+2])
-			} else {
-				b, g, r = int(fr.words16[src]), int(fr.words16[src+1]), int(fr.words16[src+2])
-			}
+			b, g, r := fr.bgr(src)
 			var l float32
 			if luma.exact != nil {
 				l = luma.exact[299*r+587*g+114*b]
