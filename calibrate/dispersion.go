@@ -41,14 +41,18 @@ type Point struct {
 }
 
 // target is the value the dispersion must reach at p: m·λ.
-func (p Point) target() float64 {
-	switch {
-	case p.ZeroOrder:
-		return 0
-	case p.Order == 0:
-		return p.NM
+func (p Point) target() float64 { return float64(p.order()) * p.NM }
+
+// refSigma is the uncertainty of p's target from its reference
+// wavelength: its own, or the fit's default, times |m|.
+func (p Point) refSigma(opt FitOptions) float64 {
+	rs := opt.RefSigmaNM
+	if p.SigmaNM > 0 {
+		rs = p.SigmaNM
+	} else if rs == 0 {
+		rs = 0.001 // lamp-type and hyperfine spread of Hg lines are below this (REFERENCE-DATA.md section 1)
 	}
-	return float64(p.Order) * p.NM
+	return rs * math.Abs(float64(p.order()))
 }
 
 // order is p's signed order (+1 for the zero value; 0 for the zero order).
@@ -369,7 +373,11 @@ func FitDispersion(pts []Point, opt FitOptions) (Dispersion, error) {
 		if len(pts) < k {
 			continue
 		}
-		d, err := fitModel(pts, m, opt)
+		var from *Dispersion // the lens model starts from the grating fit just made
+		if m == ModelLens && len(fits) > 0 && fits[len(fits)-1].Model == ModelGrating {
+			from = &fits[len(fits)-1]
+		}
+		d, err := fitModel(pts, m, opt, from)
 		if err != nil {
 			if firstErr == nil {
 				firstErr = err
@@ -417,7 +425,7 @@ func FitDispersion(pts []Point, opt FitOptions) (Dispersion, error) {
 			}
 			o := opt
 			o.Model, o.EstimateFloor = out.Model, false
-			if d, err := fitModel(fl, out.Model, o); err == nil {
+			if d, err := fitModel(fl, out.Model, o, nil); err == nil {
 				d.FloorPX = f
 				out = d
 			}
@@ -431,12 +439,10 @@ func FitDispersion(pts []Point, opt FitOptions) (Dispersion, error) {
 
 // fitModel fits one model. Position errors are carried into wavelength
 // errors through the local slope (effective variance), iterated twice.
-func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
+// For the lens model, from is the grating fit to start from (nil: fit
+// one first).
+func fitModel(pts []Point, model string, opt FitOptions, from *Dispersion) (Dispersion, error) {
 	n := len(pts)
-	refSig := opt.RefSigmaNM
-	if refSig == 0 {
-		refSig = 0.001
-	}
 	lo, hi := pts[0].PX, pts[n-1].PX
 	d := Dispersion{Model: model, MinPX: lo, MaxPX: hi, Center: (lo + hi) / 2, Scale: math.Max((hi-lo)/2, 1)}
 	y := make([]float64, n)
@@ -489,12 +495,16 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 		}
 	case ModelLens:
 		// From the plain grating fit, undistorted.
-		o := opt
-		o.Model, o.EstimateFloor = ModelGrating, false
-		g, err := fitModel(pts, ModelGrating, o)
-		if err != nil {
-			return Dispersion{}, err
+		if from == nil {
+			o := opt
+			o.Model, o.EstimateFloor = ModelGrating, false
+			g, err := fitModel(pts, ModelGrating, o, nil)
+			if err != nil {
+				return Dispersion{}, err
+			}
+			from = &g
 		}
+		g := *from
 		d.Center, d.Scale = g.Center, g.Scale
 		init = append(append([]float64(nil), g.Params...), 0)
 	default:
@@ -505,11 +515,7 @@ func fitModel(pts []Point, model string, opt FitOptions) (Dispersion, error) {
 	for iter := 0; iter < 2; iter++ {
 		for i, p := range pts {
 			s := slope(p.PX) * p.SigmaPX
-			rs := refSig
-			if p.SigmaNM > 0 {
-				rs = p.SigmaNM
-			}
-			rs *= math.Abs(float64(p.order()))
+			rs := p.refSigma(opt)
 			sig[i] = math.Sqrt(s*s + rs*rs)
 		}
 		dd := d
@@ -647,20 +653,12 @@ func gratingD(p, grad []float64) float64 {
 // floorFor returns f ≥ 0 such that χ² of d's residuals with every σ_px
 // widened to sqrt(σ_px² + f²) equals DOF (bisection; parameters held).
 func floorFor(pts []Point, d Dispersion, opt FitOptions) float64 {
-	refSig := opt.RefSigmaNM
-	if refSig == 0 {
-		refSig = 0.001
-	}
 	chi2 := func(f float64) float64 {
 		var s float64
 		for _, p := range pts {
 			da := d.Across(p.AcrossPX)
 			sl := da.Slope(p.PX)
-			rs := refSig
-			if p.SigmaNM > 0 {
-				rs = p.SigmaNM
-			}
-			rs *= math.Abs(float64(p.order()))
+			rs := p.refSigma(opt)
 			v := sl*sl*(p.SigmaPX*p.SigmaPX+f*f) + rs*rs
 			r := p.target() - da.Wavelength(p.PX)
 			s += r * r / v

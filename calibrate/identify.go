@@ -230,12 +230,12 @@ func Classify(peaks []Peak, lamps []Lamp, opt IdentifyOptions) []Identification 
 		// orders explain count too (the score's share of the photo's peak
 		// height), or a lamp seen on both sides would lose to whichever
 		// lamp's pattern the mirrored lines happen to fit.
-		if os := FindOrders(peaks, id, l, FitOptions{}); os.Zero >= 0 || os.Opposite > 0 {
+		if os := FindOrders(peaks, id, l, FitOptions{}); os.Signed() {
 			var base, with float64
 			for _, mt := range id.Matches {
 				base += peaks[mt.Peak].Height
 			}
-			for _, mt := range os.Matches { // the identification's and the opposite order's
+			for _, mt := range os.Matches { // the identification's and every other order's
 				with += peaks[mt.Peak].Height
 			}
 			if os.Zero >= 0 {

@@ -23,6 +23,13 @@ type OrderSet struct {
 	Opposite, Second int
 }
 
+// Signed reports whether any order beyond the identified first order was
+// found: the points then carry signed orders and fit m·λ.
+func (o OrderSet) Signed() bool { return o.Zero >= 0 || o.Opposite > 0 || o.Second > 0 }
+
+// zeroFloorPX is the least position uncertainty given to the zero order.
+const zeroFloorPX = 0.15
+
 // FindOrders looks beyond a first-order identification for the zero order
 // and the opposite first order.
 //
@@ -42,9 +49,6 @@ type OrderSet struct {
 // fit (the symmetric measurement of a spectrometer); the zero order pins
 // sin θ = 0. With neither in the photo the identification's points come
 // back unchanged.
-// zeroFloorPX is the least position uncertainty given to the zero order.
-const zeroFloorPX = 0.15
-
 func FindOrders(peaks []Peak, id Identification, lamp Lamp, opt FitOptions) OrderSet {
 	out := OrderSet{Zero: -1, Matches: append([]Match(nil), id.Matches...)}
 	for _, mt := range id.Matches {
@@ -102,6 +106,7 @@ func FindOrders(peaks []Peak, id Identification, lamp Lamp, opt FitOptions) Orde
 	// saturated lines, whose fit σ understate their errors, by a few (the
 	// final calibration fit estimates that floor). So: χ²/dof within its
 	// 3σ range, or within 4 and twice the one-sided fit's.
+	cur := one
 	acceptable := func(d Dispersion) bool {
 		if d.DOF == 0 {
 			return true
@@ -110,9 +115,19 @@ func FindOrders(peaks []Peak, id Identification, lamp Lamp, opt FitOptions) Orde
 		return d.ChiSq/float64(d.DOF) <= math.Max(lim, math.Max(4, 2*one.Birge*one.Birge))
 	}
 
+	// onSide is m·λ at position px, oriented so that the identified side
+	// is positive: the one-sided fit gives λ there (and its extrapolation
+	// turns negative across the zero order), a signed fit m·λ.
+	onSide := func(px float64) float64 {
+		v := cur.Wavelength(px)
+		if cur.Signed {
+			v *= float64(m)
+		}
+		return v
+	}
+
 	// 1. The zero order: where the grating model reaches m·λ = 0
 	// (a + b·t = 0), within the fit's uncertainty there.
-	cur := one
 	if p0 := one.Center - one.Scale*one.Params[0]/one.Params[1]; !math.IsNaN(p0) {
 		tol := math.Max(4, 5*one.Sigma(p0, 0)/math.Abs(one.Slope(p0)))
 		best := -1
@@ -143,17 +158,12 @@ func FindOrders(peaks []Peak, id Identification, lamp Lamp, opt FitOptions) Orde
 			if used[i] {
 				continue
 			}
-			v := cur.Wavelength(p.PX)
-			if !cur.Signed && out.Zero < 0 {
-				// m·λ from the one-sided fit: the far side is where the
-				// extrapolated value has the other sign.
-				v *= float64(m)
-			}
-			if v*float64(m) >= 0 || math.IsNaN(v) {
+			v := onSide(p.PX) // negative on the far side of the zero order
+			if v >= 0 || math.IsNaN(v) {
 				continue
 			}
 			idx = append(idx, i)
-			nm = append(nm, math.Abs(v))
+			nm = append(nm, -v)
 			sig = append(sig, cur.Sigma(p.PX, p.SigmaPX))
 		}
 		var got []Match
@@ -192,11 +202,7 @@ func FindOrders(peaks []Peak, id Identification, lamp Lamp, opt FitOptions) Orde
 			if used[i] {
 				continue
 			}
-			v := cur.Wavelength(p.PX)
-			if !cur.Signed {
-				v *= float64(m)
-			}
-			v *= float64(m) // now positive on the identified side
+			v := onSide(p.PX)
 			s := cur.Sigma(p.PX, p.SigmaPX)
 			if math.IsNaN(v) || v < 2*minNM-4*s-1 {
 				continue
@@ -240,6 +246,10 @@ func FindOrders(peaks []Peak, id Identification, lamp Lamp, opt FitOptions) Orde
 				if r > wr {
 					worst, wr = k, r
 				}
+			}
+			if worst < 0 {
+				got = nil // no residual to go by (NaN σ): give up the order
+				break
 			}
 			got = append(got[:worst:worst], got[worst+1:]...)
 		}
