@@ -326,7 +326,7 @@ func combineCalibration(ids []selfID, results []imageResult, paths []string, cfg
 	var lamps []string
 	fopt := calibrate.FitOptions{Model: cfg.model, OpticalCenterPX: cal.position(float64(first.FrameW-1)/2, float64(first.FrameH-1)/2),
 		LinesPerMM: cfg.linesPerMM, EstimateFloor: true}
-	// Each photo's orders (zero order, both first orders) from its own
+	// Each photo's orders (zero order, both first orders, second order) from its own
 	// lines; then every point in the first photo's geometry.
 	sets := make([]calibrate.OrderSet, len(ids))
 	anySigned := false
@@ -334,7 +334,7 @@ func combineCalibration(ids []selfID, results []imageResult, paths []string, cfg
 		o := fopt
 		o.OpticalCenterPX, o.EstimateFloor = id.m.strip.OpticalCenter, false
 		sets[k] = calibrate.FindOrders(id.m.calPeaks(), id.id, id.lamp, o)
-		anySigned = anySigned || sets[k].Zero >= 0 || sets[k].Opposite > 0
+		anySigned = anySigned || sets[k].Signed()
 	}
 	for k, id := range ids {
 		lamps = append(lamps, id.id.Lamp)
@@ -342,7 +342,7 @@ func combineCalibration(ids []selfID, results []imageResult, paths []string, cfg
 		// A photo with one first order joining a signed fit: its lines are
 		// on the side where m·λ rises with position, as the others' are.
 		m := 0
-		if anySigned && sets[k].Zero < 0 && sets[k].Opposite == 0 {
+		if anySigned && !sets[k].Signed() {
 			m = oneSidedOrder(set)
 		}
 		for _, p := range set {
@@ -683,7 +683,7 @@ func identify(m measured, path string, cfg measureConfig, lamps []calibrate.Lamp
 		ids = calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{Pins: cfg.pins})
 	}
 	if len(ids) == 0 {
-		if oneYellowLine(m, path, cfg, single) && hasLamp(lamps, "sodium") {
+		if hasLamp(lamps, "sodium") && oneYellowLine(m, path, cfg, single) {
 			r.Lamp, r.LampScore = "sodium", 0.5
 			at := ""
 			if single {
@@ -795,22 +795,11 @@ func measureSelfFrom(m measured, path string, cfg measureConfig) imageResult {
 	if r.Error != "" || len(s.id.Matches) == 0 {
 		return r // failed, or recognised without lines to calibrate on (sodium by colour)
 	}
-	fopt := calibrate.FitOptions{Model: cfg.model, OpticalCenterPX: s.m.strip.OpticalCenter, LinesPerMM: cfg.linesPerMM, EstimateFloor: true}
-	ord := calibrate.FindOrders(s.m.calPeaks(), s.id, s.lamp, fopt)
-	cal := calibration{Schema: 1, Source: path, Lamp: s.id.Lamp, AngleDeg: s.m.strip.AngleDeg, Origin: s.m.strip.Origin,
-		FrameW: s.m.strip.FrameW, FrameH: s.m.strip.FrameH}
-	for i := range ord.Points {
-		x, y := s.m.strip.ToImage(ord.Points[i].PX)
-		ord.Points[i].AcrossPX = cal.across(x, y)
-		cal.AcrossPX += ord.Points[i].AcrossPX / float64(len(ord.Points))
-	}
-	d, err := calibrate.FitDispersion(ord.Points, fopt)
-	if err != nil {
-		r.Error = fmt.Sprintf("%s: dispersion fit: %v", path, err)
+	// The photo is its own calibration photo: one photo's calibration.
+	_, res, err := combineCalibration([]selfID{s}, []imageResult{r}, []string{path}, cfg)
+	if r = res[0]; err != nil {
 		return r
 	}
-	cal.Dispersion = d
-	applyCalibration(&r, cal, s.lamp, cfg, ord.Matches)
 	if s.id.Lamp == "hydrogen" {
 		r.Warnings = append(r.Warnings, "calibrated on its own Balmer lines, so no Rydberg constant is fitted: calibrate with a mercury (or helium) photo of the same setup (--calibration-from)")
 	}
