@@ -445,12 +445,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 		// band's (two offset bands of unequal length): take the axis of the
 		// strongest band's own pixels, twice.
 		for iter := 0; iter < 2; iter++ {
-			best := guesses[0]
-			for _, g := range guesses {
-				if g.level > best.level {
-					best = g
-				}
-			}
+			best := guesses[strongestGuess(guesses)]
 			sn, cs := math.Sincos(ang * math.Pi / 180)
 			var own []point
 			for _, q := range pts {
@@ -470,12 +465,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 	}
 	if !all {
 		// Just the strongest band.
-		best := guesses[0]
-		for _, g := range guesses {
-			if g.level > best.level {
-				best = g
-			}
-		}
+		best := guesses[strongestGuess(guesses)]
 		best.reach = math.Inf(1)
 		guesses = []bandGuess{best}
 	}
@@ -485,13 +475,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 		// direction than one band's: settle the strongest band's angle
 		// first, then look for the bands again along it (the bands are
 		// parallel).
-		best := 0
-		for k, g := range guesses {
-			if g.level > guesses[best].level {
-				best = k
-			}
-		}
-		if s, err := refineBand(fr, tables, clipAt, opt, ang, guesses[best], bg, noise, gradient); err == nil {
+		if s, err := refineBand(fr, tables, clipAt, opt, ang, guesses[strongestGuess(guesses)], bg, noise, gradient); err == nil {
 			ang = s.AngleDeg
 			if g := crossBands(sp, ang, bg, sx, sy, true); len(g) > 0 {
 				guesses = g
@@ -518,9 +502,9 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 	// elevation η is constant: y ∝ tan η·sqrt(1 + x²/f²)).
 	sn, cs := math.Sincos(ang * math.Pi / 180)
 	vAxis := -float64(fr.w-1)/2*sn + float64(fr.h-1)/2*cs
-	ref := -1
+	ref := -1 // the last band off the axis that measured its own bow
 	for k, st := range strips {
-		if st != nil && st.bowMeasured && math.Abs(guesses[k].vc-vAxis) > 2*guesses[k].hh && (ref < 0 || st.BandHalfHeight > 0) {
+		if st != nil && st.bowMeasured && math.Abs(guesses[k].vc-vAxis) > 2*guesses[k].hh {
 			ref = k
 		}
 	}
@@ -548,6 +532,17 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 		return nil, fmt.Errorf("%w: no band could be straightened", ErrNoBand)
 	}
 	return out, nil
+}
+
+// strongestGuess is the index of the band with the brightest plateau.
+func strongestGuess(gs []bandGuess) int {
+	best := 0
+	for k, g := range gs {
+		if g.level > gs[best].level {
+			best = k
+		}
+	}
+	return best
 }
 
 // bandGuess is a band's place across the dispersion direction, from the
@@ -1277,20 +1272,16 @@ func lineCurvature(px []float32, stride, off, L, H, sd int) *lineShape {
 	}
 	// Lean and bow along the strip: weighted straight lines (constants
 	// for one line).
+	cols, ws := make([]float64, len(ms)), make([]float64, len(ms))
+	for k, q := range ms {
+		cols[k], ws[k] = q.col, q.w
+	}
 	along := func(val func(meas) float64) (float64, float64) {
-		var sw, sx, sy, sxx, sxy float64
-		for _, q := range ms {
-			sw += q.w
-			sx += q.w * q.col
-			sy += q.w * val(q)
-			sxx += q.w * q.col * q.col
-			sxy += q.w * q.col * val(q)
+		v := make([]float64, len(ms))
+		for k, q := range ms {
+			v[k] = val(q)
 		}
-		c0, c1 := sy/sw, 0.0
-		if d := sw*sxx - sx*sx; len(ms) >= 2 && d > 1e-9*sw*sxx {
-			c1 = (sw*sxy - sx*sy) / d
-			c0 = (sy - c1*sx) / sw
-		}
+		c0, c1, _ := lineFit(cols, v, ws)
 		return c0, c1
 	}
 	b0, b1 := along(func(q meas) float64 { return q.b })
@@ -1338,38 +1329,22 @@ func (l *lineShape) shift(i int, t float64) float64 {
 
 // quadCoef fits y = a + b·t + k·t² by weighted least squares and returns k.
 func quadFit(t, y, w []float64) (a, b, c float64, ok bool) {
-	var m [3][4]float64
+	m := [][]float64{make([]float64, 3), make([]float64, 3), make([]float64, 3)}
+	rhs := make([]float64, 3)
 	for i := range t {
 		row := [3]float64{1, t[i], t[i] * t[i]}
-		for a := 0; a < 3; a++ {
-			for b := 0; b < 3; b++ {
-				m[a][b] += w[i] * row[a] * row[b]
+		for j := 0; j < 3; j++ {
+			for k := 0; k < 3; k++ {
+				m[j][k] += w[i] * row[j] * row[k]
 			}
-			m[a][3] += w[i] * row[a] * y[i]
+			rhs[j] += w[i] * row[j] * y[i]
 		}
 	}
-	// Gauss-Jordan on the 3×3 normal equations.
-	for c := 0; c < 3; c++ {
-		p := c
-		for r := c + 1; r < 3; r++ {
-			if math.Abs(m[r][c]) > math.Abs(m[p][c]) {
-				p = r
-			}
-		}
-		m[c], m[p] = m[p], m[c]
-		if math.Abs(m[c][c]) < 1e-12 {
-			return 0, 0, 0, false
-		}
-		for r := 0; r < 3; r++ {
-			if r != c {
-				f := m[r][c] / m[c][c]
-				for k := c; k < 4; k++ {
-					m[r][k] -= f * m[c][k]
-				}
-			}
-		}
+	x, ok := solveSmall(m, rhs)
+	if !ok {
+		return 0, 0, 0, false
 	}
-	return m[0][3] / m[0][0], m[1][3] / m[1][1], m[2][3] / m[2][2], true
+	return x[0], x[1], x[2], true
 }
 
 // warp returns the strip, L×H pixels of ch float32 channels, whose pixel
@@ -1477,7 +1452,6 @@ func fitCentreLine(px []float32, stride, off, L, H int, prof []float64) centreFi
 			picked = append(picked, m)
 		}
 	}
-	var sw, sx, sy, sxx, sxy float64
 	var xs, cs, ws []float64
 	lo, hi := L, 0
 	vp := make([]float64, H)
@@ -1502,26 +1476,25 @@ func fitCentreLine(px []float32, stride, off, L, H int, prof []float64) centreFi
 		w := prof[m]
 		x := float64(m)
 		xs, cs, ws = append(xs, x), append(cs, c), append(ws, w)
-		sw += w
-		sx += w * x
-		sy += w * c
-		sxx += w * x * x
-		sxy += w * x * c
 		lo, hi = min(lo, m), max(hi, m)
 	}
-	if sw == 0 || hi-lo < L/5 {
+	if hi-lo < L/5 {
 		return centreFit{}
 	}
-	d := sw*sxx - sx*sx
-	if d <= 0 {
+	offset, slope, ok := lineFit(xs, cs, ws)
+	if !ok {
 		return centreFit{}
 	}
-	slope := (sw*sxy - sx*sy) / d
-	f := centreFit{slope: slope, offset: (sy - slope*sx) / sw, ok: math.Abs(slope) < 0.1}
+	f := centreFit{slope: slope, offset: offset, ok: math.Abs(slope) < 0.1}
 	// The slope's standard error from the centres' scatter about the line
 	// (weights are line strengths, not inverse variances: the sandwich
 	// form), so that a dim band's noisy centres do not steer the angle.
 	if n := len(xs); n >= 3 {
+		var sw, sx float64
+		for k := range xs {
+			sw += ws[k]
+			sx += ws[k] * xs[k]
+		}
 		xm := sx / sw
 		var rss, sxx2, sw2 float64
 		for k := range xs {
@@ -1614,7 +1587,8 @@ func remapBowed(src gocv.Mat, roi image.Rectangle, sn, cs, u0, v0 float64, L, H 
 	return dst, nil
 }
 
-// lineFit fits y = a + b·t by weighted least squares.
+// lineFit fits y = a + b·t by weighted least squares; with the t all but
+// equal, b is 0 and a the weighted mean.
 func lineFit(t, y, w []float64) (a, b float64, ok bool) {
 	var sw, st, sy, stt, sty float64
 	for k := range t {
@@ -1625,7 +1599,7 @@ func lineFit(t, y, w []float64) (a, b float64, ok bool) {
 		sty += w[k] * t[k] * y[k]
 	}
 	d := sw*stt - st*st
-	if sw == 0 || d <= 1e-12*sw*stt {
+	if sw == 0 || d <= 1e-9*sw*stt {
 		if sw == 0 {
 			return 0, 0, false
 		}

@@ -213,11 +213,15 @@ func flatten(p plane) float64 {
 				ata[j][k] = ata[k][j]
 			}
 		}
-		nc, ok := solve6(ata, atb)
+		rows := make([][]float64, 6)
+		for j := range rows {
+			rows[j] = ata[j][:]
+		}
+		nc, ok := solveSmall(rows, atb[:])
 		if !ok {
 			return 0
 		}
-		c = nc
+		copy(c[:], nc)
 		if iter > 0 {
 			sort.Float64s(res)
 			cut = 3 * 1.4826 * res[len(res)/2]
@@ -246,38 +250,41 @@ func flatten(p plane) float64 {
 	return rng
 }
 
-// solve6 solves the 6×6 normal equations a·x = b by Gaussian elimination
-// with partial pivoting (too small a system to bring in a linear-algebra
-// package for); false when a is singular.
-func solve6(a [6][6]float64, b [6]float64) ([6]float64, bool) {
-	const n = 6
+// solveSmall solves the small square system a·x = b (normal equations of
+// the few-parameter fits here) by Gaussian elimination with partial
+// pivoting (too small a system to bring in a linear-algebra package for);
+// false when a is singular. a and b are left unchanged.
+func solveSmall(a [][]float64, b []float64) ([]float64, bool) {
+	n := len(b)
+	m := make([][]float64, n)
+	for i := range m {
+		m[i] = append(append(make([]float64, 0, n+1), a[i]...), b[i])
+	}
 	for col := 0; col < n; col++ {
 		piv := col
 		for r := col + 1; r < n; r++ {
-			if math.Abs(a[r][col]) > math.Abs(a[piv][col]) {
+			if math.Abs(m[r][col]) > math.Abs(m[piv][col]) {
 				piv = r
 			}
 		}
-		if math.Abs(a[piv][col]) < 1e-12 {
-			return [6]float64{}, false
+		if math.Abs(m[piv][col]) < 1e-12 {
+			return nil, false
 		}
-		a[col], a[piv] = a[piv], a[col]
-		b[col], b[piv] = b[piv], b[col]
+		m[col], m[piv] = m[piv], m[col]
 		for r := col + 1; r < n; r++ {
-			f := a[r][col] / a[col][col]
-			for k := col; k < n; k++ {
-				a[r][k] -= f * a[col][k]
+			f := m[r][col] / m[col][col]
+			for k := col; k <= n; k++ {
+				m[r][k] -= f * m[col][k]
 			}
-			b[r] -= f * b[col]
 		}
 	}
-	var x [6]float64
+	x := make([]float64, n)
 	for r := n - 1; r >= 0; r-- {
-		s := b[r]
+		s := m[r][n]
 		for k := r + 1; k < n; k++ {
-			s -= a[r][k] * x[k]
+			s -= m[r][k] * x[k]
 		}
-		x[r] = s / a[r][r]
+		x[r] = s / m[r][r]
 	}
 	return x, true
 }
