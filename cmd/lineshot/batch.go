@@ -287,6 +287,15 @@ type bench struct {
 	Settings benchSettings
 }
 
+// darkPaths are the paths of the bench's dark frames (settings "dark:").
+func (b bench) darkPaths() []string {
+	var out []string
+	for _, d := range b.Settings.Dark {
+		out = append(out, filepath.Join(b.Dir, d))
+	}
+	return out
+}
+
 type failure struct {
 	File   string `json:"file"`
 	Reason string `json:"reason"`
@@ -546,11 +555,11 @@ func cacheName(path string) string {
 func (b *batchRun) process(path string, bn bench) (photoRecord, bool) {
 	rec := photoRecord{File: path, Options: b.optionsKey()}
 	cfg := b.cfg
-	for _, d := range bn.Settings.Dark {
+	cfg.dark = bn.darkPaths()
+	for k, dp := range cfg.dark {
 		// The bench's dark frames; a changed dark frame invalidates the
 		// cached measurements of the bench.
-		dp := filepath.Join(bn.Dir, d)
-		cfg.dark = append(cfg.dark, dp)
+		d := bn.Settings.Dark[k]
 		if st, err := os.Stat(dp); err == nil {
 			rec.Options += fmt.Sprintf(" dark=%s:%d:%d", d, st.Size(), st.ModTime().UnixNano())
 		} else {
@@ -634,9 +643,7 @@ func assembleBench(b bench, recs []photoRecord, cfg measureConfig) benchResult {
 	out := benchResult{Name: b.Name, Dir: displayName(b.Dir), Settings: b.Settings, Images: map[string]string{}, Profiles: map[string][]float32{}}
 	bcfg := cfg
 	bcfg.linesPerMM = b.Settings.LinesPerMM
-	for _, d := range b.Settings.Dark {
-		bcfg.dark = append(bcfg.dark, filepath.Join(b.Dir, d))
-	}
+	bcfg.dark = b.darkPaths()
 	pinnedCal := map[string]bool{}
 	for _, c := range b.Settings.Calibration {
 		pinnedCal[c] = true
