@@ -54,6 +54,26 @@ type Options struct {
 	Profile string
 }
 
+// withProfile returns o with its profile chosen when unset: luma for
+// compressed input (JPEG, video: chroma subsampled), the channel sum
+// otherwise (see Options.Profile).
+func (o Options) withProfile(compressed bool) Options {
+	if o.Profile == "" {
+		o.Profile = ProfileSum
+		if compressed {
+			o.Profile = ProfileLuma
+		}
+	}
+	return o
+}
+
+// Code values at and above which a pixel counts as clipped, for 8- and
+// 16-bit input (a little below full scale: JPEG rounding).
+const (
+	clipCode8  = 250
+	clipCode16 = 65000
+)
+
 // Profile choices.
 const (
 	ProfileLuma = "luma"
@@ -179,12 +199,7 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	if err != nil {
 		return nil, err
 	}
-	if opt.Profile == "" {
-		opt.Profile = ProfileSum
-		if format == "jpeg" {
-			opt.Profile = ProfileLuma
-		}
-	}
+	opt = opt.withProfile(format == "jpeg")
 	t0 := time.Now()
 	m := gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
 	defer m.Close()
@@ -388,9 +403,9 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 		return nil, err
 	}
 	nLevels := 256
-	clipAt := 250
+	clipAt := clipCode8
 	if fr.words16 != nil {
-		nLevels, clipAt = 65536, 65000
+		nLevels, clipAt = 65536, clipCode16
 	}
 	tables := tablesFor(nLevels, opt.Linear)
 	lut := tables.lut

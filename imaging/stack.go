@@ -75,14 +75,7 @@ func ExtractStack(st Stack, opt Options) (Strip, error) {
 		}
 		dark = &d
 	}
-	if opt.Profile == "" {
-		opt.Profile = ProfileSum
-		if light.compressed {
-			// Chroma is subsampled in JPEG and video: luma keeps the
-			// resolution (see Options.Profile).
-			opt.Profile = ProfileLuma
-		}
-	}
+	opt = opt.withProfile(light.compressed)
 	m, err := light.mat(dark, opt.Linear)
 	if err != nil {
 		return Strip{}, fmt.Errorf("%s: %w", st.Frames[0], err)
@@ -136,14 +129,14 @@ func accumulate(paths []string, maxVideo int, opt Options) (average, error) {
 		if fr.bytes8 != nil {
 			for i, v := range fr.bytes8 {
 				a.sum[i] += float32(257 * int(v))
-				if v >= 250 {
+				if v >= clipCode8 {
 					a.clipped[i/3] = true
 				}
 			}
 		} else {
 			for i, v := range fr.words16 {
 				a.sum[i] += float32(v)
-				if v >= 65000 {
+				if v >= clipCode16 {
 					a.clipped[i/3] = true
 				}
 			}
