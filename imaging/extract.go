@@ -35,8 +35,14 @@ type Options struct {
 	// Linear says the pixel values are already linear in intensity (raw
 	// conversions, scientific cameras); otherwise the sRGB curve is undone.
 	Linear bool
-	// KeepImage keeps the straightened band as an 8-bit image in Strip.Image.
+	// KeepImage keeps the straightened band as an 8-bit image in Strip.Image,
+	// for people to look at: it is warped from the decoded codes (cheap,
+	// a byte a sample), not from the linear values the profiles use.
 	KeepImage bool
+	// Channels straightens the linear R, G and B as well (Strip.Channels),
+	// for colour tests; without it only the profile's channel is, unless
+	// the band holds saturated pixels.
+	Channels bool
 	// ROI, when not empty, is the rectangle (original-image pixels) the band
 	// must lie in; everything outside is ignored when looking for it.
 	ROI image.Rectangle
@@ -92,7 +98,7 @@ type Strip struct {
 	Luma     []float64    // linearised luma 0.299R′+0.587G′+0.114B′ summed across the band, background removed
 	Sum      []float64    // linear R+G+B summed across the band, background removed
 	Channels [3][]float64 // linear R, G, B each
-	// Without Options.KeepImage only the profile's own channel is
+	// Without Options.Channels only the profile's own channel is
 	// straightened: Profile and one of Luma or Sum are set, Channels not.
 	Clipped []bool // positions whose band pixels hold a saturated value in some channel
 	// NoiseShape is how the background noise varies along the band,
@@ -102,7 +108,7 @@ type Strip struct {
 	NoiseShape []float64
 	// ChannelClipped is Clipped per linear channel (R, G, B), set with
 	// Channels. When the band holds saturated pixels, Channels are
-	// straightened even without Options.KeepImage, so that a line
+	// straightened even without Options.Channels, so that a line
 	// clipped in one channel can be measured in another.
 	ChannelClipped [3][]bool
 
@@ -301,15 +307,17 @@ func hasEndMarker(f *os.File, size int64, format string) bool {
 	return bytes.Equal(tail, want)
 }
 
-// frame holds the decoded image's pixels as Go slices, without copying.
+// frame holds the decoded image's pixels as Go slices, without copying,
+// and the Mat they live in.
 type frame struct {
 	w, h    int
 	bytes8  []uint8  // BGR, 8-bit
 	words16 []uint16 // BGR, 16-bit
+	mat     gocv.Mat
 }
 
 func newFrame(m gocv.Mat) (frame, error) {
-	f := frame{w: m.Cols(), h: m.Rows()}
+	f := frame{w: m.Cols(), h: m.Rows(), mat: m}
 	if f.w < 8 || f.h < 8 {
 		return f, fmt.Errorf("image of %dx%d pixels is too small", f.w, f.h)
 	}
@@ -617,7 +625,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 				return err
 			}
 			release()
-			rp, rgb, clip, lumaPlane = linearRegion(fr, roi, lut, clipAt, luma, opt.KeepImage)
+			rp, rgb, clip, lumaPlane = linearRegion(fr, roi, lut, clipAt, luma, opt.Channels)
 			rbg, _, _ = levels(rp)
 		}
 		return nil
@@ -661,10 +669,10 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 	if !ok || u1-u0 < 16 {
 		return Strip{}, fmt.Errorf("%w: the band's centre line leaves the frame", ErrNoBand)
 	}
-	// Without an image to keep, only the profile's own channel is warped:
-	// a quarter of the work and of the memory.
+	// Unless colour is asked for, only the profile's own channel is
+	// warped: a quarter of the work and of the memory.
 	pick := func() ([]float32, int) {
-		if opt.KeepImage {
+		if opt.Channels {
 			return rgb, 4
 		}
 		if opt.Profile != ProfileLuma {
@@ -673,7 +681,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		return lumaPlane, 1
 	}
 	data, nc := pick()
-	s, fit, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.KeepImage, opt.Profile, Bow{})
+	s, fit, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, Bow{})
 	if err != nil {
 		return Strip{}, err
 	}
@@ -707,7 +715,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 			return Strip{}, err
 		}
 		data, nc = pick()
-		sb, fb, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.KeepImage, opt.Profile, bow)
+		sb, fb, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow)
 		if err == nil {
 			s, fit = sb, fb
 			s.bowMeasured = own
@@ -721,8 +729,14 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		// in one channel can be measured in another.
 		f32Pool.put(rgb)
 		rgb = regionRGB(fr, roi, lut, lumaPlane)
-		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, false, opt.Profile, bow); err == nil {
+		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow); err == nil {
 			s, fit = s4, fit4
+		}
+	}
+	if opt.KeepImage {
+		half, sd := int(math.Ceil(hh)), int(math.Ceil(side))
+		if s.Image, err = displayStrip(fr, tables.lut, ang, u0, vc-float64(half+sd), len(s.Profile), 2*(half+sd)+1, bow); err != nil {
+			return Strip{}, err
 		}
 	}
 	if fit.ok {
@@ -920,7 +934,7 @@ func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma
 // dispersion (OpenCV warpAffine, bilinear, on linear values), subtracts a
 // per-column background taken from the rows beside the band, and sums the
 // band rows into profiles.
-func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, keep bool, profile string, bow Bow) (Strip, centreFit, error) {
+func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, profile string, bow Bow) (Strip, centreFit, error) {
 	w, h := roi.Dx(), roi.Dy()
 	L := int(math.Floor(u1-u0)) + 1
 	half := int(math.Ceil(hh))
@@ -1089,9 +1103,6 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 		s.Saturated = float64(nClip) / float64(nBand)
 	}
 	s.NoiseShape = noiseShape(spread)
-	if keep && nc == 4 {
-		s.Image = stripImage(px, L, H)
-	}
 	return s, fitCentreLine(px, nc, nc-1, L, H, s.Profile), nil
 }
 
@@ -1121,12 +1132,40 @@ func medianOf(v []float64) float64 {
 	return (v[n/2-1] + v[n/2]) / 2
 }
 
-// stripImage renders the straightened strip for display, sRGB-encoded and
-// scaled so its 99.9th percentile is white.
-func stripImage(px []float32, L, H int) *image.RGBA {
-	vals := make([]float64, 0, len(px)/7+1)
-	for i := 0; i < len(px); i += 7 {
-		vals = append(vals, float64(px[i]))
+// displayStrip warps the band from the decoded frame's own codes (OpenCV,
+// bilinear, 8 or 16 bits a sample) into an L×H strip for display, scaled
+// in linear light so that its 99.9th percentile is white, sRGB-encoded.
+// Display only: interpolating codes is not interpolating intensity.
+func displayStrip(fr frame, lut []float32, ang, u0, v0 float64, L, H int, bow Bow) (*image.RGBA, error) {
+	sn, cs := math.Sincos(ang * math.Pi / 180)
+	var dst gocv.Mat
+	var err error
+	if bow.zero() {
+		dst, err = warpAffine(fr.mat, image.Point{}, sn, cs, u0, v0, 1, L, H)
+	} else {
+		dst, err = remapBowed(fr.mat, image.Rectangle{}, sn, cs, u0, v0, L, H, bow)
+	}
+	if err != nil {
+		return nil, err
+	}
+	defer dst.Close()
+	code := func(i int) int { return 0 }
+	if b, err := dst.DataPtrUint8(); err == nil && dst.Type() == gocv.MatTypeCV8UC3 {
+		code = func(i int) int { return int(b[i]) }
+	} else if w, err := dst.DataPtrUint16(); err == nil && dst.Type() == gocv.MatTypeCV16UC3 {
+		code = func(i int) int { return int(w[i]) }
+	} else {
+		return nil, errors.New("straighten: unexpected display strip type")
+	}
+	// About 50 000 samples (a step not a multiple of 3 visits every
+	// channel) set the scale.
+	step := max(7, 3*L*H/50000|1)
+	if step%3 == 0 {
+		step += 2
+	}
+	var vals []float64
+	for i := 0; i < 3*L*H; i += step {
+		vals = append(vals, float64(lut[code(i)]))
 	}
 	sort.Float64s(vals)
 	top := math.Max(vals[int(0.999*float64(len(vals)-1))], 1e-6)
@@ -1143,22 +1182,14 @@ func stripImage(px []float32, L, H int) *image.RGBA {
 		tab[k] = uint8(v*255 + 0.5)
 	}
 	scale := float64(len(tab)-1) / top
-	enc := func(v float64) uint8 {
-		k := int(v * scale)
-		if k < 0 {
-			k = 0
-		} else if k >= len(tab) {
-			k = len(tab) - 1
-		}
-		return tab[k]
+	enc := func(c int) uint8 {
+		k := int(float64(lut[c]) * scale)
+		return tab[max(0, min(len(tab)-1, k))]
 	}
-	for j := 0; j < H; j++ {
-		for i := 0; i < L; i++ {
-			b := 4 * (j*L + i)
-			img.SetRGBA(i, j, color.RGBA{enc(float64(px[b])), enc(float64(px[b+1])), enc(float64(px[b+2])), 255})
-		}
+	for i := 0; i < L*H; i++ {
+		img.Pix[4*i], img.Pix[4*i+1], img.Pix[4*i+2], img.Pix[4*i+3] = enc(code(3*i+2)), enc(code(3*i+1)), enc(code(3*i)), 255
 	}
-	return img
+	return img, nil
 }
 
 // lumaLUT linearises a luma value given on the code scale (0..levels−1) by
@@ -1380,14 +1411,21 @@ func warp(data []float32, ch int, roi image.Rectangle, ang, u0, v0 float64, L, H
 	if !bow.zero() {
 		return remapBowed(src, roi, sn, cs, u0, v0, L, H, bow)
 	}
+	return warpAffine(src, roi.Min, sn, cs, u0, v0, 1, L, H)
+}
+
+// warpAffine samples src (bilinear) at strip column i, row j from the
+// original-image point (u0 + i, v0 + vStep·j) in band coordinates; org is
+// src's top-left pixel in the original image.
+func warpAffine(src gocv.Mat, org image.Point, sn, cs, u0, v0, vStep float64, L, H int) (gocv.Mat, error) {
 	M := gocv.NewMatWithSize(2, 3, gocv.MatTypeCV64F)
 	defer M.Close()
 	M.SetDoubleAt(0, 0, cs)
-	M.SetDoubleAt(0, 1, -sn)
-	M.SetDoubleAt(0, 2, u0*cs-v0*sn-float64(roi.Min.X))
+	M.SetDoubleAt(0, 1, -sn*vStep)
+	M.SetDoubleAt(0, 2, u0*cs-v0*sn-float64(org.X))
 	M.SetDoubleAt(1, 0, sn)
-	M.SetDoubleAt(1, 1, cs)
-	M.SetDoubleAt(1, 2, u0*sn+v0*cs-float64(roi.Min.Y))
+	M.SetDoubleAt(1, 1, cs*vStep)
+	M.SetDoubleAt(1, 2, u0*sn+v0*cs-float64(org.Y))
 	dst := gocv.NewMat()
 	gocv.WarpAffineWithParams(src, &dst, M, image.Pt(L, H), gocv.InterpolationLinear|gocv.WarpInverseMap, gocv.BorderConstant, color.RGBA{})
 	if dst.Empty() || dst.Cols() != L || dst.Rows() != H {

@@ -735,7 +735,7 @@ func oneYellowLine(m measured, path string, cfg measureConfig, single bool) bool
 			return false
 		}
 		o := cfg.imageOpts
-		o.KeepImage = true
+		o.Channels = true
 		var err error
 		if s, err = imaging.Extract(path, o); err != nil || s.Channels[0] == nil {
 			return false
