@@ -583,7 +583,6 @@ type bandGuess struct {
 // refineBand measures one band on the full frame and straightens it.
 func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float64, g bandGuess, bg, noise, gradient float64) (Strip, error) {
 	vc, hh := g.vc, g.hh
-	lut := tables.lut
 	t1 := time.Now()
 	// 2. On the full frame, in a region around the band: measure the band's
 	// centre and height, straighten it with OpenCV, measure the centre
@@ -596,19 +595,17 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		side = math.Max(4, lim)
 	}
 	var roi image.Rectangle
-	var rp plane
-	var rgb, lumaPlane []float32
+	var rp plane // the profile's channel
+	var rgb []float32
 	var clip []uint8
 	// The region's buffers go back to the pool when done with (and before
 	// a larger region replaces them).
 	release := func() {
 		f32Pool.put(rp.pix)
 		f32Pool.put(rgb)
-		f32Pool.put(lumaPlane)
 		u8Pool.put(clip)
 	}
 	defer func() { release() }()
-	luma := tables.luma
 	var rbg float64
 	bowReach := 0.0 // room the region needs for a bowed band
 	cut := false
@@ -625,11 +622,27 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 				return err
 			}
 			release()
-			rp, rgb, clip, lumaPlane = linearRegion(fr, roi, lut, clipAt, luma, opt.Channels)
+			rp, rgb, clip = linearRegion(fr, roi, tables, clipAt, opt.Profile, opt.Channels)
 			rbg, _, _ = levels(rp)
 		}
 		return nil
 	}
+	// Unless colour is asked for, only the profile's own channel is
+	// warped: a quarter of the work and of the memory.
+	pick := func() ([]float32, int) {
+		if opt.Channels {
+			return rgb, 4
+		}
+		return rp.pix, 1
+	}
+	// The first round measures the centre line on the profile channel's
+	// core alone; later rounds straighten in full, so that the round that
+	// finds the band flat is also the final straightening (the usual case:
+	// one correction, then flat).
+	var s Strip
+	var fit centreFit
+	var u0, u1 float64
+	done := false
 	for round := 0; round < 4; round++ {
 		if err := prepare(); err != nil {
 			return Strip{}, err
@@ -640,11 +653,21 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		} else {
 			cut = true
 		}
-		u0, u1, ok := chord(fr.w, fr.h, ang, vc)
+		var ok bool
+		u0, u1, ok = chord(fr.w, fr.h, ang, vc)
 		if !ok || u1-u0 < 16 {
 			return Strip{}, fmt.Errorf("%w: the band's centre line leaves the frame", ErrNoBand)
 		}
-		fit := centreOnly(lumaPlane, roi, ang, vc, hh, side, u0, u1)
+		if round == 0 {
+			fit = centreOnly(rp.pix, roi, ang, vc, hh, side, u0, u1)
+		} else {
+			data, nc := pick()
+			var err error
+			if s, fit, err = straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, Bow{}); err != nil {
+				return Strip{}, err
+			}
+			done = true
+		}
 		// Flat enough when the centre line rises less than 0.1 px from one
 		// end of the band to the other.
 		// …or, after the first correction, when the slope is no more than
@@ -653,6 +676,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		if !fit.ok || math.Abs(fit.slope)*(u1-u0) < 0.1 || (round > 0 && math.Abs(fit.slope) < 2*fit.slopeErr) {
 			break
 		}
+		done = false
 		b := fit.slope
 		v0 := vc - float64(int(math.Ceil(hh))+int(math.Ceil(side)))
 		if !opt.FixAngle {
@@ -662,28 +686,20 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		}
 		vc = (v0 + fit.offset - b*u0) / math.Sqrt(1+b*b)
 	}
-	if err := prepare(); err != nil {
-		return Strip{}, err
-	}
-	u0, u1, ok := chord(fr.w, fr.h, ang, vc)
-	if !ok || u1-u0 < 16 {
-		return Strip{}, fmt.Errorf("%w: the band's centre line leaves the frame", ErrNoBand)
-	}
-	// Unless colour is asked for, only the profile's own channel is
-	// warped: a quarter of the work and of the memory.
-	pick := func() ([]float32, int) {
-		if opt.Channels {
-			return rgb, 4
+	if !done {
+		if err := prepare(); err != nil {
+			return Strip{}, err
 		}
-		if opt.Profile != ProfileLuma {
-			return rp.pix, 1
+		var ok bool
+		u0, u1, ok = chord(fr.w, fr.h, ang, vc)
+		if !ok || u1-u0 < 16 {
+			return Strip{}, fmt.Errorf("%w: the band's centre line leaves the frame", ErrNoBand)
 		}
-		return lumaPlane, 1
-	}
-	data, nc := pick()
-	s, fit, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, Bow{})
-	if err != nil {
-		return Strip{}, err
+		data, nc := pick()
+		var err error
+		if s, fit, err = straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, Bow{}); err != nil {
+			return Strip{}, err
+		}
 	}
 	// A band away from the optical axis (a second lamp's slit image above
 	// the first) or seen through a lens with barrel or pincushion
@@ -714,7 +730,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		if err := prepare(); err != nil {
 			return Strip{}, err
 		}
-		data, nc = pick()
+		data, nc := pick()
 		sb, fb, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow)
 		if err == nil {
 			s, fit = sb, fb
@@ -723,18 +739,19 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 			bow = Bow{}
 		}
 	}
-	if nc == 1 && s.Saturated > 0 {
+	if !opt.Channels && s.Saturated > 0 {
 		// Saturated pixels in the band: straighten every channel after
 		// all (the region once more with colour), so that a line clipped
 		// in one channel can be measured in another.
 		f32Pool.put(rgb)
-		rgb = regionRGB(fr, roi, lut, lumaPlane)
+		rgb = regionRGB(fr, roi, tables)
 		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow); err == nil {
 			s, fit = s4, fit4
 		}
 	}
 	if opt.KeepImage {
 		half, sd := int(math.Ceil(hh)), int(math.Ceil(side))
+		var err error
 		if s.Image, err = displayStrip(fr, tables.lut, ang, u0, vc-float64(half+sd), len(s.Profile), 2*(half+sd)+1, bow); err != nil {
 			return Strip{}, err
 		}
@@ -869,51 +886,59 @@ func (f frame) bgr(i int) (b, g, r int) {
 	return int(f.words16[i]), int(f.words16[i+1]), int(f.words16[i+2])
 }
 
-// regionRGB returns the region's linear R, G, B and the given luma plane
-// interleaved, as linearRegion does with all set.
-func regionRGB(fr frame, roi image.Rectangle, lut []float32, lp []float32) []float32 {
+// regionRGB returns the region's linear R, G, B and linearised luma
+// interleaved (four values a pixel).
+func regionRGB(fr frame, roi image.Rectangle, tables codeTables) []float32 {
 	w, h := roi.Dx(), roi.Dy()
+	lut := tables.lut
 	rgb := f32Pool.get(4 * w * h)
 	for y := 0; y < h; y++ {
 		for x := 0; x < w; x++ {
 			src := 3 * ((y+roi.Min.Y)*fr.w + x + roi.Min.X)
 			dst := y*w + x
 			b, g, r := fr.bgr(src)
-			rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2], rgb[4*dst+3] = lut[r], lut[g], lut[b], lp[dst]
+			rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2], rgb[4*dst+3] = lut[r], lut[g], lut[b], tables.luma.of(r, g, b)
 		}
 	}
 	return rgb
 }
 
-// linearRegion copies the region of the frame into its channel sum, its
-// linearised luma, a per-pixel clip mask and, when all is set, linear
-// float32 R, G, B and luma interleaved (four values a pixel).
-func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma lumaLUT, all bool) (plane, []float32, []uint8, []float32) {
+// of is the linearised luma of code values r, g, b.
+func (t lumaLUT) of(r, g, b int) float32 {
+	if t.exact != nil {
+		return t.exact[299*r+587*g+114*b]
+	}
+	return t.at(0.299*float64(r) + 0.587*float64(g) + 0.114*float64(b))
+}
+
+// linearRegion copies the region of the frame into the profile's plane
+// (linearised luma, or the linear channel sum) and a per-pixel clip mask;
+// with all set, also into linear R, G, B and luma interleaved (four values
+// a pixel), for the colour channels.
+func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, profile string, all bool) (plane, []float32, []uint8) {
 	w, h := roi.Dx(), roi.Dy()
+	lut := tables.lut
 	// Every element is written below: pooled buffers need no clearing.
-	sum := plane{w: w, h: h, pix: f32Pool.get(w * h)}
-	lp := f32Pool.get(w * h)
+	pp := plane{w: w, h: h, pix: f32Pool.get(w * h)}
 	var rgb []float32
 	if all {
 		rgb = f32Pool.get(4 * w * h)
 	}
+	sum := profile != ProfileLuma
 	clip := u8Pool.get(w * h) // bit 0: R clipped, bit 1: G, bit 2: B
 	for y := 0; y < h; y++ {
 		for x := 0; x < w; x++ {
 			src := 3 * ((y+roi.Min.Y)*fr.w + x + roi.Min.X)
 			dst := y*w + x
 			b, g, r := fr.bgr(src)
-			var l float32
-			if luma.exact != nil {
-				l = luma.exact[299*r+587*g+114*b]
+			if sum {
+				pp.pix[dst] = lut[r] + lut[g] + lut[b]
 			} else {
-				l = luma.at(0.299*float64(r) + 0.587*float64(g) + 0.114*float64(b))
+				pp.pix[dst] = tables.luma.of(r, g, b)
 			}
-			lp[dst] = l
 			if all {
-				rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2], rgb[4*dst+3] = lut[r], lut[g], lut[b], l
+				rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2], rgb[4*dst+3] = lut[r], lut[g], lut[b], tables.luma.of(r, g, b)
 			}
-			sum.pix[dst] = lut[r] + lut[g] + lut[b]
 			var cb uint8
 			if r >= clipAt {
 				cb |= 1
@@ -927,13 +952,19 @@ func linearRegion(fr frame, roi image.Rectangle, lut []float32, clipAt int, luma
 			clip[dst] = cb
 		}
 	}
-	return sum, rgb, clip, lp
+	return pp, rgb, clip
 }
 
 // straighten warps the band into a strip whose columns run along the
 // dispersion (OpenCV warpAffine, bilinear, on linear values), subtracts a
 // per-column background taken from the rows beside the band, and sums the
 // band rows into profiles.
+//
+// The strip's rows are numbered j = 0 … H−1 across the band and its sides
+// (H = 2·(half + sd) + 1), and the centre fit it returns is in those rows;
+// but only the band rows with a margin (the core) and the side rows the
+// background is taken from are warped: a third less work on a typical
+// band than warping every row.
 func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, profile string, bow Bow) (Strip, centreFit, error) {
 	w, h := roi.Dx(), roi.Dy()
 	L := int(math.Floor(u1-u0)) + 1
@@ -942,24 +973,44 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	H := 2*(half+sd) + 1
 	v0 := vc - float64(half+sd)
 	sn, cs := math.Sincos(ang * math.Pi / 180)
-	dst, err := warp(rgb, nc, roi, ang, u0, v0, L, H, bow)
+	m := coreMargin(half, sd)
+	Hc := 2*(half+m) + 1
+	off := sd - m // strip row of core row 0
+	core, err := warp(rgb, nc, roi, ang, u0, v0+float64(off), 1, L, Hc, bow)
 	if err != nil {
 		return Strip{}, centreFit{}, err
 	}
-	defer dst.Close()
-	px, err := dst.DataPtrFloat32()
+	defer core.Close()
+	px, err := core.DataPtrFloat32()
 	if err != nil {
 		return Strip{}, centreFit{}, fmt.Errorf("straighten: %w", err)
+	}
+	// At most 12 evenly spaced rows on each side feed the per-column
+	// background median: rows j = k·every from the top edge and from the
+	// bottom edge, k < nSide, one warp each side.
+	every := max(1, sd/12)
+	nSide := (sd + every - 1) / every
+	var sides [2][]float32
+	if nSide > 0 {
+		for k, st := range [2]struct{ v, step float64 }{{v0, float64(every)}, {v0 + float64(H-1), -float64(every)}} {
+			m, err := warp(rgb, nc, roi, ang, u0, st.v, st.step, L, nSide, bow)
+			if err != nil {
+				return Strip{}, centreFit{}, err
+			}
+			defer m.Close()
+			if sides[k], err = m.DataPtrFloat32(); err != nil {
+				return Strip{}, centreFit{}, fmt.Errorf("straighten: %w", err)
+			}
+		}
 	}
 	s := Strip{AngleDeg: ang, BandHalfHeight: hh, Bow: bow}
 	s.Origin = [2]float64{u0*cs - vc*sn, u0*sn + vc*cs}
 	for k, c := range [][2]float64{{u0, vc - hh}, {u1, vc - hh}, {u1, vc + hh}, {u0, vc + hh}} {
 		s.Band[k] = [2]float64{c[0]*cs - c[1]*sn, c[0]*sn + c[1]*cs}
 	}
-	// Row by row (the strip's memory order): band rows add into per-column
-	// sums; at most 12 evenly spaced rows on each side feed the per-column
-	// background median. A strip pixel whose source lies outside the frame
-	// counts for nothing.
+	// Row by row (the strips' memory order): band rows add into per-column
+	// sums, side rows into the background samples. A strip pixel whose
+	// source lies outside the frame counts for nothing.
 	acc := make([][]float64, nc) // R, G, B, luma; or the profile's one channel
 	for c := range acc {
 		acc[c] = make([]float64, L)
@@ -975,7 +1026,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	// Curved line images (conical diffraction, short focal lengths) are
 	// followed: band row j is sampled k(i)·(j − jc)² columns along, so each
 	// line's light adds up at its centre-row position instead of smearing.
-	curv := lineCurvature(px, nc, nc-1, L, H, sd)
+	curv := lineCurvature(px, nc, nc-1, L, Hc, m)
 	s.CurvaturePX = 0
 	if curv != nil {
 		t := float64(half)
@@ -987,14 +1038,22 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 		}
 	}
 	jc := float64(H-1) / 2
-	every := max(1, sd/12)
-	nbg := 2 * ((sd + every - 1) / every)
+	nbg := 2 * nSide
 	bg := make([]float32, nc*L*nbg) // column-major: bg[(c*L+i)*nbg + k]
 	nb := make([]int, L)
 	for j := 0; j < H; j++ {
 		inBand := j >= sd && j <= H-1-sd
 		if !inBand && (min(j, H-1-j)%every != 0) {
 			continue
+		}
+		// Where row j's samples are: a core row, or row k of a side strip.
+		src, base0 := px, (j-off)*L
+		if !inBand {
+			if j < sd {
+				src, base0 = sides[0], (j/every)*L
+			} else {
+				src, base0 = sides[1], ((H-1-j)/every)*L
+			}
 		}
 		fy := v0 + float64(j)
 		// Source x(i) = ax + i·cs, y(i) = ay + i·sn: the columns whose
@@ -1017,7 +1076,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 			if x < 0 || y < 0 || x > float64(w-1) || y > float64(h-1) {
 				continue // rounding at the range's ends
 			}
-			base := nc * (j*L + i)
+			base := nc * (base0 + i)
 			if inBand {
 				nIn[i]++
 				nBand++
@@ -1038,7 +1097,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 					i0 := int(math.Floor(xi))
 					if i0 >= 0 && i0+1 < L {
 						f := float32(xi - float64(i0))
-						b0, b1 := nc*(j*L+i0), nc*(j*L+i0+1)
+						b0, b1 := nc*(base0+i0), nc*(base0+i0+1)
 						for c := 0; c < nc; c++ {
 							acc[c][i] += float64(px[b0+c]*(1-f) + px[b1+c]*f)
 						}
@@ -1050,7 +1109,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 				}
 			} else if nb[i] < nbg {
 				for c := 0; c < nc; c++ {
-					bg[(c*L+i)*nbg+nb[i]] = px[base+c]
+					bg[(c*L+i)*nbg+nb[i]] = src[base+c]
 				}
 				nb[i]++
 			}
@@ -1103,7 +1162,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 		s.Saturated = float64(nClip) / float64(nBand)
 	}
 	s.NoiseShape = noiseShape(spread)
-	return s, fitCentreLine(px, nc, nc-1, L, H, s.Profile), nil
+	return s, fitCentreLine(px, nc, nc-1, L, Hc, s.Profile).shifted(float64(off)), nil
 }
 
 // colRange returns the columns i in [0, L) with 0 ≤ a + i·d ≤ lim.
@@ -1143,7 +1202,7 @@ func displayStrip(fr frame, lut []float32, ang, u0, v0 float64, L, H int, bow Bo
 	if bow.zero() {
 		dst, err = warpAffine(fr.mat, image.Point{}, sn, cs, u0, v0, 1, L, H)
 	} else {
-		dst, err = remapBowed(fr.mat, image.Rectangle{}, sn, cs, u0, v0, L, H, bow)
+		dst, err = remapBowed(fr.mat, image.Rectangle{}, sn, cs, u0, v0, 1, L, H, bow)
 	}
 	if err != nil {
 		return nil, err
@@ -1396,7 +1455,7 @@ func quadFit(t, y, w []float64) (a, b, c float64, ok bool) {
 // warp returns the strip, L×H pixels of ch float32 channels, whose pixel
 // (i, j) samples the region's data at frame point (u0+i)·e_u + (v0+j)·e_v
 // (OpenCV warpAffine, bilinear, zero outside). The caller closes it.
-func warp(data []float32, ch int, roi image.Rectangle, ang, u0, v0 float64, L, H int, bow Bow) (gocv.Mat, error) {
+func warp(data []float32, ch int, roi image.Rectangle, ang, u0, v0, vStep float64, L, H int, bow Bow) (gocv.Mat, error) {
 	w, h := roi.Dx(), roi.Dy()
 	types := map[int]gocv.MatType{1: gocv.MatTypeCV32FC1, 4: gocv.MatTypeCV32FC4}
 	if len(data) != ch*w*h || types[ch] == 0 || L < 1 || H < 1 {
@@ -1409,9 +1468,9 @@ func warp(data []float32, ch int, roi image.Rectangle, ang, u0, v0 float64, L, H
 	defer src.Close()
 	sn, cs := math.Sincos(ang * math.Pi / 180)
 	if !bow.zero() {
-		return remapBowed(src, roi, sn, cs, u0, v0, L, H, bow)
+		return remapBowed(src, roi, sn, cs, u0, v0, vStep, L, H, bow)
 	}
-	return warpAffine(src, roi.Min, sn, cs, u0, v0, 1, L, H)
+	return warpAffine(src, roi.Min, sn, cs, u0, v0, vStep, L, H)
 }
 
 // warpAffine samples src (bilinear) at strip column i, row j from the
@@ -1435,14 +1494,16 @@ func warpAffine(src gocv.Mat, org image.Point, sn, cs, u0, v0, vStep float64, L,
 	return dst, nil
 }
 
-// centreOnly straightens only the luma of the band and measures its
-// centre line: the cheap pass that settles the geometry before the full
-// straightening.
+// centreOnly straightens only the profile channel of the band's core
+// (its rows and a margin) and measures its centre line: the cheap pass
+// that settles the geometry before the full straightening. Rows are
+// numbered as straighten numbers them.
 func centreOnly(luma []float32, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64) centreFit {
 	L := int(math.Floor(u1-u0)) + 1
 	half, sd := int(math.Ceil(hh)), int(math.Ceil(side))
-	H := 2*(half+sd) + 1
-	dst, err := warp(luma, 1, roi, ang, u0, vc-float64(half+sd), L, H, Bow{})
+	m := coreMargin(half, sd)
+	H := 2*(half+m) + 1
+	dst, err := warp(luma, 1, roi, ang, u0, vc-float64(half+m), 1, L, H, Bow{})
 	if err != nil {
 		return centreFit{}
 	}
@@ -1452,15 +1513,34 @@ func centreOnly(luma []float32, roi image.Rectangle, ang, vc, hh, side, u0, u1 f
 		return centreFit{}
 	}
 	prof := make([]float64, L)
-	for j := sd; j <= H-1-sd; j++ {
+	for j := m; j <= H-1-m; j++ {
 		for i := 0; i < L; i++ {
 			prof[i] += float64(px[j*L+i])
 		}
 	}
 	for i := 0; i < L; i++ {
-		prof[i] -= float64(H-2*sd) * float64(px[i]+px[(H-1)*L+i]) / 2
+		prof[i] -= float64(H-2*m) * float64(px[i]+px[(H-1)*L+i]) / 2
 	}
-	return fitCentreLine(px, 1, 0, L, H, prof)
+	return fitCentreLine(px, 1, 0, L, H, prof).shifted(float64(sd - m))
+}
+
+// coreMargin is how many rows beyond the band's half-height the centre
+// line is measured over: enough for a blurred band's edges to fall to
+// the background, far fewer than the side rows the background comes from.
+func coreMargin(half, sd int) int {
+	return min(sd, 6+half/8)
+}
+
+// shifted returns f with its rows moved down by d.
+func (f centreFit) shifted(d float64) centreFit {
+	f.offset += d
+	f.q0 += d
+	pts := make([][3]float64, len(f.pts))
+	for k, q := range f.pts {
+		pts[k] = [3]float64{q[0], q[1] + d, q[2]}
+	}
+	f.pts = pts
+	return f
 }
 
 // centreFit is a straight line j = offset + slope·i through the vertical
@@ -1612,9 +1692,9 @@ func (sp *slicePool[T]) put(s []T) {
 }
 
 // remapBowed samples the strip along a bowed band: strip pixel (i, j) lies
-// at u = u0 + i, v = v0 + j + bow(i) across the band (OpenCV's remap with
+// at u = u0 + i, v = v0 + vStep·j + bow(i) across the band (OpenCV's remap with
 // bilinear interpolation, as the straight warp uses).
-func remapBowed(src gocv.Mat, roi image.Rectangle, sn, cs, u0, v0 float64, L, H int, bow Bow) (gocv.Mat, error) {
+func remapBowed(src gocv.Mat, roi image.Rectangle, sn, cs, u0, v0, vStep float64, L, H int, bow Bow) (gocv.Mat, error) {
 	mx := gocv.NewMatWithSize(H, L, gocv.MatTypeCV32FC1)
 	defer mx.Close()
 	my := gocv.NewMatWithSize(H, L, gocv.MatTypeCV32FC1)
@@ -1626,7 +1706,7 @@ func remapBowed(src gocv.Mat, roi image.Rectangle, sn, cs, u0, v0 float64, L, H 
 	}
 	for j := 0; j < H; j++ {
 		for i := 0; i < L; i++ {
-			u, v := u0+float64(i), v0+float64(j)+bow.at(float64(i))
+			u, v := u0+float64(i), v0+vStep*float64(j)+bow.at(float64(i))
 			px[j*L+i] = float32(u*cs - v*sn - float64(roi.Min.X))
 			py[j*L+i] = float32(u*sn + v*cs - float64(roi.Min.Y))
 		}
