@@ -3,6 +3,8 @@ package imaging
 import (
 	"math"
 	"sort"
+
+	"lineshot/peaks"
 )
 
 // plane is a single-channel image of linear intensity.
@@ -31,13 +33,11 @@ func levels(p plane) (med, sigma, peak float64) {
 		}
 	}
 	peak = float64(top)
-	sort.Float64s(s)
-	med = s[len(s)/2]
+	med = peaks.Median(s)
 	for i := range s {
 		s[i] = math.Abs(s[i] - med)
 	}
-	sort.Float64s(s)
-	return med, 1.4826 * s[len(s)/2], peak
+	return med, 1.4826 * peaks.Median(s), peak
 }
 
 // brightPoints returns the pixels of p brighter than thr, weighted by their
@@ -223,8 +223,7 @@ func flatten(p plane) float64 {
 		}
 		copy(c[:], nc)
 		if iter > 0 {
-			sort.Float64s(res)
-			cut = 3 * 1.4826 * res[len(res)/2]
+			cut = 3 * 1.4826 * peaks.Median(res)
 		}
 	}
 	// The surface's range and median level over the grid.

@@ -89,10 +89,12 @@ func LevelNoise(y []float64) float64 {
 	return 1.4826 * median(d)
 }
 
-// median returns the median of v (the mean of the middle two for an even
-// count), leaving v unchanged. It selects instead of sorting (O(n) on
-// average): medians are taken several times per profile, and sorting was
-// half of Find's time.
+// Median returns the median of v (the mean of the middle two for an even
+// count; NaN for none), leaving v unchanged. It selects instead of sorting
+// (O(n) on average): medians are taken several times per profile, and
+// sorting was half of Find's time.
+func Median(v []float64) float64 { return median(v) }
+
 func median(v []float64) float64 {
 	s := append([]float64(nil), v...)
 	n := len(s)

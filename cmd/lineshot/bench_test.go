@@ -40,7 +40,7 @@ func BenchmarkMeasure(b *testing.B) {
 	}{{"phone12MP", 4032, 3024}, {"webcam1080p", 1920, 1080}} {
 		b.Run(s.name, func(b *testing.B) {
 			p := benchFile(b, "mercury", s.w, s.h, 1)
-			var dec, all, pk, id time.Duration
+			var dec, all, pk, id, loc, str time.Duration
 			b.ResetTimer()
 			for i := 0; i < b.N; i++ {
 				t0 := time.Now()
@@ -62,9 +62,13 @@ func BenchmarkMeasure(b *testing.B) {
 				all += t3.Sub(t1)
 				pk += t2.Sub(t1) - m.strip.Timing.Decode - m.strip.Timing.Locate - m.strip.Timing.Straighten
 				id += t3.Sub(t2)
+				loc += m.strip.Timing.Locate
+				str += m.strip.Timing.Straighten
 			}
 			n := float64(b.N)
 			b.ReportMetric(float64(dec.Milliseconds())/n, "decode-ms")
+			b.ReportMetric(float64(loc.Microseconds())/n/1000, "locate-ms")
+			b.ReportMetric(float64(str.Microseconds())/n/1000, "straighten-ms")
 			b.ReportMetric(float64(pk.Microseconds())/n/1000, "peaks-ms")
 			b.ReportMetric(float64(id.Microseconds())/n/1000, "identify+fit-ms")
 			b.ReportMetric(float64(all)/float64(dec), "measure/decode")
