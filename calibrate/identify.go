@@ -1,10 +1,14 @@
 package calibrate
 
 import (
+	"cmp"
 	"errors"
 	"fmt"
 	"math"
+	"runtime"
 	"sort"
+
+	"golang.org/x/sync/errgroup"
 )
 
 // ErrNoMatch is returned when no assignment of peaks to reference lines is
@@ -51,6 +55,9 @@ type IdentifyOptions struct {
 	// TolPX is the match tolerance of the first, coarse pass; 0 means
 	// max(3 px, 1% of the span of the peaks).
 	TolPX float64
+	// Workers is how many lamps Classify tries at once; 0 means one per
+	// CPU. A batch measuring a photo per CPU sets 1.
+	Workers int
 }
 
 // Identify assigns peaks to the lines of lamp with no hints. It tries every
@@ -220,35 +227,57 @@ func identify(peaks []Peak, lamp Lamp, opt IdentifyOptions) (Identification, err
 // Classify identifies the peaks against each lamp and returns the
 // identifications, best score first. Lamps that match nothing are left out.
 func Classify(peaks []Peak, lamps []Lamp, opt IdentifyOptions) []Identification {
+	// Each lamp is tried on its own (concurrently, up to opt.Workers);
+	// the order of the result does not depend on which finished first.
+	ids := make([]*Identification, len(lamps))
+	var g errgroup.Group
+	g.SetLimit(max(1, cmp.Or(opt.Workers, runtime.GOMAXPROCS(0))))
+	for k, l := range lamps {
+		g.Go(func() error {
+			if id, ok := classifyOne(peaks, l, opt); ok {
+				ids[k] = &id
+			}
+			return nil
+		})
+	}
+	g.Wait()
 	var out []Identification
-	for _, l := range lamps {
-		id, err := Identify(peaks, l, opt)
-		if err != nil {
-			continue
+	for _, id := range ids {
+		if id != nil {
+			out = append(out, *id)
 		}
-		// A photo with the zero order or both first orders: the lines the
-		// orders explain count too (the score's share of the photo's peak
-		// height), or a lamp seen on both sides would lose to whichever
-		// lamp's pattern the mirrored lines happen to fit.
-		if os := FindOrders(peaks, id, l, FitOptions{}); os.Signed() {
-			var base, with float64
-			for _, mt := range id.Matches {
-				base += peaks[mt.Peak].Height
-			}
-			for _, mt := range os.Matches { // the identification's and every other order's
-				with += peaks[mt.Peak].Height
-			}
-			if os.Zero >= 0 {
-				with += peaks[os.Zero].Height
-			}
-			if base > 0 {
-				id.Score *= with / base
-			}
-		}
-		out = append(out, id)
 	}
 	sort.SliceStable(out, func(a, b int) bool { return out[a].Score > out[b].Score })
 	return out
+}
+
+// classifyOne identifies lamp l and scores it, the lines its other
+// orders explain included.
+func classifyOne(peaks []Peak, l Lamp, opt IdentifyOptions) (Identification, bool) {
+	id, err := Identify(peaks, l, opt)
+	if err != nil {
+		return Identification{}, false
+	}
+	// A photo with the zero order or both first orders: the lines the
+	// orders explain count too (the score's share of the photo's peak
+	// height), or a lamp seen on both sides would lose to whichever
+	// lamp's pattern the mirrored lines happen to fit.
+	if os := FindOrders(peaks, id, l, FitOptions{}); os.Signed() {
+		var base, with float64
+		for _, mt := range id.Matches {
+			base += peaks[mt.Peak].Height
+		}
+		for _, mt := range os.Matches { // the identification's and every other order's
+			with += peaks[mt.Peak].Height
+		}
+		if os.Zero >= 0 {
+			with += peaks[os.Zero].Height
+		}
+		if base > 0 {
+			id.Score *= with / base
+		}
+	}
+	return id, true
 }
 
 // Assign matches peaks whose calibrated wavelengths are known to the nearest

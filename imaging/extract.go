@@ -11,9 +11,11 @@ import (
 	"io"
 	"math"
 	"os"
+	"runtime"
 	"slices"
 	"sort"
 	"sync"
+	"sync/atomic"
 	"time"
 	"unsafe"
 
@@ -40,6 +42,10 @@ type Options struct {
 	// for people to look at: it is warped from the decoded codes (cheap,
 	// a byte a sample), not from the linear values the profiles use.
 	KeepImage bool
+	// Workers is how many goroutines share the work on one photo (the
+	// region's linearisation, the straightened strip's columns); 0 means
+	// one per CPU. A batch that measures a photo per CPU sets 1.
+	Workers int
 	// Channels straightens the linear R, G and B as well (Strip.Channels),
 	// for colour tests; without it only the profile's channel is, unless
 	// the band holds saturated pixels.
@@ -209,9 +215,16 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	opt = opt.withProfile(format == "jpeg")
 	t0 := time.Now()
 	m := gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
-	defer m.Close()
 	if m.Empty() {
+		m.Close()
 		return nil, fmt.Errorf("%s: not an image OpenCV can decode", path)
+	}
+	// Handing a 12 MP frame's memory back takes several milliseconds;
+	// with a core to spare it is done beside the work that follows.
+	if opt.workers() > 1 {
+		defer func() { go m.Close() }()
+	} else {
+		defer m.Close()
 	}
 	decoded := time.Since(t0)
 	ss, err := extractBandsMat(m, opt, all)
@@ -426,7 +439,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 	small := gocv.NewMat()
 	defer small.Close()
 	gocv.Resize(m, &small, image.Pt(sw, sh), 0, 0, gocv.InterpolationArea)
-	sp, err := sumPlane(small, lut)
+	sp, err := sumPlane(small, lut, opt.workers())
 	if err != nil {
 		return nil, err
 	}
@@ -623,7 +636,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 				return err
 			}
 			release()
-			rp, rgb, clip = linearRegion(fr, roi, tables, clipAt, opt.Profile, opt.Channels)
+			rp, rgb, clip = linearRegion(fr, roi, tables, clipAt, opt.Profile, opt.Channels, opt.workers())
 			rbg, _, _ = levels(rp)
 		}
 		return nil
@@ -660,11 +673,11 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 			return Strip{}, fmt.Errorf("%w: the band's centre line leaves the frame", ErrNoBand)
 		}
 		if round == 0 {
-			fit = centreOnly(rp.pix, roi, ang, vc, hh, side, u0, u1)
+			fit = centreOnly(rp.pix, roi, ang, vc, hh, side, u0, u1, opt.workers())
 		} else {
 			data, nc := pick()
 			var err error
-			if s, fit, err = straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, Bow{}); err != nil {
+			if s, fit, err = straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, Bow{}, opt.workers()); err != nil {
 				return Strip{}, err
 			}
 			done = true
@@ -698,7 +711,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		}
 		data, nc := pick()
 		var err error
-		if s, fit, err = straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, Bow{}); err != nil {
+		if s, fit, err = straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, Bow{}, opt.workers()); err != nil {
 			return Strip{}, err
 		}
 	}
@@ -732,7 +745,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 			return Strip{}, err
 		}
 		data, nc := pick()
-		sb, fb, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow)
+		sb, fb, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow, opt.workers())
 		if err == nil {
 			s, fit = sb, fb
 			s.bowMeasured = own
@@ -746,7 +759,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		// in one channel can be measured in another.
 		f32Pool.put(rgb)
 		rgb = regionRGB(fr, roi, tables)
-		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow); err == nil {
+		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow, opt.workers()); err == nil {
 			s, fit = s4, fit4
 		}
 	}
@@ -805,19 +818,21 @@ func qualityWarnings(s Strip, cut bool) []string {
 
 // sumPlane returns the sum of the linearised channels of an 8- or 16-bit
 // BGR Mat.
-func sumPlane(m gocv.Mat, lut []float32) (plane, error) {
+func sumPlane(m gocv.Mat, lut []float32, workers int) (plane, error) {
 	fr, err := newFrame(m)
 	if err != nil {
 		return plane{}, err
 	}
 	p := plane{w: fr.w, h: fr.h, pix: make([]float32, fr.w*fr.h)}
-	for i := range p.pix {
-		if fr.bytes8 != nil {
-			p.pix[i] = lut[fr.bytes8[3*i]] + lut[fr.bytes8[3*i+1]] + lut[fr.bytes8[3*i+2]]
-		} else {
-			p.pix[i] = lut[fr.words16[3*i]] + lut[fr.words16[3*i+1]] + lut[fr.words16[3*i+2]]
+	inParts(len(p.pix), workers, 1<<16, func(lo, hi int) {
+		for i := lo; i < hi; i++ {
+			if fr.bytes8 != nil {
+				p.pix[i] = lut[fr.bytes8[3*i]] + lut[fr.bytes8[3*i+1]] + lut[fr.bytes8[3*i+2]]
+			} else {
+				p.pix[i] = lut[fr.words16[3*i]] + lut[fr.words16[3*i+1]] + lut[fr.words16[3*i+2]]
+			}
 		}
-	}
+	})
 	return p, nil
 }
 
@@ -919,7 +934,7 @@ func (t lumaLUT) of(r, g, b int) float32 {
 // (linearised luma, or the linear channel sum) and a per-pixel clip mask
 // (nil when no pixel of the region is clipped); with all set, also into linear R, G, B and luma interleaved (four values
 // a pixel), for the colour channels.
-func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, profile string, all bool) (plane, []float32, []uint8) {
+func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, profile string, all bool, workers int) (plane, []float32, []uint8) {
 	w, h := roi.Dx(), roi.Dy()
 	lut := tables.lut
 	// Every element is written below: pooled buffers need no clearing.
@@ -930,24 +945,26 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 	}
 	sum := profile != ProfileLuma
 	clip := u8Pool.get(w * h) // bit 0: R clipped, bit 1: G, bit 2: B
-	var anyClip uint8
-	if fr.bytes8 != nil && !all && tables.luma.exact != nil {
-		// The common case (8-bit photo, one channel) without the general
-		// loop's branches and calls: half the time.
-		lumaTab, c8 := tables.luma.exact, uint8(min(clipAt, 256))
-		for y := 0; y < h; y++ {
-			src := fr.bytes8[3*((y+roi.Min.Y)*fr.w+roi.Min.X) : 3*((y+roi.Min.Y)*fr.w+roi.Max.X)]
-			dst := pp.pix[y*w : (y+1)*w]
-			cl := clip[y*w : (y+1)*w]
-			for x := range dst {
-				b, g, r := src[3*x], src[3*x+1], src[3*x+2]
-				if sum {
-					dst[x] = lut[r] + lut[g] + lut[b]
-				} else {
-					dst[x] = lumaTab[299*int(r)+587*int(g)+114*int(b)]
-				}
-				var cb uint8
-				if clipAt < 256 {
+	var anyClip atomic.Uint32
+	fast := fr.bytes8 != nil && !all && tables.luma.exact != nil
+	inParts(h, workers, max(1, 1<<16/max(1, w)), func(y0, y1 int) {
+		var seen uint8
+		if fast {
+			// The common case (8-bit photo, one channel) without the
+			// general loop's branches and calls: half the time.
+			lumaTab, c8 := tables.luma.exact, uint8(min(clipAt, 255))
+			for y := y0; y < y1; y++ {
+				src := fr.bytes8[3*((y+roi.Min.Y)*fr.w+roi.Min.X) : 3*((y+roi.Min.Y)*fr.w+roi.Max.X)]
+				dst := pp.pix[y*w : (y+1)*w]
+				cl := clip[y*w : (y+1)*w]
+				for x := range dst {
+					b, g, r := src[3*x], src[3*x+1], src[3*x+2]
+					if sum {
+						dst[x] = lut[r] + lut[g] + lut[b]
+					} else {
+						dst[x] = lumaTab[299*int(r)+587*int(g)+114*int(b)]
+					}
+					var cb uint8
 					if r >= c8 {
 						cb |= 1
 					}
@@ -957,41 +974,42 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 					if b >= c8 {
 						cb |= 4
 					}
+					cl[x] = cb
+					seen |= cb
 				}
-				cl[x] = cb
-				anyClip |= cb
+			}
+		} else {
+			for y := y0; y < y1; y++ {
+				for x := 0; x < w; x++ {
+					src := 3 * ((y+roi.Min.Y)*fr.w + x + roi.Min.X)
+					dst := y*w + x
+					b, g, r := fr.bgr(src)
+					if sum {
+						pp.pix[dst] = lut[r] + lut[g] + lut[b]
+					} else {
+						pp.pix[dst] = tables.luma.of(r, g, b)
+					}
+					if all {
+						rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2], rgb[4*dst+3] = lut[r], lut[g], lut[b], tables.luma.of(r, g, b)
+					}
+					var cb uint8
+					if r >= clipAt {
+						cb |= 1
+					}
+					if g >= clipAt {
+						cb |= 2
+					}
+					if b >= clipAt {
+						cb |= 4
+					}
+					clip[dst] = cb
+					seen |= cb
+				}
 			}
 		}
-		return pp, rgb, clipOrNil(clip, anyClip)
-	}
-	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			src := 3 * ((y+roi.Min.Y)*fr.w + x + roi.Min.X)
-			dst := y*w + x
-			b, g, r := fr.bgr(src)
-			if sum {
-				pp.pix[dst] = lut[r] + lut[g] + lut[b]
-			} else {
-				pp.pix[dst] = tables.luma.of(r, g, b)
-			}
-			if all {
-				rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2], rgb[4*dst+3] = lut[r], lut[g], lut[b], tables.luma.of(r, g, b)
-			}
-			var cb uint8
-			if r >= clipAt {
-				cb |= 1
-			}
-			if g >= clipAt {
-				cb |= 2
-			}
-			if b >= clipAt {
-				cb |= 4
-			}
-			clip[dst] = cb
-			anyClip |= cb
-		}
-	}
-	return pp, rgb, clipOrNil(clip, anyClip)
+		anyClip.Or(uint32(seen))
+	})
+	return pp, rgb, clipOrNil(clip, uint8(anyClip.Load()))
 }
 
 // clipOrNil returns the clip mask, or nil (its buffer back in the pool)
@@ -1015,7 +1033,7 @@ func clipOrNil(clip []uint8, any uint8) []uint8 {
 // but only the band rows with a margin (the core) and the side rows the
 // background is taken from are warped: a third less work on a typical
 // band than warping every row.
-func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, profile string, bow Bow) (Strip, centreFit, error) {
+func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, profile string, bow Bow, workers int) (Strip, centreFit, error) {
 	w, h := roi.Dx(), roi.Dy()
 	L := int(math.Floor(u1-u0)) + 1
 	half := int(math.Ceil(hh))
@@ -1072,7 +1090,6 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 			s.ChannelClipped[c] = make([]bool, L)
 		}
 	}
-	var nBand, nClip int
 	// Curved line images (conical diffraction, short focal lengths) are
 	// followed: band row j is sampled k(i)·(j − jc)² columns along, so each
 	// line's light adds up at its centre-row position instead of smearing.
@@ -1091,106 +1108,143 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	nbg := 2 * nSide
 	bg := make([]float32, nc*L*nbg) // column-major: bg[(c*L+i)*nbg + k]
 	nb := make([]int, L)
-	for j := 0; j < H; j++ {
-		inBand := j >= sd && j <= H-1-sd
-		if !inBand && (min(j, H-1-j)%every != 0) {
-			continue
-		}
-		// Where row j's samples are: a core row, or row k of a side strip.
-		src, base0 := px, (j-off)*L
-		if !inBand {
-			if j < sd {
-				src, base0 = sides[0], (j/every)*L
-			} else {
-				src, base0 = sides[1], ((H-1-j)/every)*L
+	// Columns are independent (each sums its own rows in order): the
+	// parts of the strip's width run concurrently, with the same result.
+	var nBandAll, nClipAll atomic.Int64
+	inParts(L, workers, 256, func(c0, c1 int) {
+		var nBand, nClip int
+		for j := 0; j < H; j++ {
+			inBand := j >= sd && j <= H-1-sd
+			if !inBand && (min(j, H-1-j)%every != 0) {
+				continue
 			}
-		}
-		fy := v0 + float64(j)
-		// Source x(i) = ax + i·cs, y(i) = ay + i·sn: the columns whose
-		// source lies inside the region form one range.
-		ax := u0*cs - fy*sn - float64(roi.Min.X)
-		ay := u0*sn + fy*cs - float64(roi.Min.Y)
-		ilo, ihi := colRange(ax, cs, float64(w-1), L)
-		jlo, jhi := colRange(ay, sn, float64(h-1), L)
-		ilo, ihi = max(ilo, jlo), min(ihi, jhi)
-		if !bow.zero() {
-			ilo, ihi = 0, L-1 // bowed rows: every column, bounds checked below
-		}
-		for i := ilo; i <= ihi; i++ {
-			x := ax + float64(i)*cs
-			y := ay + float64(i)*sn
+			// Where row j's samples are: a core row, or row k of a side strip.
+			src, base0 := px, (j-off)*L
+			if !inBand {
+				if j < sd {
+					src, base0 = sides[0], (j/every)*L
+				} else {
+					src, base0 = sides[1], ((H-1-j)/every)*L
+				}
+			}
+			fy := v0 + float64(j)
+			// Source x(i) = ax + i·cs, y(i) = ay + i·sn: the columns whose
+			// source lies inside the region form one range.
+			ax := u0*cs - fy*sn - float64(roi.Min.X)
+			ay := u0*sn + fy*cs - float64(roi.Min.Y)
+			ilo, ihi := colRange(ax, cs, float64(w-1), L)
+			jlo, jhi := colRange(ay, sn, float64(h-1), L)
+			ilo, ihi = max(ilo, jlo), min(ihi, jhi)
 			if !bow.zero() {
-				b := bow.at(float64(i))
-				x, y = x-b*sn, y+b*cs
+				ilo, ihi = 0, L-1 // bowed rows: every column, bounds checked below
 			}
-			if x < 0 || y < 0 || x > float64(w-1) || y > float64(h-1) {
-				continue // rounding at the range's ends
+			ilo, ihi = max(ilo, c0), min(ihi, c1-1)
+			if inBand && bow.zero() && curv == nil && clip == nil && nc == 1 {
+				// The usual band row: no bow, no curvature to follow,
+				// nothing clipped, one channel: a straight sum (the ends
+				// checked as the general loop checks every column).
+				inside := func(i int) bool {
+					x, y := ax+float64(i)*cs, ay+float64(i)*sn
+					return x >= 0 && y >= 0 && x <= float64(w-1) && y <= float64(h-1)
+				}
+				for ilo <= ihi && !inside(ilo) {
+					ilo++
+				}
+				for ihi >= ilo && !inside(ihi) {
+					ihi--
+				}
+				if ilo > ihi {
+					continue
+				}
+				a, n := acc[0][ilo:ihi+1], nIn[ilo:ihi+1]
+				for k, v := range px[base0+ilo : base0+ihi+1] {
+					a[k] += float64(v)
+					n[k]++
+				}
+				nBand += ihi - ilo + 1
+				continue
 			}
-			base := nc * (base0 + i)
-			if inBand {
-				nIn[i]++
-				nBand++
-				if clip == nil {
-					// nothing clipped in the region
-				} else if cb := clip[int(y+0.5)*w+int(x+0.5)]; cb != 0 {
-					s.Clipped[i] = true
-					nClip++
-					if nc == 4 {
-						for c := 0; c < 3; c++ {
-							if cb&(1<<c) != 0 {
-								s.ChannelClipped[c][i] = true
+			for i := ilo; i <= ihi; i++ {
+				x := ax + float64(i)*cs
+				y := ay + float64(i)*sn
+				if !bow.zero() {
+					b := bow.at(float64(i))
+					x, y = x-b*sn, y+b*cs
+				}
+				if x < 0 || y < 0 || x > float64(w-1) || y > float64(h-1) {
+					continue // rounding at the range's ends
+				}
+				base := nc * (base0 + i)
+				if inBand {
+					nIn[i]++
+					nBand++
+					if clip == nil {
+						// nothing clipped in the region
+					} else if cb := clip[int(y+0.5)*w+int(x+0.5)]; cb != 0 {
+						s.Clipped[i] = true
+						nClip++
+						if nc == 4 {
+							for c := 0; c < 3; c++ {
+								if cb&(1<<c) != 0 {
+									s.ChannelClipped[c][i] = true
+								}
 							}
 						}
 					}
-				}
-				if curv != nil {
-					t := float64(j) - jc
-					xi := float64(i) + curv.shift(i, t)
-					i0 := int(math.Floor(xi))
-					if i0 >= 0 && i0+1 < L {
-						f := float32(xi - float64(i0))
-						b0, b1 := nc*(base0+i0), nc*(base0+i0+1)
-						for c := 0; c < nc; c++ {
-							acc[c][i] += float64(px[b0+c]*(1-f) + px[b1+c]*f)
+					if curv != nil {
+						t := float64(j) - jc
+						xi := float64(i) + curv.shift(i, t)
+						i0 := int(math.Floor(xi))
+						if i0 >= 0 && i0+1 < L {
+							f := float32(xi - float64(i0))
+							b0, b1 := nc*(base0+i0), nc*(base0+i0+1)
+							for c := 0; c < nc; c++ {
+								acc[c][i] += float64(px[b0+c]*(1-f) + px[b1+c]*f)
+							}
+							continue
 						}
-						continue
 					}
+					for c := 0; c < nc; c++ {
+						acc[c][i] += float64(px[base+c])
+					}
+				} else if nb[i] < nbg {
+					for c := 0; c < nc; c++ {
+						bg[(c*L+i)*nbg+nb[i]] = src[base+c]
+					}
+					nb[i]++
 				}
-				for c := 0; c < nc; c++ {
-					acc[c][i] += float64(px[base+c])
-				}
-			} else if nb[i] < nbg {
-				for c := 0; c < nc; c++ {
-					bg[(c*L+i)*nbg+nb[i]] = src[base+c]
-				}
-				nb[i]++
 			}
 		}
-	}
+		nBandAll.Add(int64(nBand))
+		nClipAll.Add(int64(nClip))
+	})
+	nBand, nClip := int(nBandAll.Load()), int(nClipAll.Load())
 	rows := float64(2*half + 1)
-	tmp := make([]float64, nbg)
 	spread := make([]float64, L) // the profile channel's scatter beside the band, per column
-	for i := 0; i < L; i++ {
-		for c := 0; c < nc; c++ {
-			bgv := 0.0
-			if nb[i] > 0 {
-				v := tmp[:nb[i]]
-				for k := range v {
-					v[k] = float64(bg[(c*L+i)*nbg+k])
-				}
-				bgv = medianOf(v)
-				if c == nc-1 && nb[i] >= 4 {
+	inParts(L, workers, 256, func(c0, c1 int) {
+		tmp := make([]float64, nbg)
+		for i := c0; i < c1; i++ {
+			for c := 0; c < nc; c++ {
+				bgv := 0.0
+				if nb[i] > 0 {
+					v := tmp[:nb[i]]
 					for k := range v {
-						v[k] = math.Abs(v[k] - bgv)
+						v[k] = float64(bg[(c*L+i)*nbg+k])
 					}
-					spread[i] = medianOf(v)
+					bgv = medianOf(v)
+					if c == nc-1 && nb[i] >= 4 {
+						for k := range v {
+							v[k] = math.Abs(v[k] - bgv)
+						}
+						spread[i] = medianOf(v)
+					}
 				}
-			}
-			if nIn[i] > 0 {
-				acc[c][i] = (acc[c][i] - float64(nIn[i])*bgv) * rows / float64(nIn[i])
+				if nIn[i] > 0 {
+					acc[c][i] = (acc[c][i] - float64(nIn[i])*bgv) * rows / float64(nIn[i])
+				}
 			}
 		}
-	}
+	})
 	if nc == 4 {
 		s.Channels = [3][]float64{acc[0], acc[1], acc[2]}
 		s.Luma = acc[3]
@@ -1551,7 +1605,7 @@ func warpAffine(src gocv.Mat, org image.Point, sn, cs, u0, v0, vStep float64, L,
 // (its rows and a margin) and measures its centre line: the cheap pass
 // that settles the geometry before the full straightening. Rows are
 // numbered as straighten numbers them.
-func centreOnly(luma []float32, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64) centreFit {
+func centreOnly(luma []float32, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, workers int) centreFit {
 	L := int(math.Floor(u1-u0)) + 1
 	half, sd := int(math.Ceil(hh)), int(math.Ceil(side))
 	m := coreMargin(half, sd)
@@ -1566,11 +1620,13 @@ func centreOnly(luma []float32, roi image.Rectangle, ang, vc, hh, side, u0, u1 f
 		return centreFit{}
 	}
 	prof := make([]float64, L)
-	for j := m; j <= H-1-m; j++ {
-		for i := 0; i < L; i++ {
-			prof[i] += float64(px[j*L+i])
+	inParts(L, workers, 256, func(c0, c1 int) {
+		for j := m; j <= H-1-m; j++ {
+			for i := c0; i < c1; i++ {
+				prof[i] += float64(px[j*L+i])
+			}
 		}
-	}
+	})
 	for i := 0; i < L; i++ {
 		prof[i] -= float64(H-2*m) * float64(px[i]+px[(H-1)*L+i]) / 2
 	}
@@ -1742,6 +1798,31 @@ func (sp *slicePool[T]) put(s []T) {
 	if cap(s) > 0 {
 		sp.p.Put(&s)
 	}
+}
+
+// workers is the number of goroutines Options asks for.
+func (o Options) workers() int {
+	if o.Workers > 0 {
+		return o.Workers
+	}
+	return runtime.GOMAXPROCS(0)
+}
+
+// inParts calls fn on [0, n) cut into at most workers contiguous parts of
+// at least minPart, concurrently, and waits for all. Each part writes only
+// its own elements, so results do not depend on the number of parts.
+func inParts(n, workers, minPart int, fn func(lo, hi int)) {
+	k := min(workers, n/max(1, minPart))
+	if k <= 1 {
+		fn(0, n)
+		return
+	}
+	var wg sync.WaitGroup
+	for p := 0; p < k; p++ {
+		lo, hi := p*n/k, (p+1)*n/k
+		wg.Go(func() { fn(lo, hi) })
+	}
+	wg.Wait()
 }
 
 // remapBowed samples the strip along a bowed band: strip pixel (i, j) lies

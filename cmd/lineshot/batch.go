@@ -118,7 +118,9 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	if err := os.MkdirAll(filepath.Join(*out, "calibrations"), 0o755); err != nil {
 		return fmt.Errorf("%s: cannot write the output folder: %w", *out, err)
 	}
-	cfg := measureConfig{minSNR: *minSNR, tolNM: 1, imageOpts: imaging.Options{KeepImage: true}}
+	// The cores are shared out between photos first: each photo gets
+	// what is left over (one each with the default --jobs).
+	cfg := measureConfig{minSNR: *minSNR, tolNM: 1, imageOpts: imaging.Options{KeepImage: true, Workers: max(1, runtime.GOMAXPROCS(0) / *jobs)}}
 	benches, failures := discover(root, *out)
 	if sn > 1 {
 		var mine []bench
@@ -590,7 +592,7 @@ func (b *batchRun) process(path string, bn bench) (photoRecord, bool) {
 			ll, _ := calibrate.LampByName(l)
 			lamps = []calibrate.Lamp{ll}
 		}
-		rec.IDs = calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{})
+		rec.IDs = calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{Workers: b.cfg.imageOpts.Workers})
 		if m.strip.Image != nil {
 			name := filepath.Join("images", key+".jpg")
 			if err := writeStripImage(filepath.Join(b.out, name), m); err == nil {

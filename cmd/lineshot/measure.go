@@ -680,7 +680,7 @@ func identify(m measured, path string, cfg measureConfig, lamps []calibrate.Lamp
 	single := m.strip.BandHalfHeight < 6 && len(cfg.pins) == 0
 	var ids []calibrate.Identification
 	if !single {
-		ids = calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{Pins: cfg.pins})
+		ids = calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{Pins: cfg.pins, Workers: cfg.imageOpts.Workers})
 	}
 	if len(ids) == 0 {
 		if hasLamp(lamps, "sodium") && oneYellowLine(m, path, cfg, single) {
