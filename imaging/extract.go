@@ -1093,7 +1093,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	// Curved line images (conical diffraction, short focal lengths) are
 	// followed: band row j is sampled k(i)·(j − jc)² columns along, so each
 	// line's light adds up at its centre-row position instead of smearing.
-	curv := lineCurvature(px, nc, nc-1, L, Hc, m)
+	curv := lineCurvature(px, nc, nc-1, L, Hc, m, workers)
 	s.CurvaturePX = 0
 	if curv != nil {
 		t := float64(half)
@@ -1408,18 +1408,20 @@ func (t lumaLUT) at(code float64) float32 {
 // only when it moves a line by 0.25 px at the band's edge (smaller terms
 // are within what the estimate itself scatters on straight lines), or nil
 // when neither does or they cannot be measured.
-func lineCurvature(px []float32, stride, off, L, H, sd int) *lineShape {
+func lineCurvature(px []float32, stride, off, L, H, sd, workers int) *lineShape {
 	jc := float64(H-1) / 2
 	lo, hi := sd, H-1-sd
 	if hi-lo < 12 {
 		return nil
 	}
 	prof := make([]float64, L)
-	for j := lo; j <= hi; j++ {
-		for i := 0; i < L; i++ {
-			prof[i] += float64(px[stride*(j*L+i)+off])
+	inParts(L, workers, 256, func(c0, c1 int) {
+		for j := lo; j <= hi; j++ {
+			for i := c0; i < c1; i++ {
+				prof[i] += float64(px[stride*(j*L+i)+off])
+			}
 		}
-	}
+	})
 	// Heights above the strip's level (its median column), so that noise
 	// maxima on the background neither pass for lines nor weigh in.
 	base := medianOf(append([]float64(nil), prof...))
