@@ -179,3 +179,41 @@ func TestTIFF16(t *testing.T) {
 		t.Errorf("TIFF over the pixel cap: %v", err)
 	}
 }
+
+// WriteJPEG's output decodes (with Go's decoder) to the image given,
+// within JPEG's loss, orientation and colour order kept.
+func TestWriteJPEG(t *testing.T) {
+	img := image.NewRGBA(image.Rect(0, 0, 64, 32))
+	for y := 0; y < 32; y++ {
+		for x := 0; x < 64; x++ {
+			img.Pix[img.PixOffset(x, y)+0] = uint8(4 * x) // red ramps along x
+			img.Pix[img.PixOffset(x, y)+1] = uint8(8 * y) // green along y
+			img.Pix[img.PixOffset(x, y)+2] = 40
+			img.Pix[img.PixOffset(x, y)+3] = 255
+		}
+	}
+	var buf bytes.Buffer
+	if err := WriteJPEG(&buf, img.SubImage(image.Rect(0, 0, 64, 32)).(*image.RGBA), 95); err != nil {
+		t.Fatal(err)
+	}
+	got, err := jpeg.Decode(&buf)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got.Bounds() != img.Bounds() {
+		t.Fatalf("bounds %v, want %v", got.Bounds(), img.Bounds())
+	}
+	var worst float64
+	for y := 0; y < 32; y++ {
+		for x := 0; x < 64; x++ {
+			r, g, b, _ := got.At(x, y).RGBA()
+			want := img.RGBAAt(x, y)
+			for _, d := range []float64{float64(r>>8) - float64(want.R), float64(g>>8) - float64(want.G), float64(b>>8) - float64(want.B)} {
+				worst = math.Max(worst, math.Abs(d))
+			}
+		}
+	}
+	if worst > 12 {
+		t.Errorf("worst channel difference %.0f codes after a quality-95 round trip", worst)
+	}
+}

@@ -13,8 +13,10 @@ if [ -n "$unformatted" ]; then
 fi
 go vet ./...
 go test -count=1 ./...
-# The concurrent batch code under the race detector (the other packages
-# run no goroutines of their own).
+# The concurrent code under the race detector: the batch, a photo's work
+# split over CPUs (imaging) and the lamps tried side by side (calibrate).
 go test -count=1 -race -run 'TestBatch(OverALab|InterruptedAndResumed)' ./cmd/lineshot
+go test -count=1 -race -run 'TestExtractBandsTwoLamps' ./imaging
+go test -count=1 -race -run 'TestBothOrdersClassifiedRight|TestClassif' ./calibrate
 # Every fuzz target briefly; found crashers land in testdata/fuzz/.
 FUZZTIME=${FUZZTIME:-3s} scripts/fuzz.sh

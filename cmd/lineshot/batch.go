@@ -2,6 +2,7 @@ package main
 
 import (
 	"bufio"
+	"cmp"
 	"context"
 	"crypto/sha256"
 	"encoding/csv"
@@ -75,6 +76,7 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	fsf := newFlags("batch", batchUsage, stderr)
 	out := fsf.StringP("out", "o", "", "output folder (created if missing)")
 	jobs := fsf.IntP("jobs", "j", runtime.GOMAXPROCS(0), "photos measured at once")
+	photoThreads := fsf.Int("photo-threads", 0, "goroutines sharing the work on one photo (default: the CPUs left over by --jobs, at least 1)")
 	quiet := fsf.BoolP("quiet", "q", false, "no progress bar")
 	shard := fsf.String("shard", "", "measure only part i of n of the benches (i/n, 1-based), for spreading a large archive over machines")
 	minSNR := fsf.Float64("min-snr", 5, "least line height and prominence, in units of the profile noise")
@@ -102,6 +104,9 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	if *jobs < 1 || *jobs > 256 {
 		return usagef("batch: --jobs %d outside 1-256", *jobs)
 	}
+	if *photoThreads < 0 || *photoThreads > 256 {
+		return usagef("batch: --photo-threads %d outside 1-256", *photoThreads)
+	}
 	si, sn, err := parseShard(*shard)
 	if err != nil {
 		return usagef("batch: --shard %q: %v", *shard, err)
@@ -120,7 +125,8 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	}
 	// The cores are shared out between photos first: each photo gets
 	// what is left over (one each with the default --jobs).
-	cfg := measureConfig{minSNR: *minSNR, tolNM: 1, imageOpts: imaging.Options{KeepImage: true, Workers: max(1, runtime.GOMAXPROCS(0) / *jobs)}}
+	workers := cmp.Or(*photoThreads, max(1, runtime.GOMAXPROCS(0) / *jobs))
+	cfg := measureConfig{minSNR: *minSNR, tolNM: 1, imageOpts: imaging.Options{KeepImage: true, Workers: workers}}
 	benches, failures := discover(root, *out)
 	if sn > 1 {
 		var mine []bench
@@ -486,7 +492,7 @@ type photoRecord struct {
 	Peaks   []peaks.Peak               `json:"peaks"`
 	Noise   float64                    `json:"profile_noise"`
 	IDs     []calibrate.Identification `json:"identifications"`
-	Image   string                     `json:"image,omitempty"` // straightened band PNG, relative to OUTDIR
+	Image   string                     `json:"image,omitempty"` // straightened band JPEG, relative to OUTDIR
 }
 
 // stripRecord is the part of an imaging.Strip worth keeping.
@@ -624,7 +630,7 @@ type benchResult struct {
 	Rydberg     *calibrate.Rydberg   `json:"rydberg,omitempty"` // all hydrogen photos of the bench together
 	Failures    []failure            `json:"failures,omitempty"`
 	Warnings    []string             `json:"warnings,omitempty"`
-	Images      map[string]string    `json:"band_images,omitempty"` // file → PNG under OUTDIR
+	Images      map[string]string    `json:"band_images,omitempty"` // file → JPEG under OUTDIR
 	Profiles    map[string][]float32 `json:"profiles,omitempty"`    // file → profile, for the report's plots
 }
 
@@ -755,21 +761,28 @@ type batchDoc struct {
 }
 
 func writeBatchOutputs(out string, doc batchDoc) error {
-	if err := writeJSONAtomic(filepath.Join(out, "results.json"), doc); err != nil {
-		return err
-	}
-	if err := writeFileAtomic(filepath.Join(out, "results.csv"), func(w io.Writer) error { return resultsCSV(w, doc) }); err != nil {
-		return err
-	}
-	for _, b := range doc.Benches {
-		if b.Calibration != nil {
-			name := strings.NewReplacer("/", "_", "\\", "_", " ", "_").Replace(b.Name) + ".json"
-			if err := writeJSONAtomic(filepath.Join(out, "calibrations", name), b.Calibration); err != nil {
-				return err
+	// The files are independent: written side by side (the report's
+	// plots take longest), each atomically.
+	var g errgroup.Group
+	g.Go(func() error { return writeJSONAtomic(filepath.Join(out, "results.json"), doc) })
+	g.Go(func() error {
+		return writeFileAtomic(filepath.Join(out, "results.csv"), func(w io.Writer) error { return resultsCSV(w, doc) })
+	})
+	g.Go(func() error {
+		for _, b := range doc.Benches {
+			if b.Calibration != nil {
+				name := strings.NewReplacer("/", "_", "\\", "_", " ", "_").Replace(b.Name) + ".json"
+				if err := writeJSONAtomic(filepath.Join(out, "calibrations", name), b.Calibration); err != nil {
+					return err
+				}
 			}
 		}
-	}
-	return writeFileAtomic(filepath.Join(out, "report.html"), func(w io.Writer) error { return writeReport(w, out, doc) })
+		return nil
+	})
+	g.Go(func() error {
+		return writeFileAtomic(filepath.Join(out, "report.html"), func(w io.Writer) error { return writeReport(w, out, doc) })
+	})
+	return g.Wait()
 }
 
 func resultsCSV(w io.Writer, doc batchDoc) error {

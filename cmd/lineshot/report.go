@@ -7,7 +7,6 @@ import (
 	"html/template"
 	"image"
 	"image/color"
-	"image/jpeg"
 	"io"
 	"math"
 	"os"
@@ -24,6 +23,7 @@ import (
 	"gonum.org/v1/plot/vg/draw"
 
 	"lineshot/calibrate"
+	"lineshot/imaging"
 )
 
 // The report's palette, our own: ink, slate, teal accent, amber warnings.
@@ -48,9 +48,17 @@ func writeStripImage(path string, m measured) error {
 	w, h := max(1, int(float64(b.Dx())*scale)), max(1, int(float64(b.Dy())*scale))
 	const tick = 10
 	dst := image.NewRGBA(image.Rect(0, 0, w, h+2*tick))
+	// Nearest-neighbour scaling, pixel bytes copied directly (Set and At
+	// through the color interface took a quarter of a batch's time).
+	sx := make([]int, w)
+	for x := range sx {
+		sx[x] = 4 * min(b.Dx()-1, int(float64(x)/scale))
+	}
 	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			dst.Set(x, y+tick, src.At(int(float64(x)/scale), int(float64(y)/scale)))
+		srow := src.Pix[min(b.Dy()-1, int(float64(y)/scale))*src.Stride:]
+		drow := dst.Pix[(y+tick)*dst.Stride:]
+		for x, o := range sx {
+			copy(drow[4*x:4*x+4], srow[o:o+4])
 		}
 	}
 	for _, p := range m.found.Peaks {
@@ -65,7 +73,7 @@ func writeStripImage(path string, m measured) error {
 	if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
 		return err
 	}
-	return writeFileAtomic(path, func(wr io.Writer) error { return jpeg.Encode(wr, dst, &jpeg.Options{Quality: 85}) })
+	return writeFileAtomic(path, func(wr io.Writer) error { return imaging.WriteJPEG(wr, dst, 85) })
 }
 
 // pngData renders a plot to a data: URI. SVG, not PNG: vector text renders
