@@ -126,6 +126,10 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	// The cores are shared out between photos first: each photo gets
 	// what is left over (one each with the default --jobs).
 	workers := cmp.Or(*photoThreads, max(1, runtime.GOMAXPROCS(0) / *jobs))
+	// OpenCV's own threads get the same share (they would compete with
+	// the other photos' work), for this run.
+	imaging.SetOpenCVThreads(workers)
+	defer imaging.SetOpenCVThreads(0)
 	cfg := measureConfig{minSNR: *minSNR, tolNM: 1, imageOpts: imaging.Options{KeepImage: true, Workers: workers}}
 	benches, failures := discover(root, *out)
 	if sn > 1 {

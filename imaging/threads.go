@@ -1,0 +1,20 @@
+package imaging
+
+/*
+#cgo pkg-config: opencv4
+#cgo CXXFLAGS: --std=c++11
+#include "threads.h"
+*/
+import "C"
+
+// SetOpenCVThreads sets how many threads OpenCV's own functions (warps,
+// resizing) may use, for the whole process; n < 1 restores OpenCV's
+// default (one per CPU). A batch that already measures a photo per CPU
+// sets what it gives each photo: OpenCV's threads would otherwise compete
+// with the other photos' work. gocv v0.32 has no call for it.
+func SetOpenCVThreads(n int) {
+	if n < 1 {
+		n = -1
+	}
+	C.lineshot_set_opencv_threads(C.int(n))
+}
