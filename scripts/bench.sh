@@ -44,3 +44,12 @@ awk -v one="$one" -v two="$two" -v f="$frame" -v idle="$idle" 'BEGIN {
   printf "peak RSS, the idle program: %.0f MiB\n", idle/1024
   printf "peak RSS, measure 12 MP: %.0f MiB = %.2f frames + 60 MiB (target ≤ 2.5 frames per worker + 60 MiB); %.2f frames above the idle program\n", one/1024, (one - 61440) / f, (one - idle) / f
   printf "peak RSS, batch -j 2 on 12 MP photos: %.0f MiB = %.2f frames per worker + 60 MiB; %.2f above the idle program\n", two/1024, (two - 61440) / f / 2, (two - idle) / f / 2 }'
+
+echo "== a class's worth: 100 12 MP phone photos in two benches, default --jobs"
+mkdir -p "$tmp/class/b1" "$tmp/class/b2"
+for k in $(seq 1 50); do for b in b1 b2; do ln "$big" "$tmp/class/$b/hg$k.jpg" 2>/dev/null || cp "$big" "$tmp/class/$b/hg$k.jpg"; done; done
+t0=$(date +%s.%N)
+bin/lineshot batch --quiet --out "$tmp/class-out" "$tmp/class" >/dev/null 2>&1 || true
+t1=$(date +%s.%N)
+awk -v a="$t0" -v b="$t1" -v n="$(nproc)" 'BEGIN { printf "100 photos in %.1f s on %d CPUs: %.1f photos/s, 300 in about %.0f s\n", b - a, n, 100 / (b - a), 300 * (b - a) / 100 }'
+
