@@ -42,6 +42,11 @@ type Options struct {
 	// for people to look at: it is warped from the decoded codes (cheap,
 	// a byte a sample), not from the linear values the profiles use.
 	KeepImage bool
+	// ImageMaxWidth, when above 0, shrinks the kept image (area
+	// averaging, both directions alike) to at most this many pixels
+	// across: a report shows no more, and a 12 MP photo's full strip
+	// would hold 8 MB per photo being measured.
+	ImageMaxWidth int
 	// Workers is how many goroutines share the work on one photo (the
 	// region's linearisation, the straightened strip's columns); 0 means
 	// one per CPU. A batch that measures a photo per CPU sets 1.
@@ -766,7 +771,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 	if opt.KeepImage {
 		half, sd := int(math.Ceil(hh)), int(math.Ceil(side))
 		var err error
-		if s.Image, err = displayStrip(fr, tables.lut, ang, u0, vc-float64(half+sd), len(s.Profile), 2*(half+sd)+1, bow); err != nil {
+		if s.Image, err = displayStrip(fr, tables.lut, ang, u0, vc-float64(half+sd), len(s.Profile), 2*(half+sd)+1, bow, opt.ImageMaxWidth); err != nil {
 			return Strip{}, err
 		}
 	}
@@ -1300,9 +1305,10 @@ func medianOf(v []float64) float64 {
 
 // displayStrip warps the band from the decoded frame's own codes (OpenCV,
 // bilinear, 8 or 16 bits a sample) into an L×H strip for display, scaled
-// in linear light so that its 99.9th percentile is white, sRGB-encoded.
+// in linear light so that its 99.9th percentile is white, sRGB-encoded,
+// and shrunk (area averaging) to at most maxW pixels across when maxW > 0.
 // Display only: interpolating codes is not interpolating intensity.
-func displayStrip(fr frame, lut []float32, ang, u0, v0 float64, L, H int, bow Bow) (*image.RGBA, error) {
+func displayStrip(fr frame, lut []float32, ang, u0, v0 float64, L, H int, bow Bow, maxW int) (*image.RGBA, error) {
 	sn, cs := math.Sincos(ang * math.Pi / 180)
 	var dst gocv.Mat
 	var err error
@@ -1314,7 +1320,18 @@ func displayStrip(fr frame, lut []float32, ang, u0, v0 float64, L, H int, bow Bo
 	if err != nil {
 		return nil, err
 	}
-	defer dst.Close()
+	defer func() { dst.Close() }() // the shrunk strip replaces dst below
+	if maxW > 0 && L > maxW {
+		k := float64(maxW) / float64(L)
+		L, H = maxW, max(1, int(float64(H)*k+0.5))
+		small := gocv.NewMat()
+		gocv.Resize(dst, &small, image.Pt(L, H), 0, 0, gocv.InterpolationArea)
+		dst.Close()
+		dst = small
+		if dst.Empty() || dst.Cols() != L || dst.Rows() != H {
+			return nil, errors.New("straighten: OpenCV returned no display strip")
+		}
+	}
 	code := func(i int) int { return 0 }
 	if b, err := dst.DataPtrUint8(); err == nil && dst.Type() == gocv.MatTypeCV8UC3 {
 		code = func(i int) int { return int(b[i]) }

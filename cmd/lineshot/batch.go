@@ -130,7 +130,7 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	// the other photos' work), for this run.
 	imaging.SetOpenCVThreads(workers)
 	defer imaging.SetOpenCVThreads(0)
-	cfg := measureConfig{minSNR: *minSNR, tolNM: 1, imageOpts: imaging.Options{KeepImage: true, Workers: workers}}
+	cfg := measureConfig{minSNR: *minSNR, tolNM: 1, imageOpts: imaging.Options{KeepImage: true, ImageMaxWidth: stripImageWidth, Workers: workers}}
 	benches, failures := discover(root, *out)
 	if sn > 1 {
 		var mine []bench

@@ -155,7 +155,7 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		cfg.imageOpts.FixAngle, cfg.imageOpts.AngleDeg = true, a
 	}
 	if *saveStrip != "" {
-		cfg.imageOpts.KeepImage = true
+		cfg.imageOpts.KeepImage, cfg.imageOpts.ImageMaxWidth = true, stripImageWidth
 		cfg.saveStrip = *saveStrip
 	}
 	for _, p := range *lineFiles {

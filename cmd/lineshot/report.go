@@ -35,6 +35,9 @@ var (
 	markerColor = color.RGBA{0xf5, 0x9e, 0x0b, 0xff}
 )
 
+// stripImageWidth is the most pixels across a saved band image has.
+const stripImageWidth = 1600
+
 // writeStripImage saves (as JPEG, quality 85) the straightened band with a tick above and below
 // every measured line (amber when identified, grey when not), scaled to at
 // most 1600 px wide.
@@ -44,8 +47,11 @@ func writeStripImage(path string, m measured) error {
 		return nil
 	}
 	b := src.Bounds()
-	scale := math.Min(1, 1600/float64(b.Dx()))
+	scale := math.Min(1, stripImageWidth/float64(b.Dx()))
 	w, h := max(1, int(float64(b.Dx())*scale)), max(1, int(float64(b.Dy())*scale))
+	// Profile positions to pixels of the written image (the strip's image
+	// may have been shrunk already: imaging.Options.ImageMaxWidth).
+	tickScale := float64(w) / float64(max(1, len(m.strip.Profile)))
 	const tick = 10
 	dst := image.NewRGBA(image.Rect(0, 0, w, h+2*tick))
 	// Nearest-neighbour scaling, pixel bytes copied directly (Set and At
@@ -62,7 +68,7 @@ func writeStripImage(path string, m measured) error {
 		}
 	}
 	for _, p := range m.found.Peaks {
-		x := int(p.Center*scale + 0.5)
+		x := int(p.Center*tickScale + 0.5)
 		for y := 0; y < tick-2; y++ {
 			if x >= 0 && x < w {
 				dst.Set(x, y, markerColor)
