@@ -20,6 +20,7 @@ import (
 	"unsafe"
 
 	"gocv.io/x/gocv"
+	"golang.org/x/sync/errgroup"
 	// TIFF, BMP and WebP headers too, so that their declared size is
 	// checked against the pixel cap before OpenCV allocates for it.
 	_ "golang.org/x/image/bmp"
@@ -642,7 +643,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 			}
 			release()
 			rp, rgb, clip = linearRegion(fr, roi, tables, clipAt, opt.Profile, opt.Channels, opt.workers())
-			rbg, _, _ = levels(rp)
+			rbg, _ = background(rp)
 		}
 		return nil
 	}
@@ -666,7 +667,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		if err := prepare(); err != nil {
 			return Strip{}, err
 		}
-		if vc2, hh2, ok := crossBandRegion(rp, roi, ang, rbg, vc, math.Min(hh+side, g.reach)); ok {
+		if vc2, hh2, ok := crossBandRegion(rp, roi, ang, rbg, vc, math.Min(hh+side, g.reach), opt.workers()); ok {
 			vc, hh = vc2, hh2
 			cut = false
 		} else {
@@ -843,28 +844,41 @@ func sumPlane(m gocv.Mat, lut []float32, workers int) (plane, error) {
 
 // crossBandRegion measures the band's centre and half-height at full
 // resolution from the region plane, over rows vc ± reach.
-func crossBandRegion(p plane, roi image.Rectangle, ang, bg, vc, reach float64) (float64, float64, bool) {
+func crossBandRegion(p plane, roi image.Rectangle, ang, bg, vc, reach float64, workers int) (float64, float64, bool) {
 	sn, cs := math.Sincos(ang * math.Pi / 180)
 	v0 := vc - reach
-	prof := make([]float64, int(2*reach)+2)
+	n := int(2*reach) + 2
 	// Linear splatting into 1 px bins keeps the sub-pixel centre; every
 	// column is not needed for the band's cross-profile. Along a row, t
-	// falls by sn·step a sample.
+	// falls by sn·step a sample. The rows go in eight fixed chunks (run
+	// side by side), summed in order: the same result for any workers.
 	step := max(1, p.w/1024)
-	tmax := float64(len(prof) - 1)
+	tmax := float64(n - 1)
 	dt := -float64(step) * sn
-	for y := 0; y < p.h; y++ {
-		row := p.pix[y*p.w : (y+1)*p.w]
-		t := -float64(roi.Min.X)*sn + float64(y+roi.Min.Y)*cs - v0
-		for x := 0; x < p.w; x, t = x+step, t+dt {
-			if t < 0 || t >= tmax {
-				continue
+	const chunks = 8
+	parts := make([][]float64, chunks)
+	inChunks(p.h, chunks, workers, func(k, y0, y1 int) {
+		prof := make([]float64, n)
+		for y := y0; y < y1; y++ {
+			row := p.pix[y*p.w : (y+1)*p.w]
+			t := -float64(roi.Min.X)*sn + float64(y+roi.Min.Y)*cs - v0
+			for x := 0; x < p.w; x, t = x+step, t+dt {
+				if t < 0 || t >= tmax {
+					continue
+				}
+				i := int(t)
+				fr := t - float64(i)
+				w := float64(row[x]) - bg
+				prof[i] += w * (1 - fr)
+				prof[i+1] += w * fr
 			}
-			i := int(t)
-			fr := t - float64(i)
-			w := float64(row[x]) - bg
-			prof[i] += w * (1 - fr)
-			prof[i+1] += w * fr
+		}
+		parts[k] = prof
+	})
+	prof := make([]float64, n)
+	for _, part := range parts {
+		for i, v := range part {
+			prof[i] += v
 		}
 	}
 	c, h, ok := bandEdges(prof)
@@ -1144,10 +1158,11 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 				ilo, ihi = 0, L-1 // bowed rows: every column, bounds checked below
 			}
 			ilo, ihi = max(ilo, c0), min(ihi, c1-1)
-			if inBand && bow.zero() && curv == nil && clip == nil && nc == 1 {
-				// The usual band row: no bow, no curvature to follow,
-				// nothing clipped, one channel: a straight sum (the ends
-				// checked as the general loop checks every column).
+			if inBand && bow.zero() && clip == nil && nc == 1 {
+				// The usual band row: no bow, nothing clipped, one
+				// channel: the ends checked as the general loop checks
+				// every column, then a sum, following the line shape
+				// when there is one.
 				inside := func(i int) bool {
 					x, y := ax+float64(i)*cs, ay+float64(i)*sn
 					return x >= 0 && y >= 0 && x <= float64(w-1) && y <= float64(h-1)
@@ -1161,12 +1176,28 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 				if ilo > ihi {
 					continue
 				}
-				a, n := acc[0][ilo:ihi+1], nIn[ilo:ihi+1]
-				for k, v := range px[base0+ilo : base0+ihi+1] {
-					a[k] += float64(v)
-					n[k]++
-				}
 				nBand += ihi - ilo + 1
+				if curv == nil {
+					a, n := acc[0][ilo:ihi+1], nIn[ilo:ihi+1]
+					for k, v := range px[base0+ilo : base0+ihi+1] {
+						a[k] += float64(v)
+						n[k]++
+					}
+					continue
+				}
+				a, row := acc[0], px[base0:base0+L]
+				t := float64(j) - jc
+				for i := ilo; i <= ihi; i++ {
+					nIn[i]++
+					xi := float64(i) + curv.shift(i, t)
+					i0 := int(math.Floor(xi))
+					if i0 >= 0 && i0+1 < L {
+						f := float32(xi - float64(i0))
+						a[i] += float64(row[i0]*(1-f) + row[i0+1]*f)
+					} else {
+						a[i] += float64(row[i])
+					}
+				}
 				continue
 			}
 			for i := ilo; i <= ihi; i++ {
@@ -1825,6 +1856,21 @@ func (o Options) workers() int {
 		return o.Workers
 	}
 	return runtime.GOMAXPROCS(0)
+}
+
+// inChunks calls fn(k, lo, hi) for the k-th of chunks contiguous parts of
+// [0, n), at most workers at a time, and waits for all. The parts do not
+// depend on workers, so neither does a result combined in chunk order.
+func inChunks(n, chunks, workers int, fn func(k, lo, hi int)) {
+	var g errgroup.Group
+	g.SetLimit(max(1, workers))
+	for k := 0; k < chunks; k++ {
+		g.Go(func() error {
+			fn(k, k*n/chunks, (k+1)*n/chunks)
+			return nil
+		})
+	}
+	g.Wait()
 }
 
 // inParts calls fn on [0, n) cut into at most workers contiguous parts of

@@ -21,23 +21,29 @@ type point struct{ x, y, w float64 }
 // levels returns the median and the robust σ (1.4826·MAD) of p, from at
 // most about 20 000 evenly spread samples, and the maximum.
 func levels(p plane) (med, sigma, peak float64) {
-	step := max(1, len(p.pix)/20000)
-	s := make([]float64, 0, len(p.pix)/step+1)
-	for i := 0; i < len(p.pix); i += step {
-		s = append(s, float64(p.pix[i]))
-	}
 	var top float32
 	for _, v := range p.pix {
 		if v > top {
 			top = v
 		}
 	}
-	peak = float64(top)
+	med, sigma = background(p)
+	return med, sigma, float64(top)
+}
+
+// background is levels without the peak: the median and robust σ of about
+// 20 000 evenly spaced samples.
+func background(p plane) (med, sigma float64) {
+	step := max(1, len(p.pix)/20000)
+	s := make([]float64, 0, len(p.pix)/step+1)
+	for i := 0; i < len(p.pix); i += step {
+		s = append(s, float64(p.pix[i]))
+	}
 	med = peaks.Median(s)
 	for i := range s {
 		s[i] = math.Abs(s[i] - med)
 	}
-	return med, 1.4826 * peaks.Median(s), peak
+	return med, 1.4826 * peaks.Median(s)
 }
 
 // brightPoints returns the pixels of p brighter than thr, weighted by their
@@ -185,7 +191,7 @@ func flatten(p plane) float64 {
 	surf := func(c [6]float64, u, v float64) float64 {
 		return c[0] + u*(c[1]+c[3]*u+c[4]*v) + v*(c[2]+c[5]*v)
 	}
-	med, sigma, _ := levels(p)
+	med, sigma := background(p)
 	var c [6]float64
 	c[0] = med
 	cut := 5 * sigma
