@@ -233,11 +233,12 @@ func flatten(p plane) float64 {
 		}
 	}
 	// The surface's range and median level over the grid.
+	lo, hi := math.Inf(1), math.Inf(-1)
 	for i := range vs {
 		res[i] = surf(c, xs[i], ys[i])
+		lo, hi = math.Min(lo, res[i]), math.Max(hi, res[i])
 	}
-	sort.Float64s(res)
-	level, rng := res[len(res)/2], res[len(res)-1]-res[0]
+	level, rng := peaks.Median(res), hi-lo
 	if rng < sigma {
 		return rng
 	}
@@ -311,10 +312,12 @@ func crossBands(p plane, ang, bg, sx, sy float64, all bool) []bandGuess {
 	step := math.Max(sx, sy)
 	prof := make([]float64, int((vmax-vmin)/step)+2)
 	for y := 0; y < p.h; y++ {
-		for x := 0; x < p.w; x++ {
-			fx, fy := (float64(x)+0.5)*sx-0.5, (float64(y)+0.5)*sy-0.5
-			v := -fx*sn + fy*cs
-			prof[int((v-vmin)/step)] += float64(p.at(x, y)) - bg
+		// v along the row, stepped from its first pixel.
+		fy := (float64(y)+0.5)*sy - 0.5
+		v, dv := -(0.5*sx-0.5)*sn+fy*cs, -sx*sn
+		for _, val := range p.pix[y*p.w : (y+1)*p.w] {
+			prof[int((v-vmin)/step)] += float64(val) - bg
+			v += dv
 		}
 	}
 	type bump struct{ c, h, level float64 }
