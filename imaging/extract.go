@@ -1499,17 +1499,46 @@ func lineCurvature(px []float32, stride, off, L, H, sd, workers int) *lineShape 
 		if near {
 			continue
 		}
-		// Centroid per row group, above the window's minimum.
-		var ts, cs, ws []float64
+		// Centroid per row group, above the window's minimum, in a window
+		// that follows the line: the groups are taken from the centre
+		// outwards, each row's window centred where the groups measured
+		// so far put the line (a line leaning 5° across a tall band moves
+		// ten pixels and more, far past a fixed window), then all groups
+		// once more about the fit through them.
 		per := (hi - lo + 1) / groups
-		for g := 0; g < groups; g++ {
+		gts, gcs, gws := make([]float64, groups), make([]float64, groups), make([]float64, groups)
+		var have []int
+		model := func() func(float64) float64 {
+			var t, c, w []float64
+			for _, g := range have {
+				t, c, w = append(t, gts[g]), append(c, gcs[g]), append(w, gws[g])
+			}
+			switch {
+			case len(t) >= 3:
+				if a, b, k, ok := quadFit(t, c, w); ok {
+					return func(x float64) float64 { return a + b*x + k*x*x }
+				}
+			case len(t) == 2:
+				if a, b, ok := lineFit(t, c, w); ok {
+					return func(x float64) float64 { return a + b*x }
+				}
+			case len(t) == 1:
+				return func(float64) float64 { return c[0] }
+			}
+			return func(float64) float64 { return float64(m) }
+		}
+		measure := func(g int, at func(float64) float64) bool {
 			var sw, sx, st float64
 			for j := lo + g*per; j < lo+(g+1)*per; j++ {
+				c := int(math.Round(at(float64(j) - jc)))
+				if c-r < 0 || c+r > L-1 {
+					return false
+				}
 				vmin := math.Inf(1)
-				for i := m - r; i <= m+r; i++ {
+				for i := c - r; i <= c+r; i++ {
 					vmin = math.Min(vmin, float64(px[stride*(j*L+i)+off]))
 				}
-				for i := m - r; i <= m+r; i++ {
+				for i := c - r; i <= c+r; i++ {
 					v := float64(px[stride*(j*L+i)+off]) - vmin
 					sw += v
 					sx += v * float64(i)
@@ -1517,13 +1546,29 @@ func lineCurvature(px []float32, stride, off, L, H, sd, workers int) *lineShape 
 				}
 			}
 			if sw <= 0 {
-				continue
+				return false
 			}
-			ts, cs, ws = append(ts, st/sw), append(cs, sx/sw), append(ws, sw)
+			gts[g], gcs[g], gws[g] = st/sw, sx/sw, sw
+			return true
 		}
-		if len(ts) < groups {
+		ok := true
+		for _, g := range []int{groups/2 - 1, groups / 2, groups/2 - 2, groups/2 + 1, groups/2 - 3, groups/2 + 2} {
+			if !measure(g, model()) {
+				ok = false
+				break
+			}
+			have = append(have, g)
+		}
+		if ok {
+			at := model()
+			for g := 0; g < groups && ok; g++ {
+				ok = measure(g, at)
+			}
+		}
+		if !ok {
 			continue
 		}
+		ts, cs, ws := gts, gcs, gws
 		_, b, k, ok := quadFit(ts, cs, ws)
 		if ok {
 			ms = append(ms, meas{float64(m), b, k, prof[m]})

@@ -311,13 +311,32 @@ func crossBands(p plane, ang, bg, sx, sy float64, all bool) []bandGuess {
 	}
 	step := math.Max(sx, sy)
 	prof := make([]float64, int((vmax-vmin)/step)+2)
+	count := make([]float64, len(prof))
 	for y := 0; y < p.h; y++ {
 		// v along the row, stepped from its first pixel.
 		fy := (float64(y)+0.5)*sy - 0.5
 		v, dv := -(0.5*sx-0.5)*sn+fy*cs, -sx*sn
 		for _, val := range p.pix[y*p.w : (y+1)*p.w] {
-			prof[int((v-vmin)/step)] += float64(val) - bg
+			k := int((v - vmin) / step)
+			prof[k] += float64(val) - bg
+			count[k]++
 			v += dv
+		}
+	}
+	// The frame's median (bg) sits a little below the background's mean
+	// where the noise is skewed (shot noise, JPEG): a small excess in
+	// every pixel that, summed along the band, lifted the whole profile,
+	// and the part of it left beside a band off the centre passed for a
+	// second band. Take the typical bin's mean excess off every bin.
+	var means []float64
+	for k, n := range count {
+		if n > 0 {
+			means = append(means, prof[k]/n)
+		}
+	}
+	if off := peaks.Median(means); len(means) > 0 {
+		for k, n := range count {
+			prof[k] -= off * n
 		}
 	}
 	type bump struct{ c, h, level float64 }

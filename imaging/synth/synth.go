@@ -78,7 +78,13 @@ type Params struct {
 	// R the half-diagonal. Negative: barrel (wide phone lenses), positive:
 	// pincushion. The first term of the usual radial model (common
 	// practice).
-	RadialK1  float64    `json:"radial_k1,omitempty"`
+	RadialK1 float64 `json:"radial_k1,omitempty"`
+	// PitchDeg turns the camera about its own horizontal axis (across the
+	// dispersion), degrees; positive looks down (the band moves up the
+	// frame, by f·tan(pitch)). A camera not square to
+	// the grating this way sees the line images converge (keystone: their
+	// lean changes along the band) and the band move off the centre.
+	PitchDeg  float64    `json:"pitch_deg,omitempty"`
 	NoNoise   bool       `json:"no_noise"` // render the expected image without noise
 	Seed      uint64     `json:"seed"`
 	Emissions []Emission `json:"emissions"`
@@ -163,6 +169,10 @@ type TruthLine struct {
 	Zero       bool    `json:"zero_order,omitempty"` // the zero order (NM is 0)
 	Band       int     `json:"band,omitempty"`       // 0: the first lamp; k: Stacked[k−1]
 	Dispersion float64 `json:"nm_per_px"`            // local dispersion along the band
+	// Dir is the unit direction in which the line image runs through
+	// (X, Y), towards larger η: square to the band for a camera square to
+	// the grating, leaning with pitch, conical diffraction or distortion.
+	Dir [2]float64 `json:"dir"`
 	PeakE      float64 `json:"peak_e"`               // expected peak signal, electrons, strongest channel
 }
 
@@ -183,6 +193,8 @@ func (p Params) Validate() error {
 		return errors.New("synth: focal length, PSF, line height and full well must be positive")
 	case p.ReadNoise < 0 || p.Background < 0 || p.PeakLevel < 0:
 		return errors.New("synth: noise, background and peak level must not be negative")
+	case math.Abs(p.PitchDeg) > 20:
+		return fmt.Errorf("synth: camera pitch %g° outside ±20°", p.PitchDeg)
 	case math.Abs(p.RadialK1) > 0.3:
 		return fmt.Errorf("synth: radial distortion %g outside ±0.3", p.RadialK1)
 	case math.Abs(p.TiltDeg) > 45:
@@ -218,6 +230,7 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 	tc := p.CameraAngleDeg * math.Pi / 180
 	st, ct := math.Sincos(p.TiltDeg * math.Pi / 180)
 	sc, cc := math.Sincos(tc)
+	sp, cp := math.Sincos(p.PitchDeg * math.Pi / 180)
 	d := p.dNM()
 	fw := p.FullWell
 
@@ -264,7 +277,9 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 		ky := math.Sin(eta)
 		kz := math.Sqrt(math.Max(0, 1-kx*kx-ky*ky))
 		xc, zc := kx*cc-kz*sc, kx*sc+kz*cc
-		xu, yu := cx+f*xc/zc, cy+f*ky/zc
+		yc := ky
+		yc, zc = yc*cp-zc*sp, yc*sp+zc*cp // the camera's pitch
+		xu, yu := cx+f*xc/zc, cy+f*yc/zc
 		return cx + (xu-cx)*ct - (yu-cy)*st, cy + (xu-cx)*st + (yu-cy)*ct
 	}
 	// distort moves a pinhole-image point by the lens's radial
@@ -294,13 +309,18 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 		return cx + ux, cy + uy
 	}
 	addTruth := func(t TruthLine, xu, kx, eta float64) {
-		if eta == 0 {
+		if eta == 0 && p.PitchDeg == 0 {
 			t.X = cx + (xu-cx)*ct
 			t.Y = cy + (xu-cx)*st
 		} else {
 			t.X, t.Y = at(kx, eta)
 		}
 		t.X, t.Y = distort(t.X, t.Y)
+		// The line image's direction: a central difference over ±1e-4 rad.
+		x1, y1 := distort(at(kx, eta-1e-4))
+		x2, y2 := distort(at(kx, eta+1e-4))
+		n := math.Hypot(x2-x1, y2-y1)
+		t.Dir = [2]float64{(x2 - x1) / n, (y2 - y1) / n}
 		t.InFrame = t.X >= 0 && t.X <= float64(W-1) && t.Y >= 0 && t.Y <= float64(H-1)
 		truth.Lines = append(truth.Lines, t)
 	}
@@ -366,6 +386,11 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 	sEta := p.PSFSigmaPX / f
 	// Bounding box of the bands in the image.
 	yMargin := p.LineHeightPX/2 + 6*p.PSFSigmaPX
+	if p.PitchDeg != 0 {
+		// The band moves by f·tan(pitch) and its lines lean: render the
+		// whole height.
+		yMargin = float64(W + H)
+	}
 	vLo, vHi := cy-yMargin, cy+yMargin
 	for _, sl := range p.Stacked {
 		vLo, vHi = math.Min(vLo, cy+sl.OffsetPX-yMargin), math.Max(vHi, cy+sl.OffsetPX+yMargin)
@@ -409,6 +434,14 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 			xu := dx*ct + dy*st // unrolled, relative to the principal point
 			yu := -dx*st + dy*ct
 			X, Y := xu/f, yu/f
+			if p.PitchDeg != 0 {
+				// The ray in the camera's frame before its pitch.
+				y, z := Y*cp+sp, -Y*sp+cp
+				if z <= 0 {
+					continue
+				}
+				X, Y = X/z, y/z
+			}
 			nrm := math.Sqrt(1 + X*X + Y*Y)
 			ky := Y / nrm
 			eta := math.Asin(ky)
