@@ -1484,28 +1484,19 @@ func lineCurvature(px []float32, stride, off, L, H, sd, workers int) *lineShape 
 	}
 	sort.Slice(maxima, func(a, b int) bool { return prof[maxima[a]] > prof[maxima[b]] })
 	type meas struct{ col, b, k, w float64 }
-	var ms []meas
 	const r, groups = 4, 6
-	for _, m := range maxima {
-		if len(ms) == 12 || prof[m] < 0.1*prof[maxima[0]] {
-			break
-		}
-		near := false
-		for _, q := range ms {
-			if math.Abs(q.col-float64(m)) < 8 {
-				near = true
-			}
-		}
-		if near {
-			continue
-		}
-		// Centroid per row group, above the window's minimum, in a window
-		// that follows the line: the groups are taken from the centre
-		// outwards, each row's window centred where the groups measured
-		// so far put the line (a line leaning 5° across a tall band moves
-		// ten pixels and more, far past a fixed window), then all groups
-		// once more about the fit through them.
-		per := (hi - lo + 1) / groups
+	per := (hi - lo + 1) / groups
+	// shapeOf measures line m: its centroid per row group, above the
+	// window's minimum, fitted with a + b·t + k·t². With follow unset
+	// every group's window sits at the line's centre-row column; set, the
+	// window follows the line, the groups taken from the centre outwards,
+	// each row's window centred where the groups measured so far put the
+	// line (a line leaning 5° across a tall band moves ten pixels and
+	// more, far past a fixed window), then all groups once more about the
+	// fit through them. left says the fixed windows lost the line: its
+	// ends lie more than half a window off, or a group holds less than
+	// half the light of another.
+	shapeOf := func(m int, follow bool) (b, k float64, left, ok bool) {
 		gts, gcs, gws := make([]float64, groups), make([]float64, groups), make([]float64, groups)
 		var have []int
 		model := func() func(float64) float64 {
@@ -1551,27 +1542,62 @@ func lineCurvature(px []float32, stride, off, L, H, sd, workers int) *lineShape 
 			gts[g], gcs[g], gws[g] = st/sw, sx/sw, sw
 			return true
 		}
-		ok := true
-		for _, g := range []int{groups/2 - 1, groups / 2, groups/2 - 2, groups/2 + 1, groups/2 - 3, groups/2 + 2} {
-			if !measure(g, model()) {
-				ok = false
+		if !follow {
+			for g := 0; g < groups; g++ {
+				if !measure(g, func(float64) float64 { return float64(m) }) {
+					return 0, 0, false, false
+				}
+				have = append(have, g)
+			}
+			first := model()
+			left = slices.Min(gws) < 0.5*slices.Max(gws) ||
+				math.Max(math.Abs(first(gts[0])-float64(m)), math.Abs(first(gts[groups-1])-float64(m))) > r/2
+		} else {
+			for _, g := range []int{groups/2 - 1, groups / 2, groups/2 - 2, groups/2 + 1, groups/2 - 3, groups/2 + 2} {
+				if !measure(g, model()) {
+					return 0, 0, false, false
+				}
+				have = append(have, g)
+			}
+			at := model()
+			for g := 0; g < groups; g++ {
+				if !measure(g, at) {
+					return 0, 0, false, false
+				}
+			}
+		}
+		_, b, k, ok = quadFit(gts, gcs, gws)
+		return b, k, left, ok
+	}
+	// Every line with fixed windows first; if a strong line left its
+	// window, all are measured again following them (a faint line's noisy
+	// centres, followed, wander off, so lines are followed only when the
+	// strong ones show they must be: neighbours lean alike).
+	var ms []meas
+	for _, follow := range []bool{false, true} {
+		ms = ms[:0]
+		anyLeft := false
+		for _, m := range maxima {
+			if len(ms) == 12 || prof[m] < 0.1*prof[maxima[0]] {
 				break
 			}
-			have = append(have, g)
-		}
-		if ok {
-			at := model()
-			for g := 0; g < groups && ok; g++ {
-				ok = measure(g, at)
+			near := false
+			for _, q := range ms {
+				if math.Abs(q.col-float64(m)) < 8 {
+					near = true
+				}
+			}
+			if near {
+				continue
+			}
+			b, k, left, ok := shapeOf(m, follow)
+			if ok {
+				ms = append(ms, meas{float64(m), b, k, prof[m]})
+				anyLeft = anyLeft || (left && prof[m] >= 0.3*prof[maxima[0]])
 			}
 		}
-		if !ok {
-			continue
-		}
-		ts, cs, ws := gts, gcs, gws
-		_, b, k, ok := quadFit(ts, cs, ws)
-		if ok {
-			ms = append(ms, meas{float64(m), b, k, prof[m]})
+		if !anyLeft {
+			break
 		}
 	}
 	if len(ms) < 2 {

@@ -172,8 +172,8 @@ type TruthLine struct {
 	// Dir is the unit direction in which the line image runs through
 	// (X, Y), towards larger η: square to the band for a camera square to
 	// the grating, leaning with pitch, conical diffraction or distortion.
-	Dir [2]float64 `json:"dir"`
-	PeakE      float64 `json:"peak_e"`               // expected peak signal, electrons, strongest channel
+	Dir   [2]float64 `json:"dir"`
+	PeakE float64    `json:"peak_e"` // expected peak signal, electrons, strongest channel
 }
 
 // Truth is everything Render knows about the picture it made.
