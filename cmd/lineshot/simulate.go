@@ -46,6 +46,7 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 	second := fs.String("second-lamp", "", "a second lamp whose band lies beside the first (two lamps photographed together)")
 	secondOff := fs.Float64("second-offset", 0, "how far below the first band the second lies, px (negative: above); 0: a fifth of the image height")
 	k1 := fs.Float64("distortion", 0, "lens radial distortion k1 (negative: barrel, as wide phone lenses; positive: pincushion)")
+	pitch := fs.Float64("pitch", 0, "camera turned about its horizontal axis, degrees (positive looks down): line images converge")
 	gradient := fs.Float64("background-gradient", 0, "room-light slope: background change from left to right edge, fraction of full scale")
 	size := fs.String("size", "1920x1080", "image size WIDTHxHEIGHT in px")
 	focal := fs.Float64("focal-px", 0, "camera focal length in px; 0: frame 380-720 nm across 85% of the width")
@@ -87,7 +88,7 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 	p := synth.Params{Width: w, Height: h, LinesPerMM: *lpm, Order: *order, FocalPX: *focal, CameraAngleDeg: *camAngle,
 		TiltDeg: *tilt, PSFSigmaPX: *psf, LineHeightPX: *height, PeakLevel: *peak, FullWell: *fullWell,
 		ReadNoise: *readNoise, Background: *bg, Seed: *seed, Emissions: emissions(l),
-		Orders: *orders, ZeroOrderGain: *zeroGain, BackgroundGradient: *gradient, RadialK1: *k1}
+		Orders: *orders, ZeroOrderGain: *zeroGain, BackgroundGradient: *gradient, RadialK1: *k1, PitchDeg: *pitch}
 	if *second != "" {
 		l2, err := calibrate.LampByName(*second)
 		if err != nil {
