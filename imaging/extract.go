@@ -451,6 +451,16 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 	}
 	gradient := flatten(sp)
 	bg, noise, peak := levels(sp)
+	// A lit bench: the band is looked for on the lines' contrast, and
+	// measured with the background beside it taken as a slope.
+	lit := false
+	if glow := glowRange(small, sp, lut); glow > 0 {
+		if c, err := lineContrast(sp, 11); err == nil {
+			gradient, lit = math.Max(gradient, glow), true
+			sp = c
+			bg, noise, peak = levels(sp)
+		}
+	}
 	if !opt.ROI.Empty() {
 		// Only the user's rectangle may hold the band: blank the rest.
 		r := image.Rect(opt.ROI.Min.X/k, opt.ROI.Min.Y/k, (opt.ROI.Max.X+k-1)/k, (opt.ROI.Max.Y+k-1)/k)
@@ -518,7 +528,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 		// direction than one band's: settle the strongest band's angle
 		// first, then look for the bands again along it (the bands are
 		// parallel).
-		if s, err := refineBand(fr, tables, clipAt, opt, ang, guesses[strongestGuess(guesses)], bg, noise, gradient); err == nil {
+		if s, err := refineBand(fr, tables, clipAt, opt, ang, guesses[strongestGuess(guesses)], bg, noise, gradient, lit); err == nil {
 			ang = s.AngleDeg
 			if g := crossBands(sp, ang, bg, sx, sy, true); len(g) > 0 {
 				guesses = g
@@ -527,7 +537,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 	}
 	strips := make([]*Strip, len(guesses))
 	for k, g := range guesses {
-		s, err := refineBand(fr, tables, clipAt, opt, ang, g, bg, noise, gradient)
+		s, err := refineBand(fr, tables, clipAt, opt, ang, g, bg, noise, gradient, lit)
 		if err != nil {
 			if !all {
 				return nil, err
@@ -558,7 +568,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 			}
 			g := guesses[k]
 			g.bowC2 = strips[ref].Bow.C2 * (g.vc - vAxis) / (guesses[ref].vc - vAxis)
-			if s, err := refineBand(fr, tables, clipAt, opt, ang, g, bg, noise, gradient); err == nil && !s.Bow.zero() {
+			if s, err := refineBand(fr, tables, clipAt, opt, ang, g, bg, noise, gradient, lit); err == nil && !s.Bow.zero() {
 				s.Timing.Locate = located
 				s.BandIndex, s.BandCount = k, len(guesses)
 				strips[k] = &s
@@ -601,7 +611,7 @@ type bandGuess struct {
 }
 
 // refineBand measures one band on the full frame and straightens it.
-func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float64, g bandGuess, bg, noise, gradient float64) (Strip, error) {
+func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float64, g bandGuess, bg, noise, gradient float64, lit bool) (Strip, error) {
 	vc, hh := g.vc, g.hh
 	t1 := time.Now()
 	// 2. On the full frame, in a region around the band: measure the band's
@@ -627,6 +637,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 	}
 	defer func() { release() }()
 	var rbg float64
+	var find plane  // where the band's place is measured: rp, or its contrast on a lit bench
 	bowReach := 0.0 // room the region needs for a bowed band
 	cut := false
 	// prepare makes sure the linearised region holds the band as now
@@ -644,6 +655,15 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 			release()
 			rp, rgb, clip = linearRegion(fr, roi, tables, clipAt, opt.Profile, opt.Channels, opt.workers())
 			rbg, _ = background(rp)
+			find = rp
+			if lit {
+				// Stray light across the region: the band's place and
+				// centre line are measured on the lines' contrast.
+				if c, err := lineContrast(rp, 31); err == nil {
+					find = c
+					rbg, _ = background(find)
+				}
+			}
 		}
 		return nil
 	}
@@ -667,7 +687,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		if err := prepare(); err != nil {
 			return Strip{}, err
 		}
-		if vc2, hh2, ok := crossBandRegion(rp, roi, ang, rbg, vc, math.Min(hh+side, g.reach), opt.workers()); ok {
+		if vc2, hh2, ok := crossBandRegion(find, roi, ang, rbg, vc, math.Min(hh+side, g.reach), opt.workers()); ok {
 			vc, hh = vc2, hh2
 			cut = false
 		} else {
@@ -678,12 +698,14 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		if !ok || u1-u0 < 16 {
 			return Strip{}, fmt.Errorf("%w: the band's centre line leaves the frame", ErrNoBand)
 		}
-		if round == 0 {
-			fit = centreOnly(rp.pix, roi, ang, vc, hh, side, u0, u1, opt.workers())
+		if round == 0 || lit {
+			// (On a lit bench every round: the straightened profile
+			// channel still holds the stray light, the contrast not.)
+			fit = centreOnly(find.pix, roi, ang, vc, hh, side, u0, u1, opt.workers())
 		} else {
 			data, nc := pick()
 			var err error
-			if s, fit, err = straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, Bow{}, opt.workers()); err != nil {
+			if s, fit, err = straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, Bow{}, opt.workers(), lit); err != nil {
 				return Strip{}, err
 			}
 			done = true
@@ -716,9 +738,13 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 			return Strip{}, fmt.Errorf("%w: the band's centre line leaves the frame", ErrNoBand)
 		}
 		data, nc := pick()
-		var err error
-		if s, fit, err = straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, Bow{}, opt.workers()); err != nil {
+		sf, ff, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, Bow{}, opt.workers(), lit)
+		if err != nil {
 			return Strip{}, err
+		}
+		s = sf
+		if !lit {
+			fit = ff
 		}
 	}
 	// A band away from the optical axis (a second lamp's slit image above
@@ -728,7 +754,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 	var bow Bow
 	L := float64(len(s.Profile))
 	jc := float64(int(math.Ceil(hh)) + int(math.Ceil(side)))
-	own := fit.qok && math.Abs(fit.q2)*(L/2)*(L/2) > 0.3
+	own := fit.qok && math.Abs(fit.q2)*(L/2)*(L/2) > 0.3 && fit.qF > 9
 	hinted := !own && g.bowC2 != 0 && len(fit.pts) >= 2 && math.Abs(g.bowC2)*(L/2)*(L/2) > 0.3
 	if own {
 		bow = Bow{C0: fit.q0 - jc, C1: fit.q1, C2: fit.q2, Mid: fit.mid}
@@ -751,7 +777,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 			return Strip{}, err
 		}
 		data, nc := pick()
-		sb, fb, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow, opt.workers())
+		sb, fb, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow, opt.workers(), lit)
 		if err == nil {
 			s, fit = sb, fb
 			s.bowMeasured = own
@@ -765,7 +791,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		// in one channel can be measured in another.
 		f32Pool.put(rgb)
 		rgb = regionRGB(fr, roi, tables)
-		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow, opt.workers()); err == nil {
+		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow, opt.workers(), lit); err == nil {
 			s, fit = s4, fit4
 		}
 	}
@@ -1072,7 +1098,7 @@ func clipOrNil(clip []uint8, any uint8) []uint8 {
 // but only the band rows with a margin (the core) and the side rows the
 // background is taken from are warped: a third less work on a typical
 // band than warping every row.
-func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, profile string, bow Bow, workers int) (Strip, centreFit, error) {
+func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, vc, hh, side, u0, u1 float64, profile string, bow Bow, workers int, lit bool) (Strip, centreFit, error) {
 	w, h := roi.Dx(), roi.Dy()
 	L := int(math.Floor(u1-u0)) + 1
 	half := int(math.Ceil(hh))
@@ -1147,6 +1173,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	nbg := 2 * nSide
 	bg := make([]float32, nc*L*nbg) // column-major: bg[(c*L+i)*nbg + k]
 	nb := make([]int, L)
+	nTop := make([]int, L)
 	// Columns are independent (each sums its own rows in order): the
 	// parts of the strip's width run concurrently, with the same result.
 	var nBandAll, nClipAll atomic.Int64
@@ -1268,6 +1295,9 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 						bg[(c*L+i)*nbg+nb[i]] = src[base+c]
 					}
 					nb[i]++
+					if j < sd {
+						nTop[i] = nb[i] // rows run top to bottom: the top side's samples come first
+					}
 				}
 			}
 		}
@@ -1287,12 +1317,26 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 					for k := range v {
 						v[k] = float64(bg[(c*L+i)*nbg+k])
 					}
-					bgv = medianOf(v)
-					if c == nc-1 && nb[i] >= 4 {
-						for k := range v {
-							v[k] = math.Abs(v[k] - bgv)
+					if nt := nTop[i]; lit && nt > 0 && nt < len(v) {
+						// Stray light sloping across the band: the level
+						// at the band is midway between the two sides',
+						// and each side scatters about its own.
+						top, bot := medianOf(v[:nt]), medianOf(v[nt:])
+						bgv = (top + bot) / 2
+						if c == nc-1 && nb[i] >= 4 {
+							for k := range v {
+								v[k] = math.Abs(v[k] - map[bool]float64{true: top, false: bot}[k < nt])
+							}
+							spread[i] = medianOf(v)
 						}
-						spread[i] = medianOf(v)
+					} else {
+						bgv = medianOf(v)
+						if c == nc-1 && nb[i] >= 4 {
+							for k := range v {
+								v[k] = math.Abs(v[k] - bgv)
+							}
+							spread[i] = medianOf(v)
+						}
 					}
 				}
 				if nIn[i] > 0 {
@@ -1816,6 +1860,7 @@ type centreFit struct {
 	// mid)², when enough strong lines spread along the strip (qok).
 	q0, q1, q2, mid float64
 	qok             bool
+	qF              float64 // the bow's F ratio against the straight line (+Inf: not judged)
 	// pts are the centre samples the fits used: column, row, weight.
 	pts [][3]float64
 }
@@ -1916,6 +1961,26 @@ func fitCentreLine(px []float32, stride, off, L, H int, prof []float64) centreFi
 			ts[k] = x - f.mid
 		}
 		f.q0, f.q1, f.q2, f.qok = quadFit(ts, cs, ws)
+		// Is the bow more than the centres' scatter? With five centres
+		// or more: the drop in the weighted residual sum from the line to
+		// the parabola against the parabola's residual variance (an F
+		// ratio, 1 and n−3 degrees of freedom); 9 is about 3σ. A dim
+		// band's scattered centres had made an 8 px bow of a straight band.
+		if f.qok && len(xs) >= 5 {
+			var rl, rq float64
+			for k, x := range xs {
+				dl := cs[k] - (f.offset + f.slope*x)
+				dq := cs[k] - (f.q0 + f.q1*ts[k] + f.q2*ts[k]*ts[k])
+				rl += ws[k] * dl * dl
+				rq += ws[k] * dq * dq
+			}
+			f.qF = math.Inf(1)
+			if rq > 0 {
+				f.qF = (rl - rq) / (rq / float64(len(xs)-3))
+			}
+		} else {
+			f.qF = math.Inf(1) // too few centres to judge: taken as it is
+		}
 	}
 	return f
 }

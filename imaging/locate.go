@@ -1,8 +1,13 @@
 package imaging
 
 import (
+	"errors"
+	"image"
 	"math"
 	"sort"
+	"unsafe"
+
+	"gocv.io/x/gocv"
 
 	"lineshot/peaks"
 )
@@ -386,4 +391,100 @@ func crossBands(p plane, ang, bg, sx, sy float64, all bool) []bandGuess {
 		out[k] = bandGuess{vc: vmin + (b.c+0.5)*step, hh: math.Max(b.h*step, 2), reach: reach * step, level: b.level}
 	}
 	return out
+}
+
+// glowRange tells a lit bench's stray light (a patch of glow, too round
+// and too local for flatten's quadratic surface) on the reduced frame:
+// the median over a window a third of the frame's smaller side, on a copy
+// of small (the reduced frame's codes) reduced to about 128 px, linearised
+// (a median commutes with the transfer curve). A spectrum's lines fill
+// little of such a window. It returns the median's range across the frame
+// when that exceeds 8σ of the pixel-to-pixel noise of sp (the frame's
+// spread is no measure here: a glow widens it), else 0.
+func glowRange(small gocv.Mat, sp plane, lut []float32) float64 {
+	if small.Type() != gocv.MatTypeCV8UC3 {
+		return 0 // 16-bit frames: OpenCV's large median is 8-bit only
+	}
+	w, h := small.Cols(), small.Rows()
+	q := max(1, int(math.Ceil(float64(max(w, h))/128)))
+	tw, th := max(8, w/q), max(8, h/q)
+	tiny := gocv.NewMat()
+	defer tiny.Close()
+	gocv.Resize(small, &tiny, image.Pt(tw, th), 0, 0, gocv.InterpolationArea)
+	med := gocv.NewMat()
+	defer med.Close()
+	gocv.MedianBlur(tiny, &med, max(3, min(tw, th)/3)|1)
+	codes, err := med.DataPtrUint8()
+	if err != nil || len(codes) < 3*tw*th {
+		return 0
+	}
+	lo, hi := math.Inf(1), math.Inf(-1)
+	for i := 0; i < tw*th; i++ {
+		v := float64(lut[codes[3*i]] + lut[codes[3*i+1]] + lut[codes[3*i+2]])
+		lo, hi = math.Min(lo, v), math.Max(hi, v)
+	}
+	if hi-lo < 8*pixelNoise(sp) {
+		return 0
+	}
+	return hi - lo
+}
+
+// pixelNoise is the noise σ of p from the differences of horizontally
+// neighbouring pixels (robust MAD over about 20 000 of them, ÷√2): smooth
+// backgrounds and glows hardly change it.
+func pixelNoise(p plane) float64 {
+	step := max(1, p.w*p.h/20000)
+	var d []float64
+	for i := 0; i+1 < len(p.pix); i += step {
+		if (i+1)%p.w != 0 {
+			d = append(d, float64(p.pix[i+1]-p.pix[i]))
+		}
+	}
+	if len(d) == 0 {
+		return 0
+	}
+	med := peaks.Median(d)
+	for k := range d {
+		d[k] = math.Abs(d[k] - med)
+	}
+	return 1.4826 * peaks.Median(d) / math.Sqrt2
+}
+
+// lineContrast returns p less its smooth background for a lit bench: the
+// lower of two openings (erosion then dilation) of p, by a horizontal
+// and by a vertical run of n pixels. Every line image is narrow along the
+// dispersion, so one of the two openings takes it away whatever the band's
+// direction, while a glow wider than n passes both almost whole: what is
+// left is the lines' contrast, on a background near 0.
+// (p less the lower opening is the larger of the two differences.)
+func lineContrast(p plane, n int) (plane, error) {
+	src, err := gocv.NewMatFromBytes(p.h, p.w, gocv.MatTypeCV32FC1, unsafe.Slice((*byte)(unsafe.Pointer(&p.pix[0])), 4*len(p.pix)))
+	if err != nil {
+		return plane{}, err
+	}
+	defer src.Close()
+	out := plane{w: p.w, h: p.h, pix: make([]float32, len(p.pix))}
+	copy(out.pix, p.pix)
+	for _, k := range []image.Point{{n, 1}, {1, n}} {
+		kernel := gocv.GetStructuringElement(gocv.MorphRect, k)
+		opened := gocv.NewMat()
+		gocv.MorphologyEx(src, &opened, gocv.MorphOpen, kernel)
+		kernel.Close()
+		o, err := opened.DataPtrFloat32()
+		if err != nil || len(o) != len(p.pix) {
+			opened.Close()
+			return plane{}, errors.New("locate: OpenCV returned no opening")
+		}
+		if k.X > 1 {
+			for i, v := range o {
+				out.pix[i] = p.pix[i] - v
+			}
+		} else {
+			for i, v := range o {
+				out.pix[i] = max(out.pix[i], p.pix[i]-v)
+			}
+		}
+		opened.Close()
+	}
+	return out, nil
 }

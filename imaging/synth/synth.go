@@ -68,6 +68,10 @@ type Params struct {
 	// change from the left edge of the frame to the right, fraction of
 	// full scale (the background stays at Background in the middle).
 	BackgroundGradient float64 `json:"background_gradient,omitempty"`
+	// Glows are patches of stray light (a lit bench, a desk lamp's
+	// reflection, the lamp housing): each adds Level (fraction of full
+	// scale, white) at its centre, falling off as a Gaussian of σ SigmaPX.
+	Glows []Glow `json:"glows,omitempty"`
 	// Stacked are further lamps seen through the same grating, their slit
 	// images above or below the first (two lamps photographed together,
 	// one band over the other). Their strengths share the first lamp's
@@ -88,6 +92,15 @@ type Params struct {
 	NoNoise   bool       `json:"no_noise"` // render the expected image without noise
 	Seed      uint64     `json:"seed"`
 	Emissions []Emission `json:"emissions"`
+}
+
+// Glow is a round patch of stray white light centred at (X, Y),
+// original-image px.
+type Glow struct {
+	X       float64 `json:"x"`
+	Y       float64 `json:"y"`
+	SigmaPX float64 `json:"sigma_px"`
+	Level   float64 `json:"level"`
 }
 
 // StackedLamp is a further lamp in the frame: its lines, and how far its
@@ -193,6 +206,8 @@ func (p Params) Validate() error {
 		return errors.New("synth: focal length, PSF, line height and full well must be positive")
 	case p.ReadNoise < 0 || p.Background < 0 || p.PeakLevel < 0:
 		return errors.New("synth: noise, background and peak level must not be negative")
+	case !glowsValid(p.Glows):
+		return errors.New("synth: a glow needs σ > 0 and a level in 0..1")
 	case math.Abs(p.PitchDeg) > 20:
 		return fmt.Errorf("synth: camera pitch %g° outside ±20°", p.PitchDeg)
 	case math.Abs(p.RadialK1) > 0.3:
@@ -377,6 +392,12 @@ func Render(p Params) (*image.RGBA, Truth, error) {
 			if W > 1 {
 				b += p.BackgroundGradient * (float64(i)/float64(W-1) - 0.5)
 			}
+			for _, g := range p.Glows {
+				dx, dy := (float64(i)-g.X)/g.SigmaPX, (float64(j)-g.Y)/g.SigmaPX
+				if d2 := dx*dx + dy*dy; d2 < 50 {
+					b += g.Level * math.Exp(-d2/2)
+				}
+			}
 			v := float32(math.Max(0, b) * fw)
 			base := 3 * (j*W + i)
 			sig[base], sig[base+1], sig[base+2] = v, v, v
@@ -522,4 +543,13 @@ func srgbLUT() []uint8 {
 		lut[i] = uint8(math.Round(s * 255))
 	}
 	return lut
+}
+
+func glowsValid(gs []Glow) bool {
+	for _, g := range gs {
+		if !(g.SigmaPX > 0) || !(g.Level >= 0 && g.Level <= 1) {
+			return false
+		}
+	}
+	return true
 }
