@@ -449,6 +449,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 	if err != nil {
 		return nil, err
 	}
+	defer f32Pool.put(sp.pix) // (sp may be replaced below; this buffer is the pool's)
 	gradient := flatten(sp)
 	bg, noise, peak := levels(sp)
 	// A lit bench: the band is looked for on the lines' contrast, and
@@ -855,7 +856,7 @@ func sumPlane(m gocv.Mat, lut []float32, workers int) (plane, error) {
 	if err != nil {
 		return plane{}, err
 	}
-	p := plane{w: fr.w, h: fr.h, pix: make([]float32, fr.w*fr.h)}
+	p := plane{w: fr.w, h: fr.h, pix: f32Pool.get(fr.w * fr.h)} // every element written below
 	inParts(len(p.pix), workers, 1<<16, func(lo, hi int) {
 		for i := lo; i < hi; i++ {
 			if fr.bytes8 != nil {

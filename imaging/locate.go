@@ -44,11 +44,11 @@ func background(p plane) (med, sigma float64) {
 	for i := 0; i < len(p.pix); i += step {
 		s = append(s, float64(p.pix[i]))
 	}
-	med = peaks.Median(s)
+	med = peaks.MedianInPlace(s)
 	for i := range s {
 		s[i] = math.Abs(s[i] - med)
 	}
-	return med, 1.4826 * peaks.Median(s)
+	return med, 1.4826 * peaks.MedianInPlace(s)
 }
 
 // brightPoints returns the pixels of p brighter than thr, weighted by their
@@ -234,7 +234,7 @@ func flatten(p plane) float64 {
 		}
 		copy(c[:], nc)
 		if iter > 0 {
-			cut = 3 * 1.4826 * peaks.Median(res)
+			cut = 3 * 1.4826 * peaks.MedianInPlace(res)
 		}
 	}
 	// The surface's range and median level over the grid.
@@ -243,7 +243,7 @@ func flatten(p plane) float64 {
 		res[i] = surf(c, xs[i], ys[i])
 		lo, hi = math.Min(lo, res[i]), math.Max(hi, res[i])
 	}
-	level, rng := peaks.Median(res), hi-lo
+	level, rng := peaks.MedianInPlace(res), hi-lo
 	if rng < sigma {
 		return rng
 	}
@@ -339,7 +339,7 @@ func crossBands(p plane, ang, bg, sx, sy float64, all bool) []bandGuess {
 			means = append(means, prof[k]/n)
 		}
 	}
-	if off := peaks.Median(means); len(means) > 0 {
+	if off := peaks.MedianInPlace(means); len(means) > 0 {
 		for k, n := range count {
 			prof[k] -= off * n
 		}
@@ -443,11 +443,11 @@ func pixelNoise(p plane) float64 {
 	if len(d) == 0 {
 		return 0
 	}
-	med := peaks.Median(d)
+	med := peaks.MedianInPlace(d)
 	for k := range d {
 		d[k] = math.Abs(d[k] - med)
 	}
-	return 1.4826 * peaks.Median(d) / math.Sqrt2
+	return 1.4826 * peaks.MedianInPlace(d) / math.Sqrt2
 }
 
 // lineContrast returns p less its smooth background for a lit bench: the

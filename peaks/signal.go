@@ -95,8 +95,16 @@ func LevelNoise(y []float64) float64 {
 // sorting was half of Find's time.
 func Median(v []float64) float64 { return median(v) }
 
+// MedianInPlace is Median for a scratch slice: it reorders v instead of
+// copying it.
+func MedianInPlace(v []float64) float64 { return medianOf(v) }
+
 func median(v []float64) float64 {
-	s := append([]float64(nil), v...)
+	return medianOf(append([]float64(nil), v...))
+}
+
+// medianOf is the median of s, which it reorders.
+func medianOf(s []float64) float64 {
 	n := len(s)
 	if n == 0 {
 		return math.NaN()

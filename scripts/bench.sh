@@ -19,7 +19,7 @@ go test -run '^$' -bench 'BenchmarkDecode|BenchmarkExtract' -benchtime 5x ./imag
 echo "== whole measurement against decode (same run)"
 go test -run '^$' -bench 'BenchmarkMeasure' -benchtime 5x ./cmd/lineshot | grep Benchmark | tee "$tmp/measure.txt"
 echo "== batch, 1 and 2 workers"
-go test -run '^$' -bench 'BenchmarkBatch' -benchtime 2x ./cmd/lineshot | grep Benchmark | tee "$tmp/batch.txt"
+go test -run '^$' -bench 'BenchmarkBatch' -benchtime 4x ./cmd/lineshot | grep Benchmark | tee "$tmp/batch.txt"
 
 echo
 echo "== ratios"
