@@ -1018,7 +1018,7 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 		if fast {
 			// The common case (8-bit photo, one channel) without the
 			// general loop's branches and calls: half the time.
-			lumaTab, c8 := tables.luma.exact, uint8(min(clipAt, 255))
+			lumaTab := tables.luma.exact
 			for y := y0; y < y1; y++ {
 				src := fr.bytes8[3*((y+roi.Min.Y)*fr.w+roi.Min.X) : 3*((y+roi.Min.Y)*fr.w+roi.Max.X)]
 				dst := pp.pix[y*w : (y+1)*w]
@@ -1030,16 +1030,7 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 					} else {
 						dst[x] = lumaTab[299*int(r)+587*int(g)+114*int(b)]
 					}
-					var cb uint8
-					if r >= c8 {
-						cb |= 1
-					}
-					if g >= c8 {
-						cb |= 2
-					}
-					if b >= c8 {
-						cb |= 4
-					}
+					cb := clipBits(int(r), int(g), int(b), clipAt)
 					cl[x] = cb
 					seen |= cb
 				}
@@ -1058,16 +1049,7 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 					if all {
 						rgb[4*dst], rgb[4*dst+1], rgb[4*dst+2], rgb[4*dst+3] = lut[r], lut[g], lut[b], tables.luma.of(r, g, b)
 					}
-					var cb uint8
-					if r >= clipAt {
-						cb |= 1
-					}
-					if g >= clipAt {
-						cb |= 2
-					}
-					if b >= clipAt {
-						cb |= 4
-					}
+					cb := clipBits(r, g, b, clipAt)
 					clip[dst] = cb
 					seen |= cb
 				}
@@ -1076,6 +1058,22 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 		anyClip.Or(uint32(seen))
 	})
 	return pp, rgb, clipOrNil(clip, uint8(anyClip.Load()))
+}
+
+// clipBits marks which of code values r, g, b reach the clip level: bit 0
+// R, bit 1 G, bit 2 B.
+func clipBits(r, g, b, at int) uint8 {
+	var cb uint8
+	if r >= at {
+		cb |= 1
+	}
+	if g >= at {
+		cb |= 2
+	}
+	if b >= at {
+		cb |= 4
+	}
+	return cb
 }
 
 // clipOrNil returns the clip mask, or nil (its buffer back in the pool)
