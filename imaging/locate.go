@@ -402,15 +402,26 @@ func crossBands(p plane, ang, bg, sx, sy float64, all bool) []bandGuess {
 // when that exceeds 8σ of the pixel-to-pixel noise of sp (the frame's
 // spread is no measure here: a glow widens it), else 0.
 func glowRange(small gocv.Mat, sp plane, lut []float32) float64 {
-	if small.Type() != gocv.MatTypeCV8UC3 {
-		return 0 // 16-bit frames: OpenCV's large median is 8-bit only
-	}
 	w, h := small.Cols(), small.Rows()
 	q := max(1, int(math.Ceil(float64(max(w, h))/128)))
 	tw, th := max(8, w/q), max(8, h/q)
 	tiny := gocv.NewMat()
 	defer tiny.Close()
 	gocv.Resize(small, &tiny, image.Pt(tw, th), 0, 0, gocv.InterpolationArea)
+	// OpenCV's large median takes 8-bit codes only: a 16-bit frame's are
+	// scaled down to them, and read back through the 16-bit table.
+	scale := 1
+	switch small.Type() {
+	case gocv.MatTypeCV8UC3:
+	case gocv.MatTypeCV16UC3:
+		tiny.ConvertToWithParams(&tiny, gocv.MatTypeCV8UC3, 1.0/257, 0)
+		scale = 257
+	default:
+		return 0
+	}
+	if len(lut) < 255*scale+1 {
+		return 0
+	}
 	med := gocv.NewMat()
 	defer med.Close()
 	gocv.MedianBlur(tiny, &med, max(3, min(tw, th)/3)|1)
@@ -420,7 +431,7 @@ func glowRange(small gocv.Mat, sp plane, lut []float32) float64 {
 	}
 	lo, hi := math.Inf(1), math.Inf(-1)
 	for i := 0; i < tw*th; i++ {
-		v := float64(lut[codes[3*i]] + lut[codes[3*i+1]] + lut[codes[3*i+2]])
+		v := float64(lut[scale*int(codes[3*i])] + lut[scale*int(codes[3*i+1])] + lut[scale*int(codes[3*i+2])])
 		lo, hi = math.Min(lo, v), math.Max(hi, v)
 	}
 	if hi-lo < 8*pixelNoise(sp) {
