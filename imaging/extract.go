@@ -780,7 +780,10 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		data, nc := pick()
 		sb, fb, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow, opt.workers(), lit)
 		if err == nil {
-			s, fit = sb, fb
+			s = sb
+			if !lit {
+				fit = fb // (on a lit bench the contrast's fit stands)
+			}
 			s.bowMeasured = own
 		} else {
 			bow = Bow{}
@@ -793,7 +796,10 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		f32Pool.put(rgb)
 		rgb = regionRGB(fr, roi, tables)
 		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow, opt.workers(), lit); err == nil {
-			s, fit = s4, fit4
+			s = s4
+			if !lit {
+				fit = fit4
+			}
 		}
 	}
 	if opt.KeepImage {
