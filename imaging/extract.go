@@ -137,8 +137,12 @@ type Strip struct {
 	// across the frame, same units; it is subtracted before the band is
 	// looked for, and beside the band in the profile.
 	BackgroundRange float64
-	Noise           float64 // robust σ of the frame, same units
-	Saturated       float64 // fraction of band pixels holding a saturated value
+	// StrayLight says the frame holds stray light with a shape of its own
+	// (a glow, a lit bench): the band was found on the lines' contrast and
+	// its background taken as a slope across it.
+	StrayLight bool
+	Noise      float64 // robust σ of the frame, same units
+	Saturated  float64 // fraction of band pixels holding a saturated value
 	// CurvaturePX is how far the line images bow at the band's top and
 	// bottom edge relative to its centre row, px (followed in the profile).
 	CurvaturePX float64
@@ -455,7 +459,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 	// A lit bench: the band is looked for on the lines' contrast, and
 	// measured with the background beside it taken as a slope.
 	lit := false
-	if glow := glowRange(small, sp, lut); glow > 0 {
+	if glow := glowRange(sp); glow > 0 {
 		if c, err := lineContrast(sp, 11); err == nil {
 			gradient, lit = math.Max(gradient, glow), true
 			sp = c
@@ -816,7 +820,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 	ang = s.AngleDeg
 	s.Timing.Straighten = time.Since(t1)
 	s.FrameW, s.FrameH = fr.w, fr.h
-	s.Background, s.Noise, s.BackgroundRange = bg/3, noise/3, gradient/3
+	s.Background, s.Noise, s.BackgroundRange, s.StrayLight = bg/3, noise/3, gradient/3, lit
 	cx, cy := float64(fr.w-1)/2, float64(fr.h-1)/2
 	sn, cs := math.Sincos(ang * math.Pi / 180)
 	s.OpticalCenter = (cx-s.Origin[0])*cs + (cy-s.Origin[1])*sn
@@ -842,6 +846,9 @@ func qualityWarnings(s Strip, cut bool) []string {
 	}
 	if math.Abs(s.ResidualTiltDeg) > math.Max(0.05, 2*s.ResidualTiltErrDeg) {
 		out = append(out, fmt.Sprintf("the lines still lean %.3f° after straightening (curved or sheared line images?): centres may be smeared", s.ResidualTiltDeg))
+	}
+	if s.StrayLight {
+		out = append(out, "stray light (a glow or a lit bench) lies on the frame: it was looked through, but shading the lamp housing and nearby lamps gives cleaner lines")
 	}
 	if s.BackgroundRange > 0.15 {
 		out = append(out, fmt.Sprintf("room light varies by %.0f%% of full scale across the frame: it is subtracted, but a darker room gives cleaner lines", 100*s.BackgroundRange))

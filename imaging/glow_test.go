@@ -75,6 +75,9 @@ func TestLitBench(t *testing.T) {
 			dAng := s.AngleDeg + math.Atan(s.Bow.C1)*180/math.Pi - c.p.TiltDeg
 			t.Logf("%d lines at SNR ≥ 50: RMS %.3f px, worst %.3f px; %d at SNR 10-50: RMS %.3f px; direction off by %.4f°; spurious %v; background range %.3f; warnings %v",
 				n, rms, worst, nDim, rmsDim, dAng, spurious, s.BackgroundRange, s.Warnings)
+			if !s.StrayLight {
+				t.Errorf("the glow was not told apart (background range %.3f)", s.BackgroundRange)
+			}
 			if n < 1 || n+nDim < 3 || rms > 0.15 || worst > 0.4 || rmsDim > 0.4 || math.Abs(dAng) > c.angTol || len(spurious) > 0 {
 				t.Errorf("%d+%d lines: RMS %.3f px (worst %.3f px), %.3f px; direction off %.4f°; spurious lines at %v", n, nDim, rms, worst, rmsDim, dAng, spurious)
 			}
@@ -135,5 +138,23 @@ func TestLitBench16Bit(t *testing.T) {
 	t.Logf("16-bit: %d lines at SNR ≥ 50, RMS %.3f px; direction off by %.4f°; background range %.3f", n, rms, dAng, s.BackgroundRange)
 	if n < 3 || rms > 0.15 || math.Abs(dAng) > 0.05 || s.BackgroundRange < 0.01 {
 		t.Errorf("%d lines: RMS %.3f px, direction off %.4f°, background range %.3f (glow seen?)", n, rms, dAng, s.BackgroundRange)
+	}
+}
+
+// The same bench without its glow is not taken for a lit one (its photo
+// keeps the plain path and no stray-light warning).
+func TestNoGlowNoStrayLight(t *testing.T) {
+	for _, p := range []synth.Params{
+		{Width: 1920, Height: 1080, LinesPerMM: 600, TiltDeg: -3, Seed: 62, Emissions: mercury},
+		{Width: 4032, Height: 3024, LinesPerMM: 600, TiltDeg: 5, Seed: 63, Emissions: mercury, BackgroundGradient: 0.004},
+	} {
+		path, _ := writeJPEG(t, p, 92)
+		s, err := Extract(path, Options{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if s.StrayLight {
+			t.Errorf("%dx%d without a glow taken for a lit bench (background range %.3f)", p.Width, p.Height, s.BackgroundRange)
+		}
 	}
 }

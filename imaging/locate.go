@@ -394,47 +394,44 @@ func crossBands(p plane, ang, bg, sx, sy float64, all bool) []bandGuess {
 }
 
 // glowRange tells a lit bench's stray light (a patch of glow, too round
-// and too local for flatten's quadratic surface) on the reduced frame:
-// the median over a window a third of the frame's smaller side, on a copy
-// of small (the reduced frame's codes) reduced to about 128 px, linearised
-// (a median commutes with the transfer curve). A spectrum's lines fill
-// little of such a window. It returns the median's range across the frame
-// when that exceeds 8σ of the pixel-to-pixel noise of sp (the frame's
-// spread is no measure here: a glow widens it), else 0.
-func glowRange(small gocv.Mat, sp plane, lut []float32) float64 {
-	w, h := small.Cols(), small.Rows()
-	q := max(1, int(math.Ceil(float64(max(w, h))/128)))
-	tw, th := max(8, w/q), max(8, h/q)
+// and too local for flatten's quadratic surface) on the reduced, flattened
+// frame sp: sp is reduced again to about 128 px (area averaging, in linear
+// light) and opened (erosion then dilation) by a square a third of its
+// smaller side, which takes away a band and its lines (narrower than the
+// square in one direction at least) and leaves what is broader. It
+// returns the opened map's range away from the edges when that exceeds 8σ
+// of the pixel-to-pixel noise of sp (the frame's spread is no measure
+// here: a glow widens it), else 0.
+func glowRange(sp plane) float64 {
+	q := max(1, int(math.Ceil(float64(max(sp.w, sp.h))/128)))
+	tw, th := max(8, sp.w/q), max(8, sp.h/q)
+	src, err := gocv.NewMatFromBytes(sp.h, sp.w, gocv.MatTypeCV32FC1, unsafe.Slice((*byte)(unsafe.Pointer(&sp.pix[0])), 4*len(sp.pix)))
+	if err != nil {
+		return 0
+	}
+	defer src.Close()
 	tiny := gocv.NewMat()
 	defer tiny.Close()
-	gocv.Resize(small, &tiny, image.Pt(tw, th), 0, 0, gocv.InterpolationArea)
-	// OpenCV's large median takes 8-bit codes only: a 16-bit frame's are
-	// scaled down to them, and read back through the 16-bit table.
-	scale := 1
-	switch small.Type() {
-	case gocv.MatTypeCV8UC3:
-	case gocv.MatTypeCV16UC3:
-		tiny.ConvertToWithParams(&tiny, gocv.MatTypeCV8UC3, 1.0/257, 0)
-		scale = 257
-	default:
+	gocv.Resize(src, &tiny, image.Pt(tw, th), 0, 0, gocv.InterpolationArea)
+	k := max(3, min(tw, th)/3) | 1
+	kernel := gocv.GetStructuringElement(gocv.MorphRect, image.Pt(k, k))
+	defer kernel.Close()
+	open := gocv.NewMat()
+	defer open.Close()
+	gocv.MorphologyEx(tiny, &open, gocv.MorphOpen, kernel)
+	v, err := open.DataPtrFloat32()
+	if err != nil || len(v) < tw*th {
 		return 0
 	}
-	if len(lut) < 255*scale+1 {
-		return 0
-	}
-	med := gocv.NewMat()
-	defer med.Close()
-	gocv.MedianBlur(tiny, &med, max(3, min(tw, th)/3)|1)
-	codes, err := med.DataPtrUint8()
-	if err != nil || len(codes) < 3*tw*th {
-		return 0
-	}
+	// Within half a square of the edges the opening reads OpenCV's border
+	// and is left out.
 	lo, hi := math.Inf(1), math.Inf(-1)
-	for i := 0; i < tw*th; i++ {
-		v := float64(lut[scale*int(codes[3*i])] + lut[scale*int(codes[3*i+1])] + lut[scale*int(codes[3*i+2])])
-		lo, hi = math.Min(lo, v), math.Max(hi, v)
+	for r := k / 2; r < th-k/2; r++ {
+		for c := k / 2; c < tw-k/2; c++ {
+			lo, hi = math.Min(lo, float64(v[r*tw+c])), math.Max(hi, float64(v[r*tw+c]))
+		}
 	}
-	if hi-lo < 8*pixelNoise(sp) {
+	if !(hi-lo >= 8*pixelNoise(sp)) {
 		return 0
 	}
 	return hi - lo

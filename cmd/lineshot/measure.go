@@ -499,6 +499,7 @@ type quality struct {
 	BandHalfHeight  float64       `json:"band_half_height_px"`
 	Background      float64       `json:"background"`
 	BackgroundRange float64       `json:"background_range"`
+	StrayLight      bool          `json:"stray_light,omitempty"`
 	Noise           float64       `json:"frame_noise"`
 	ProfileNoise    float64       `json:"profile_noise"`
 	Saturated       float64       `json:"saturated_fraction"`
@@ -623,7 +624,7 @@ func fromUnclippedChannel(s imaging.Strip, r *peaks.Result, minSNR float64) {
 func (m measured) baseResult(path string) imageResult {
 	r := imageResult{File: path, Quality: &quality{
 		AngleDeg: m.strip.AngleDeg, Band: m.strip.Band, BandHalfHeight: m.strip.BandHalfHeight,
-		Background: m.strip.Background, BackgroundRange: m.strip.BackgroundRange, Noise: m.strip.Noise,
+		Background: m.strip.Background, BackgroundRange: m.strip.BackgroundRange, StrayLight: m.strip.StrayLight, Noise: m.strip.Noise,
 		Frames: m.strip.Frames, DarkFrames: m.strip.DarkFrames, ProfileNoise: m.found.Noise, Saturated: m.strip.Saturated,
 	}}
 	for _, p := range m.found.Peaks {
