@@ -511,12 +511,14 @@ type stripRecord struct {
 	Frames, DarkFrames                      int
 	Warnings                                []string
 	Profile                                 []float32
+	Bow                                     imaging.Bow // ToImage follows it: positions in the photo need it
+	StrayLight                              bool
 }
 
 func toRecord(s imaging.Strip) stripRecord {
 	r := stripRecord{AngleDeg: s.AngleDeg, BandHalfHeight: s.BandHalfHeight, OpticalCenter: s.OpticalCenter, Origin: s.Origin, Band: s.Band,
 		FrameW: s.FrameW, FrameH: s.FrameH, Background: s.Background, Noise: s.Noise, Saturated: s.Saturated, ResidualTiltDeg: s.ResidualTiltDeg, Warnings: s.Warnings,
-		BackgroundRange: s.BackgroundRange, Frames: s.Frames, DarkFrames: s.DarkFrames}
+		BackgroundRange: s.BackgroundRange, Frames: s.Frames, DarkFrames: s.DarkFrames, Bow: s.Bow, StrayLight: s.StrayLight}
 	if !math.IsInf(s.ResidualTiltErrDeg, 0) && !math.IsNaN(s.ResidualTiltErrDeg) {
 		r.ResidualTiltErrDeg = s.ResidualTiltErrDeg
 	}
@@ -530,7 +532,8 @@ func toRecord(s imaging.Strip) stripRecord {
 func (r stripRecord) strip() imaging.Strip {
 	s := imaging.Strip{AngleDeg: r.AngleDeg, BandHalfHeight: r.BandHalfHeight, OpticalCenter: r.OpticalCenter, Origin: r.Origin, Band: r.Band,
 		FrameW: r.FrameW, FrameH: r.FrameH, Background: r.Background, Noise: r.Noise, Saturated: r.Saturated, ResidualTiltDeg: r.ResidualTiltDeg, Warnings: r.Warnings,
-		BackgroundRange: r.BackgroundRange, Frames: r.Frames, DarkFrames: r.DarkFrames, ResidualTiltErrDeg: r.ResidualTiltErrDeg}
+		BackgroundRange: r.BackgroundRange, Frames: r.Frames, DarkFrames: r.DarkFrames, ResidualTiltErrDeg: r.ResidualTiltErrDeg,
+		Bow: r.Bow, StrayLight: r.StrayLight}
 	s.Profile = make([]float64, len(r.Profile))
 	for i, v := range r.Profile {
 		s.Profile[i] = float64(v)
@@ -550,7 +553,7 @@ type batchRun struct {
 // optionsKey changes whenever an option that changes a photo's result
 // changes, so that cached results are not reused across them.
 func (b *batchRun) optionsKey() string {
-	return fmt.Sprintf("v4 snr=%g", b.cfg.minSNR)
+	return fmt.Sprintf("v5 snr=%g", b.cfg.minSNR)
 }
 
 func cacheName(path string) string {

@@ -15,6 +15,7 @@ import (
 	"testing"
 
 	"lineshot/calibrate"
+	"lineshot/imaging"
 )
 
 // makeLab builds an invented lab folder: bench-a (600/mm, one mercury and
@@ -313,5 +314,32 @@ func TestBatchVideoAndDarkFrames(t *testing.T) {
 	}
 	if rel := b.Rydberg.R/calibrate.RHydrogen() - 1; math.Abs(rel) > 0.0005 {
 		t.Errorf("R %.0f ± %.0f, %.4f %% from R_H", b.Rydberg.R, b.Rydberg.Sigma, 100*rel)
+	}
+}
+
+// A photo's cached record gives back the strip's geometry in full: the
+// line positions in the photo (ToImage, which follows a bowed band) come
+// out the same from the cache as from the measurement, through JSON.
+func TestStripRecordRoundTrip(t *testing.T) {
+	s := imaging.Strip{AngleDeg: 2.5, Origin: [2]float64{12, 340}, BandHalfHeight: 40, Profile: make([]float64, 1000),
+		Bow: imaging.Bow{C0: 0.4, C1: -0.002, C2: 3e-6, Mid: 499.5}, StrayLight: true, BackgroundRange: 0.02}
+	raw, err := json.Marshal(toRecord(s))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var r stripRecord
+	if err := json.Unmarshal(raw, &r); err != nil {
+		t.Fatal(err)
+	}
+	back := r.strip()
+	for _, p := range []float64{0, 250, 499.5, 999} {
+		x0, y0 := s.ToImage(p)
+		x1, y1 := back.ToImage(p)
+		if math.Hypot(x1-x0, y1-y0) > 1e-9 {
+			t.Errorf("position %g: (%.3f, %.3f) measured, (%.3f, %.3f) from the cache", p, x0, y0, x1, y1)
+		}
+	}
+	if back.StrayLight != s.StrayLight || back.BackgroundRange != s.BackgroundRange {
+		t.Errorf("quality lost in the cache: %+v", back)
 	}
 }
