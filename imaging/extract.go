@@ -688,6 +688,15 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 	var fit centreFit
 	var u0, u1 float64
 	done := false
+	// take adopts a straightening; its centre fit too, except on a lit
+	// bench, where the fit on the lines' contrast stands (the straightened
+	// profile channel still holds the stray light).
+	take := func(ns Strip, nf centreFit) {
+		s = ns
+		if !lit {
+			fit = nf
+		}
+	}
 	for round := 0; round < 4; round++ {
 		if err := prepare(); err != nil {
 			return Strip{}, err
@@ -747,10 +756,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		if err != nil {
 			return Strip{}, err
 		}
-		s = sf
-		if !lit {
-			fit = ff
-		}
+		take(sf, ff)
 	}
 	// A band away from the optical axis (a second lamp's slit image above
 	// the first) or seen through a lens with barrel or pincushion
@@ -784,10 +790,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		data, nc := pick()
 		sb, fb, err := straighten(data, nc, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow, opt.workers(), lit)
 		if err == nil {
-			s = sb
-			if !lit {
-				fit = fb // (on a lit bench the contrast's fit stands)
-			}
+			take(sb, fb)
 			s.bowMeasured = own
 		} else {
 			bow = Bow{}
@@ -800,10 +803,7 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		f32Pool.put(rgb)
 		rgb = regionRGB(fr, roi, tables)
 		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow, opt.workers(), lit); err == nil {
-			s = s4
-			if !lit {
-				fit = fit4
-			}
+			take(s4, fit4)
 		}
 	}
 	if opt.KeepImage {
@@ -1073,6 +1073,15 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 	return pp, rgb, clipOrNil(clip, uint8(anyClip.Load()))
 }
 
+// clipOf returns the clip bits of the region pixel nearest (x, y): none
+// when the region has no clip mask (nothing clipped).
+func clipOf(clip []uint8, w int, x, y float64) uint8 {
+	if clip == nil {
+		return 0
+	}
+	return clip[int(y+0.5)*w+int(x+0.5)]
+}
+
 // clipBits marks which of code values r, g, b reach the clip level: bit 0
 // R, bit 1 G, bit 2 B.
 func clipBits(r, g, b, at int) uint8 {
@@ -1273,9 +1282,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 				if inBand {
 					nIn[i]++
 					nBand++
-					if clip == nil {
-						// nothing clipped in the region
-					} else if cb := clip[int(y+0.5)*w+int(x+0.5)]; cb != 0 {
+					if cb := clipOf(clip, w, x, y); cb != 0 {
 						s.Clipped[i] = true
 						nClip++
 						if nc == 4 {
@@ -1329,26 +1336,28 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 					for k := range v {
 						v[k] = float64(bg[(c*L+i)*nbg+k])
 					}
-					if nt := nTop[i]; lit && nt > 0 && nt < len(v) {
-						// Stray light sloping across the band: the level
-						// at the band is midway between the two sides',
-						// and each side scatters about its own.
-						top, bot := medianOf(v[:nt]), medianOf(v[nt:])
+					// Each sample's own level: the pooled median; or, on a
+					// lit bench (stray light sloping across the band), its
+					// side's median, the band's level midway between them.
+					nt := 0
+					top, bot := 0.0, 0.0
+					if nt = nTop[i]; lit && nt > 0 && nt < len(v) {
+						top, bot = medianOf(v[:nt]), medianOf(v[nt:])
 						bgv = (top + bot) / 2
-						if c == nc-1 && nb[i] >= 4 {
-							for k := range v {
-								v[k] = math.Abs(v[k] - map[bool]float64{true: top, false: bot}[k < nt])
-							}
-							spread[i] = medianOf(v)
-						}
 					} else {
-						bgv = medianOf(v)
-						if c == nc-1 && nb[i] >= 4 {
-							for k := range v {
-								v[k] = math.Abs(v[k] - bgv)
+						nt = len(v)
+						top = medianOf(v)
+						bgv = top
+					}
+					if c == nc-1 && nb[i] >= 4 {
+						for k := range v {
+							if k < nt {
+								v[k] = math.Abs(v[k] - top)
+							} else {
+								v[k] = math.Abs(v[k] - bot)
 							}
-							spread[i] = medianOf(v)
 						}
+						spread[i] = medianOf(v)
 					}
 				}
 				if nIn[i] > 0 {
@@ -1538,14 +1547,7 @@ func lineCurvature(px []float32, stride, off, L, H, sd, workers int) *lineShape 
 	if hi-lo < 12 {
 		return nil
 	}
-	prof := make([]float64, L)
-	inParts(L, workers, 256, func(c0, c1 int) {
-		for j := lo; j <= hi; j++ {
-			for i := c0; i < c1; i++ {
-				prof[i] += float64(px[stride*(j*L+i)+off])
-			}
-		}
-	})
+	prof := bandSum(px, stride, off, L, lo, hi, workers)
 	// Heights above the strip's level (its median column), so that noise
 	// maxima on the background neither pass for lines nor weigh in.
 	base := medianOf(append([]float64(nil), prof...))
@@ -1778,7 +1780,7 @@ func warp(data []float32, ch int, roi image.Rectangle, ang, u0, v0, vStep float6
 	if len(data) != ch*w*h || types[ch] == 0 || L < 1 || H < 1 {
 		return gocv.Mat{}, errors.New("straighten: region and strip sizes disagree")
 	}
-	src, err := gocv.NewMatFromBytes(h, w, types[ch], unsafe.Slice((*byte)(unsafe.Pointer(&data[0])), 4*len(data)))
+	src, err := floatMat(data, h, w, types[ch])
 	if err != nil {
 		return gocv.Mat{}, fmt.Errorf("straighten: %w", err)
 	}
@@ -1788,6 +1790,26 @@ func warp(data []float32, ch int, roi image.Rectangle, ang, u0, v0, vStep float6
 		return remapBowed(src, roi, sn, cs, u0, v0, vStep, L, H, bow)
 	}
 	return warpAffine(src, roi.Min, sn, cs, u0, v0, vStep, L, H)
+}
+
+// floatMat wraps float32 samples (rows×cols pixels of type t) in a Mat
+// without copying them; the caller closes it and keeps data alive.
+func floatMat(data []float32, rows, cols int, t gocv.MatType) (gocv.Mat, error) {
+	return gocv.NewMatFromBytes(rows, cols, t, unsafe.Slice((*byte)(unsafe.Pointer(&data[0])), 4*len(data)))
+}
+
+// bandSum is the per-column sum of rows lo..hi of a strip (L columns, the
+// channel at off of stride interleaved), columns in parts side by side.
+func bandSum(px []float32, stride, off, L, lo, hi, workers int) []float64 {
+	prof := make([]float64, L)
+	inParts(L, workers, 256, func(c0, c1 int) {
+		for j := lo; j <= hi; j++ {
+			for i := c0; i < c1; i++ {
+				prof[i] += float64(px[stride*(j*L+i)+off])
+			}
+		}
+	})
+	return prof
 }
 
 // warpAffine samples src (bilinear) at strip column i, row j from the
@@ -1829,14 +1851,7 @@ func centreOnly(luma []float32, roi image.Rectangle, ang, vc, hh, side, u0, u1 f
 	if err != nil {
 		return centreFit{}
 	}
-	prof := make([]float64, L)
-	inParts(L, workers, 256, func(c0, c1 int) {
-		for j := m; j <= H-1-m; j++ {
-			for i := c0; i < c1; i++ {
-				prof[i] += float64(px[j*L+i])
-			}
-		}
-	})
+	prof := bandSum(px, 1, 0, L, m, H-1-m, workers)
 	for i := 0; i < L; i++ {
 		prof[i] -= float64(H-2*m) * float64(px[i]+px[(H-1)*L+i]) / 2
 	}

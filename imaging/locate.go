@@ -5,7 +5,6 @@ import (
 	"image"
 	"math"
 	"sort"
-	"unsafe"
 
 	"gocv.io/x/gocv"
 
@@ -44,6 +43,12 @@ func background(p plane) (med, sigma float64) {
 	for i := 0; i < len(p.pix); i += step {
 		s = append(s, float64(p.pix[i]))
 	}
+	return medMAD(s)
+}
+
+// medMAD returns the median of s and the robust σ 1.4826·MAD about it,
+// reordering and overwriting s.
+func medMAD(s []float64) (med, sigma float64) {
 	med = peaks.MedianInPlace(s)
 	for i := range s {
 		s[i] = math.Abs(s[i] - med)
@@ -405,7 +410,7 @@ func crossBands(p plane, ang, bg, sx, sy float64, all bool) []bandGuess {
 func glowRange(sp plane) float64 {
 	q := max(1, int(math.Ceil(float64(max(sp.w, sp.h))/128)))
 	tw, th := max(8, sp.w/q), max(8, sp.h/q)
-	src, err := gocv.NewMatFromBytes(sp.h, sp.w, gocv.MatTypeCV32FC1, unsafe.Slice((*byte)(unsafe.Pointer(&sp.pix[0])), 4*len(sp.pix)))
+	src, err := floatMat(sp.pix, sp.h, sp.w, gocv.MatTypeCV32FC1)
 	if err != nil {
 		return 0
 	}
@@ -451,11 +456,8 @@ func pixelNoise(p plane) float64 {
 	if len(d) == 0 {
 		return 0
 	}
-	med := peaks.MedianInPlace(d)
-	for k := range d {
-		d[k] = math.Abs(d[k] - med)
-	}
-	return 1.4826 * peaks.MedianInPlace(d) / math.Sqrt2
+	_, sigma := medMAD(d)
+	return sigma / math.Sqrt2
 }
 
 // lineContrast returns p less its smooth background for a lit bench: the
@@ -466,13 +468,12 @@ func pixelNoise(p plane) float64 {
 // left is the lines' contrast, on a background near 0.
 // (p less the lower opening is the larger of the two differences.)
 func lineContrast(p plane, n int) (plane, error) {
-	src, err := gocv.NewMatFromBytes(p.h, p.w, gocv.MatTypeCV32FC1, unsafe.Slice((*byte)(unsafe.Pointer(&p.pix[0])), 4*len(p.pix)))
+	src, err := floatMat(p.pix, p.h, p.w, gocv.MatTypeCV32FC1)
 	if err != nil {
 		return plane{}, err
 	}
 	defer src.Close()
-	out := plane{w: p.w, h: p.h, pix: make([]float32, len(p.pix))}
-	copy(out.pix, p.pix)
+	out := plane{w: p.w, h: p.h, pix: make([]float32, len(p.pix))} // the first opening writes it all
 	for _, k := range []image.Point{{n, 1}, {1, n}} {
 		kernel := gocv.GetStructuringElement(gocv.MorphRect, k)
 		opened := gocv.NewMat()
