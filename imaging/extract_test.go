@@ -2,7 +2,10 @@ package imaging
 
 import (
 	"bytes"
+	"image"
+	"image/color"
 	"image/jpeg"
+	"io"
 	"math"
 	"os"
 	"path/filepath"
@@ -25,18 +28,40 @@ func writeJPEG(t testing.TB, p synth.Params, q int) (string, synth.Truth) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	path := filepath.Join(t.TempDir(), "photo.jpg")
+	path := writeImageFile(t, "photo.jpg", func(w io.Writer) error { return jpeg.Encode(w, img, &jpeg.Options{Quality: q}) })
+	return path, tr
+}
+
+// writeImageFile writes an image with enc into a file name in a fresh
+// temporary folder and returns its path.
+func writeImageFile(t testing.TB, name string, enc func(io.Writer) error) string {
+	t.Helper()
+	path := filepath.Join(t.TempDir(), name)
 	f, err := os.Create(path)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if err := jpeg.Encode(f, img, &jpeg.Options{Quality: q}); err != nil {
+	if err := enc(f); err != nil {
 		t.Fatal(err)
 	}
 	if err := f.Close(); err != nil {
 		t.Fatal(err)
 	}
-	return path, tr
+	return path
+}
+
+// deep is img at 16 bits a channel (each 8-bit code scaled to 16 bits),
+// as raw converters write.
+func deep(img image.Image) *image.RGBA64 {
+	out := image.NewRGBA64(img.Bounds())
+	b := img.Bounds()
+	for y := b.Min.Y; y < b.Max.Y; y++ {
+		for x := b.Min.X; x < b.Max.X; x++ {
+			r, g, bl, _ := img.At(x, y).RGBA()
+			out.SetRGBA64(x, y, color.RGBA64{uint16(r), uint16(g), uint16(bl), 0xffff})
+		}
+	}
+	return out
 }
 
 // Round trip through the simulator: every line is found and its centre,

@@ -4,9 +4,9 @@ import (
 	"bytes"
 	"encoding/json"
 	"image"
-	"image/color"
 	"image/jpeg"
 	"image/png"
+	"io"
 	"math"
 	"os"
 	"path/filepath"
@@ -132,31 +132,9 @@ func TestTIFF16(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	dir := t.TempDir()
-	deep := image.NewRGBA64(img.Bounds())
-	for y := 0; y < p.Height; y++ {
-		for x := 0; x < p.Width; x++ {
-			r, g, b, _ := img.At(x, y).RGBA()
-			deep.SetRGBA64(x, y, color.RGBA64{uint16(r), uint16(g), uint16(b), 0xffff})
-		}
-	}
-	pngPath, tifPath := filepath.Join(dir, "a.png"), filepath.Join(dir, "a.tif")
-	for _, w := range []struct {
-		path string
-		enc  func(*os.File) error
-	}{
-		{pngPath, func(f *os.File) error { return png.Encode(f, deep) }},
-		{tifPath, func(f *os.File) error { return tiff.Encode(f, deep, nil) }},
-	} {
-		f, err := os.Create(w.path)
-		if err != nil {
-			t.Fatal(err)
-		}
-		if err := w.enc(f); err != nil {
-			t.Fatal(err)
-		}
-		f.Close()
-	}
+	d := deep(img)
+	pngPath := writeImageFile(t, "a.png", func(w io.Writer) error { return png.Encode(w, d) })
+	tifPath := writeImageFile(t, "a.tif", func(w io.Writer) error { return tiff.Encode(w, d, nil) })
 	a, err := Extract(pngPath, Options{})
 	if err != nil {
 		t.Fatal(err)

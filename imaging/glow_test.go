@@ -1,12 +1,9 @@
 package imaging
 
 import (
-	"image"
-	"image/color"
 	"image/png"
+	"io"
 	"math"
-	"os"
-	"path/filepath"
 	"testing"
 
 	"lineshot/imaging/synth"
@@ -46,31 +43,14 @@ func TestLitBench(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			sn, cs := math.Sincos(s.AngleDeg * math.Pi / 180)
-			var sq, worst, sqDim float64
-			n, nDim := 0, 0
+			var e alongErrors
+			e.add(s, r.Peaks, tr)
 			var spurious []float64
-			for _, pk := range r.Peaks {
-				x, y := s.ToImage(pk.Center)
-				best := math.Inf(1)
-				for _, l := range tr.Lines {
-					best = math.Min(best, alongLine(x, y, cs, sn, l))
-				}
-				if best > 3 && pk.SNR >= 10 {
-					spurious = append(spurious, math.Round(pk.Center))
-					continue
-				}
-				if pk.SNR >= 50 {
-					sq += best * best
-					worst = math.Max(worst, best)
-					n++
-				} else if pk.SNR >= 10 {
-					sqDim += best * best
-					nDim++
-				}
+			for _, f := range e.far {
+				spurious = append(spurious, math.Round(f.center))
 			}
-			rms := math.Sqrt(sq / float64(max(1, n)))
-			rmsDim := math.Sqrt(sqDim / float64(max(1, nDim)))
+			n, nDim, worst := e.n, e.nDim, e.worst
+			rms, rmsDim := e.rms(), e.rmsDim()
 			// The band's direction at its middle (the bow's slope counts).
 			dAng := s.AngleDeg + math.Atan(s.Bow.C1)*180/math.Pi - c.p.TiltDeg
 			t.Logf("%d lines at SNR ≥ 50: RMS %.3f px, worst %.3f px; %d at SNR 10-50: RMS %.3f px; direction off by %.4f°; spurious %v; background range %.3f; warnings %v",
@@ -94,22 +74,7 @@ func TestLitBench16Bit(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	deep := image.NewRGBA64(img.Bounds())
-	for y := 0; y < p.Height; y++ {
-		for x := 0; x < p.Width; x++ {
-			r, g, b, _ := img.At(x, y).RGBA()
-			deep.SetRGBA64(x, y, color.RGBA64{uint16(r), uint16(g), uint16(b), 0xffff})
-		}
-	}
-	path := filepath.Join(t.TempDir(), "deep.png")
-	f, err := os.Create(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := png.Encode(f, deep); err != nil {
-		t.Fatal(err)
-	}
-	f.Close()
+	path := writeImageFile(t, "deep.png", func(w io.Writer) error { return png.Encode(w, deep(img)) })
 	s, err := Extract(path, Options{})
 	if err != nil {
 		t.Fatal(err)
@@ -118,22 +83,10 @@ func TestLitBench16Bit(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	sn, cs := math.Sincos(s.AngleDeg * math.Pi / 180)
-	var sq float64
-	n := 0
-	for _, pk := range r.Peaks {
-		if pk.SNR < 50 {
-			continue
-		}
-		x, y := s.ToImage(pk.Center)
-		best := math.Inf(1)
-		for _, l := range tr.Lines {
-			best = math.Min(best, alongLine(x, y, cs, sn, l))
-		}
-		sq += best * best
-		n++
-	}
-	rms := math.Sqrt(sq / float64(max(1, n)))
+	var e alongErrors
+	e.add(s, r.Peaks, tr)
+	e.noBrightStrays(t)
+	n, rms := e.n, e.rms()
 	dAng := s.AngleDeg + math.Atan(s.Bow.C1)*180/math.Pi - p.TiltDeg
 	t.Logf("16-bit: %d lines at SNR ≥ 50, RMS %.3f px; direction off by %.4f°; background range %.3f", n, rms, dAng, s.BackgroundRange)
 	if n < 3 || rms > 0.15 || math.Abs(dAng) > 0.05 || s.BackgroundRange < 0.01 {
