@@ -35,16 +35,7 @@ func TestLitBench(t *testing.T) {
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
 			path, tr := writeJPEG(t, c.p, 92)
-			s, err := Extract(path, Options{})
-			if err != nil {
-				t.Fatal(err)
-			}
-			r, err := peaks.Find(s.Profile, peaks.Options{Clipped: s.Clipped, NoiseShape: s.NoiseShape})
-			if err != nil {
-				t.Fatal(err)
-			}
-			var e alongErrors
-			e.add(s, r.Peaks, tr)
+			s, e := litErrors(t, path, tr)
 			var spurious []float64
 			for _, f := range e.far {
 				spurious = append(spurious, math.Round(f.center))
@@ -75,16 +66,7 @@ func TestLitBench16Bit(t *testing.T) {
 		t.Fatal(err)
 	}
 	path := writeImageFile(t, "deep.png", func(w io.Writer) error { return png.Encode(w, deep(img)) })
-	s, err := Extract(path, Options{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	r, err := peaks.Find(s.Profile, peaks.Options{Clipped: s.Clipped, NoiseShape: s.NoiseShape})
-	if err != nil {
-		t.Fatal(err)
-	}
-	var e alongErrors
-	e.add(s, r.Peaks, tr)
+	s, e := litErrors(t, path, tr)
 	e.noBrightStrays(t)
 	n, rms := e.n, e.rms()
 	dAng := s.AngleDeg + math.Atan(s.Bow.C1)*180/math.Pi - p.TiltDeg
@@ -110,4 +92,21 @@ func TestNoGlowNoStrayLight(t *testing.T) {
 			t.Errorf("%dx%d without a glow taken for a lit bench (background range %.3f)", p.Width, p.Height, s.BackgroundRange)
 		}
 	}
+}
+
+// litErrors extracts the photo at path and tallies its lines (found with
+// the strip's noise shape, as measure does) against the truth.
+func litErrors(t *testing.T, path string, tr synth.Truth) (Strip, alongErrors) {
+	t.Helper()
+	s, err := Extract(path, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r, err := peaks.Find(s.Profile, peaks.Options{Clipped: s.Clipped, NoiseShape: s.NoiseShape})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var e alongErrors
+	e.add(s, r.Peaks, tr)
+	return s, e
 }
