@@ -26,6 +26,8 @@ import (
 	_ "golang.org/x/image/bmp"
 	_ "golang.org/x/image/tiff"
 	_ "golang.org/x/image/webp"
+
+	"lineshot/peaks"
 )
 
 // ErrNoBand is returned when no spectrum band stands out of the frame.
@@ -1342,11 +1344,11 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 					nt := 0
 					top, bot := 0.0, 0.0
 					if nt = nTop[i]; lit && nt > 0 && nt < len(v) {
-						top, bot = medianOf(v[:nt]), medianOf(v[nt:])
+						top, bot = peaks.MedianInPlace(v[:nt]), peaks.MedianInPlace(v[nt:])
 						bgv = (top + bot) / 2
 					} else {
 						nt = len(v)
-						top = medianOf(v)
+						top = peaks.MedianInPlace(v)
 						bgv = top
 					}
 					if c == nc-1 && nb[i] >= 4 {
@@ -1357,7 +1359,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 								v[k] = math.Abs(v[k] - bot)
 							}
 						}
-						spread[i] = medianOf(v)
+						spread[i] = peaks.MedianInPlace(v)
 					}
 				}
 				if nIn[i] > 0 {
@@ -1409,16 +1411,6 @@ func colRange(a, d, lim float64, L int) (int, int) {
 	return lo, hi
 }
 
-// medianOf returns the median of v, reordering v (small scratch slices).
-func medianOf(v []float64) float64 {
-	sort.Float64s(v)
-	n := len(v)
-	if n%2 == 1 {
-		return v[n/2]
-	}
-	return (v[n/2-1] + v[n/2]) / 2
-}
-
 // displayStrip warps the band from the decoded frame's own codes (OpenCV,
 // bilinear, 8 or 16 bits a sample) into an L×H strip for display, scaled
 // in linear light so that its 99.9th percentile is white, sRGB-encoded,
@@ -1462,12 +1454,11 @@ func displayStrip(fr frame, lut []float32, ang, u0, v0 float64, L, H int, bow Bo
 	if step%3 == 0 {
 		step += 2
 	}
-	var vals []float64
+	vals := make([]float64, 0, (3*L*H+step-1)/step)
 	for i := 0; i < 3*L*H; i += step {
 		vals = append(vals, float64(lut[code(i)]))
 	}
-	sort.Float64s(vals)
-	top := math.Max(vals[int(0.999*float64(len(vals)-1))], 1e-6)
+	top := math.Max(peaks.KthInPlace(vals, int(0.999*float64(len(vals)-1))), 1e-6)
 	img := image.NewRGBA(image.Rect(0, 0, L, H))
 	// sRGB encoding through a table over [0, top].
 	var tab [4096]uint8
@@ -1550,7 +1541,7 @@ func lineCurvature(px []float32, stride, off, L, H, sd, workers int) *lineShape 
 	prof := bandSum(px, stride, off, L, lo, hi, workers)
 	// Heights above the strip's level (its median column), so that noise
 	// maxima on the background neither pass for lines nor weigh in.
-	base := medianOf(append([]float64(nil), prof...))
+	base := peaks.Median(prof)
 	for i := range prof {
 		prof[i] -= base
 	}
@@ -2152,7 +2143,7 @@ func noiseShape(spread []float64) []float64 {
 	if L == 0 || len(have) < L/3 {
 		return nil
 	}
-	med := medianOf(append([]float64(nil), have...))
+	med := peaks.Median(have)
 	if med <= 0 {
 		return nil
 	}

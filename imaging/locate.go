@@ -192,7 +192,8 @@ func flatten(p plane) float64 {
 	// About 10 000 samples on a grid are plenty for six coefficients.
 	step := max(1, int(math.Sqrt(float64(p.w*p.h)/10000)))
 	sx, sy := 2/float64(p.w-1), 2/float64(p.h-1)
-	var xs, ys, vs []float64
+	n := ((p.w + step - 1) / step) * ((p.h + step - 1) / step)
+	xs, ys, vs := make([]float64, 0, n), make([]float64, 0, n), make([]float64, 0, n)
 	for y := 0; y < p.h; y += step {
 		for x := 0; x < p.w; x += step {
 			xs, ys, vs = append(xs, float64(x)*sx-1), append(ys, float64(y)*sy-1), append(vs, float64(p.at(x, y)))
@@ -447,7 +448,7 @@ func glowRange(sp plane) float64 {
 // backgrounds and glows hardly change it.
 func pixelNoise(p plane) float64 {
 	step := max(1, p.w*p.h/20000)
-	var d []float64
+	d := make([]float64, 0, len(p.pix)/step+1)
 	for i := 0; i+1 < len(p.pix); i += step {
 		if (i+1)%p.w != 0 {
 			d = append(d, float64(p.pix[i+1]-p.pix[i]))

@@ -248,7 +248,7 @@ func TestNoiseShapeFollowsTheFrame(t *testing.T) {
 			out = append(out, v)
 		}
 	}
-	mi, mo := medianOf(in), medianOf(out)
+	mi, mo := peaks.MedianInPlace(in), peaks.MedianInPlace(out)
 	t.Logf("noise shape: %.2f in the noisy columns, %.2f elsewhere", mi, mo)
 	if mi < 3 || mo < 0.7 || mo > 1.3 {
 		t.Errorf("noise shape %.2f in the noisy columns, %.2f elsewhere", mi, mo)
