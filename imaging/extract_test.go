@@ -159,3 +159,82 @@ func nearestLine(s Strip, ps []peaks.Peak, x, y float64) float64 {
 	}
 	return best
 }
+
+// The kept image (Strip.Image) is for people to check the measurement by
+// eye, so it must show each line where the profile has it and in its own
+// colour: on a synthetic mercury photo (truth from the simulator), at full
+// width and shrunk by 1.2 (bilinear) and by 2.4 (area averaging), every
+// strong line's column in the image holds the brightest pixel of its
+// neighbourhood, within a pixel of where the strip puts it; the green line
+// (546 nm) is green, the blue one (436 nm) blue, the yellow pair neither
+// blue nor dim (the strongest line's core is not clipped to white); and the
+// brightest samples reach white.
+func TestKeptImageShowsTheLines(t *testing.T) {
+	p := synth.Params{Width: 1920, Height: 1080, LinesPerMM: 600, TiltDeg: 4, Seed: 5, Emissions: mercury}
+	path, tr := writeJPEG(t, p, 92)
+	for _, maxW := range []int{0, 1600, 800} {
+		s, err := Extract(path, Options{KeepImage: true, ImageMaxWidth: maxW})
+		if err != nil {
+			t.Fatal(err)
+		}
+		img := s.Image
+		if img == nil {
+			t.Fatalf("max width %d: no image kept", maxW)
+		}
+		W, H := img.Bounds().Dx(), img.Bounds().Dy()
+		L := len(s.Profile)
+		if maxW > 0 && W != maxW || maxW == 0 && W != L {
+			t.Fatalf("max width %d: image %d px wide for a %d-sample strip", maxW, W, L)
+		}
+		sn, cs := math.Sincos(s.AngleDeg * math.Pi / 180)
+		row := H / 2
+		px := func(x int) (r, g, b int) {
+			c := img.RGBAAt(x, row)
+			return int(c.R), int(c.G), int(c.B)
+		}
+		var top uint8
+		for _, v := range img.Pix {
+			top = max(top, v)
+		}
+		if top < 250 {
+			t.Errorf("max width %d: brightest code %d; the white point is not reached", maxW, top)
+		}
+		for _, l := range tr.Lines {
+			if l.NM < 400 || (l.NM > 410 && l.NM < 430) || (l.NM > 440 && l.NM < 540) {
+				continue // the weak lines
+			}
+			// The line's place along the strip, then in the image's columns.
+			u := (l.X-s.Origin[0])*cs + (l.Y-s.Origin[1])*sn
+			c := (u+0.5)*float64(W)/float64(L) - 0.5
+			ci := int(math.Round(c))
+			// Within half the way to the next line (the yellow pair lies
+			// a few columns apart in the smallest image).
+			reach := 4
+			for _, o := range tr.Lines {
+				uo := (o.X-s.Origin[0])*cs + (o.Y-s.Origin[1])*sn
+				if d := math.Abs(uo-u) * float64(W) / float64(L); o.NM != l.NM && d < 9 {
+					reach = min(reach, int(d/2))
+				}
+			}
+			best, bv := -1, -1
+			for x := max(0, ci-reach); x <= min(W-1, ci+reach); x++ {
+				r, g, b := px(x)
+				if v := r + g + b; v > bv {
+					best, bv = x, v
+				}
+			}
+			if math.Abs(float64(best)-c) > 1.01 {
+				t.Errorf("max width %d: %.1f nm expected at column %.2f, brightest at %d", maxW, l.NM, c, best)
+			}
+			r, g, b := px(best)
+			switch {
+			case l.NM > 540 && l.NM < 550 && !(g > r+40 && g > b+40):
+				t.Errorf("max width %d: the green line shows as (%d, %d, %d)", maxW, r, g, b)
+			case l.NM > 430 && l.NM < 440 && !(b > r && b > g):
+				t.Errorf("max width %d: the blue line shows as (%d, %d, %d)", maxW, r, g, b)
+			case l.NM > 570 && !(r > b && g > b && r+g > 150):
+				t.Errorf("max width %d: the yellow line %.1f nm shows as (%d, %d, %d)", maxW, l.NM, r, g, b)
+			}
+		}
+	}
+}

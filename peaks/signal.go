@@ -99,10 +99,6 @@ func Median(v []float64) float64 { return median(v) }
 // copying it.
 func MedianInPlace(v []float64) float64 { return medianOf(v) }
 
-// KthInPlace returns the value a sort of v would put at index k (0 ≤ k <
-// len(v)), reordering v instead: a quantile without the sort's cost.
-func KthInPlace(v []float64, k int) float64 { return selectK(v, k) }
-
 func median(v []float64) float64 {
 	return medianOf(append([]float64(nil), v...))
 }
