@@ -91,9 +91,9 @@ func BenchmarkBatch(b *testing.B) {
 			}
 		}
 	}
-	// jobs=1,serial measures each photo with one goroutine, as each of the
-	// two workers of jobs=2 does (OpenCV's own threads are not limited in
-	// either): the base of the scaling figure. jobs=1 is the default use
+	// jobs=1,serial measures each photo with one goroutine (and one
+	// OpenCV thread), as each of the two workers of jobs=2 does: the base
+	// of the scaling figure. jobs=1 is the default use
 	// of --jobs 1, each photo's work spread over the CPUs.
 	for _, run := range []struct {
 		name string
