@@ -591,7 +591,7 @@ func (b *batchRun) process(path string, bn bench) (photoRecord, bool) {
 	cachePath := filepath.Join(b.out, "cache", key+".json")
 	if old, err := os.ReadFile(cachePath); err == nil {
 		var c photoRecord
-		if json.Unmarshal(old, &c) == nil && c.File == path && c.Size == rec.Size && c.ModTime == rec.ModTime && c.Options == rec.Options {
+		if json.Unmarshal(old, &c) == nil && c.File == path && c.Size == rec.Size && c.ModTime == rec.ModTime && c.Options == rec.Options && b.imageKept(c) {
 			return c, true
 		}
 	}
@@ -608,15 +608,27 @@ func (b *batchRun) process(path string, bn bench) (photoRecord, bool) {
 		rec.IDs = calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{Workers: b.cfg.imageOpts.Workers})
 		if m.strip.Image != nil {
 			name := filepath.Join("images", key+".jpg")
-			if err := writeStripImage(filepath.Join(b.out, name), m); err == nil {
+			if err := writeStripImage(filepath.Join(b.out, name), m, true); err == nil {
 				rec.Image = name
 			}
 		}
 	}
-	if err := writeJSONAtomic(cachePath, rec); err != nil {
+	if err := writeDerivedAtomic(cachePath, func(w io.Writer) error { return encodeJSON(w, rec) }); err != nil {
 		rec.Error = err.Error()
 	}
 	return rec, false
+}
+
+// imageKept reports whether a cached record's band image is still there
+// (a record without one needs none): a missing or empty image (removed by
+// hand, or cut short by a power cut, see writeDerivedAtomic) sends the
+// photo back to be measured.
+func (b *batchRun) imageKept(c photoRecord) bool {
+	if c.Image == "" {
+		return true
+	}
+	st, err := os.Stat(filepath.Join(b.out, c.Image))
+	return err == nil && st.Size() > 0
 }
 
 func displayErr(s string) string {

@@ -161,6 +161,50 @@ func TestBatchOverALab(t *testing.T) {
 	}
 }
 
+// The cache holds derived files, written without a flush to disk: a
+// record cut to nothing or a band image lost or emptied (a power cut, a
+// tidy-up by hand) sends that photo back to be measured, and the rerun's
+// report has every band image again.
+func TestBatchRemeasuresDamagedCache(t *testing.T) {
+	root := makeLab(t)
+	out := filepath.Join(t.TempDir(), "results")
+	runCLI(t, "batch", "--quiet", "--out", out, root)
+	recs, _ := filepath.Glob(filepath.Join(out, "cache", "*.json"))
+	var withImage []photoRecord
+	var paths []string
+	for _, p := range recs {
+		raw, _ := os.ReadFile(p)
+		var r photoRecord
+		if json.Unmarshal(raw, &r) == nil && r.Image != "" {
+			withImage, paths = append(withImage, r), append(paths, p)
+		}
+	}
+	if len(withImage) < 3 {
+		t.Fatalf("%d cached photos with a band image, want 3 or more", len(withImage))
+	}
+	os.WriteFile(paths[0], nil, 0o644)                               // record cut to nothing
+	os.Remove(filepath.Join(out, withImage[1].Image))                // image lost
+	os.WriteFile(filepath.Join(out, withImage[2].Image), nil, 0o644) // image emptied
+	stdout, _, _ := runCLI(t, "batch", "--quiet", "--out", out, root)
+	if !strings.Contains(stdout, "(5 unchanged since the last run") { // 8 cached, 3 damaged
+		t.Errorf("rerun after damage: %s", stdout)
+	}
+	d := readBatch(t, out)
+	n := 0
+	for _, b := range d.Benches {
+		for name, img := range b.Images {
+			st, err := os.Stat(filepath.Join(out, img))
+			if err != nil || st.Size() == 0 {
+				t.Errorf("%s: band image %s missing or empty after the rerun", name, img)
+			}
+			n++
+		}
+	}
+	if n != len(withImage) {
+		t.Errorf("%d band images in the rerun's results, %d before", n, len(withImage))
+	}
+}
+
 // Interrupted midway, a batch keeps what it finished and writes complete
 // outputs; the next run measures only the rest.
 func TestBatchInterruptedAndResumed(t *testing.T) {

@@ -548,7 +548,7 @@ func findLines(s imaging.Strip, path string, cfg measureConfig) (measured, error
 		return measured{}, fmt.Errorf("%s: no line stands above the noise (threshold %.1fσ)", path, cfg.minSNR)
 	}
 	if cfg.saveStrip != "" {
-		if err := writeStripImage(cfg.saveStrip, measured{strip: s, found: r}); err != nil {
+		if err := writeStripImage(cfg.saveStrip, measured{strip: s, found: r}, false); err != nil {
 			return measured{}, err
 		}
 	}

@@ -39,10 +39,11 @@ var (
 const stripImageWidth = 1600
 
 // writeStripImage saves (as JPEG, quality 85) the straightened band with
-// an amber tick above and below every measured line. The band image comes
+// an amber tick above and below every measured line; with derived set it
+// is written as a file the batch can make again (writeDerivedAtomic). The band image comes
 // from imaging already shrunk to at most stripImageWidth px across
 // (Options.ImageMaxWidth); the ticks scale from profile positions to it.
-func writeStripImage(path string, m measured) error {
+func writeStripImage(path string, m measured, derived bool) error {
 	src := m.strip.Image
 	if src == nil {
 		return nil
@@ -68,7 +69,11 @@ func writeStripImage(path string, m measured) error {
 	if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
 		return err
 	}
-	return writeFileAtomic(path, func(wr io.Writer) error { return imaging.WriteJPEG(wr, dst, 85) })
+	enc := func(wr io.Writer) error { return imaging.WriteJPEG(wr, dst, 85) }
+	if derived {
+		return writeDerivedAtomic(path, enc)
+	}
+	return writeFileAtomic(path, enc)
 }
 
 // pngData renders a plot to a data: URI. SVG, not PNG: vector text renders
