@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"fmt"
+	"math"
 	"os"
 	"path/filepath"
 	"testing"
@@ -76,18 +77,23 @@ func BenchmarkMeasure(b *testing.B) {
 	}
 }
 
-// BenchmarkBatch measures 24 photos (12 benches) with 1 and 2 workers;
-// photos/s is the throughput.
+// BenchmarkBatch measures a class's worth, 100 photos (10 benches of 2
+// mercury and 8 hydrogen photos, 1080p), with 1 and 2 workers; photos/s
+// is the throughput.
 func BenchmarkBatch(b *testing.B) {
-	root := filepath.Join(os.TempDir(), "lineshot-bench-lab")
-	if _, err := os.Stat(filepath.Join(root, "b11", "h.jpg")); err != nil {
-		for k := 0; k < 12; k++ {
+	root := filepath.Join(os.TempDir(), "lineshot-bench-class")
+	if _, err := os.Stat(filepath.Join(root, "b09", "h8.jpg")); err != nil {
+		for k := 0; k < 10; k++ {
 			d := filepath.Join(root, fmt.Sprintf("b%02d", k))
 			os.MkdirAll(d, 0o755)
-			for _, l := range []string{"mercury", "hydrogen"} {
-				raw, _ := os.ReadFile(benchFile(b, l, 1920, 1080, uint64(10+k)))
-				name := map[string]string{"mercury": "hg.jpg", "hydrogen": "h.jpg"}[l]
-				os.WriteFile(filepath.Join(d, name), raw, 0o644)
+			for _, l := range []struct {
+				lamp, name string
+				n          int
+			}{{"mercury", "hg", 2}, {"hydrogen", "h", 8}} {
+				raw, _ := os.ReadFile(benchFile(b, l.lamp, 1920, 1080, uint64(10+k)))
+				for i := 1; i <= l.n; i++ {
+					os.WriteFile(filepath.Join(d, fmt.Sprintf("%s%d.jpg", l.name, i)), raw, 0o644)
+				}
 			}
 		}
 	}
@@ -101,6 +107,7 @@ func BenchmarkBatch(b *testing.B) {
 	}{{"jobs=1,serial", []string{"-j", "1", "--photo-threads", "1"}}, {"jobs=1", []string{"-j", "1"}}, {"jobs=2", []string{"-j", "2"}}} {
 		b.Run(run.name, func(b *testing.B) {
 			var total time.Duration
+			best := time.Duration(math.MaxInt64)
 			for i := 0; i < b.N; i++ {
 				out := b.TempDir()
 				var so, se bytes.Buffer
@@ -108,9 +115,15 @@ func BenchmarkBatch(b *testing.B) {
 				if err := batchMain(context.Background(), append(run.args, "--quiet", "--out", out, root), &so, &se, nil); err != nil {
 					b.Fatalf("%v: %s", err, se.String())
 				}
-				total += time.Since(t0)
+				d := time.Since(t0)
+				total += d
+				best = min(best, d)
 			}
-			b.ReportMetric(24*float64(b.N)/total.Seconds(), "photos/s")
+			// The mean, and the fastest run: on a shared machine other
+			// work only ever slows a run down, so the fastest is the
+			// steadier figure of what the program can do.
+			b.ReportMetric(100*float64(b.N)/total.Seconds(), "photos/s")
+			b.ReportMetric(100/best.Seconds(), "best-photos/s")
 		})
 	}
 }
