@@ -448,9 +448,8 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 	// A whole reduction factor keeps OpenCV's area averaging on its fast path.
 	k := max(1, int(math.Ceil(float64(max(fr.w, fr.h))/searchScale)))
 	sw, sh := max(8, fr.w/k), max(8, fr.h/k)
-	small := gocv.NewMat()
+	small := reduceArea(m, k, sw, sh)
 	defer small.Close()
-	gocv.Resize(m, &small, image.Pt(sw, sh), 0, 0, gocv.InterpolationArea)
 	sp, err := sumPlane(small, lut, opt.workers())
 	if err != nil {
 		return nil, err
@@ -592,6 +591,33 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 		return nil, fmt.Errorf("%w: no band could be straightened", ErrNoBand)
 	}
 	return out, nil
+}
+
+// reduceArea averages the frame m down to sw×sh (k×k blocks). When k is
+// a power of two dividing both sides it halves k times over: OpenCV's
+// area reduction has a vector path for halving alone, and two halvings of a
+// 12 MP frame took 2.1 ms against 6.2 for one reduction by 4 (best of 15 on
+// these machines). Each halving rounds to whole codes, so a reduced pixel
+// may differ from the direct average by one code: far below what the band
+// search looks at (its thresholds are several noise σ).
+func reduceArea(m gocv.Mat, k, sw, sh int) gocv.Mat {
+	cur := m
+	if k&(k-1) == 0 && sw*k == m.Cols() && sh*k == m.Rows() {
+		for ; k > 1; k /= 2 {
+			next := gocv.NewMat()
+			gocv.Resize(cur, &next, image.Pt(cur.Cols()/2, cur.Rows()/2), 0, 0, gocv.InterpolationArea)
+			if cur.Ptr() != m.Ptr() {
+				cur.Close()
+			}
+			cur = next
+		}
+		if cur.Ptr() != m.Ptr() {
+			return cur
+		}
+	}
+	small := gocv.NewMat()
+	gocv.Resize(m, &small, image.Pt(sw, sh), 0, 0, gocv.InterpolationArea)
+	return small
 }
 
 // strongestGuess is the index of the band with the brightest plateau.
