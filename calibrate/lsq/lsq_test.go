@@ -158,3 +158,54 @@ func gonumNewton(p Problem, init []float64) []float64 {
 	res, _ := optimize.Minimize(prob, init, settings, &optimize.Newton{})
 	return res.X
 }
+
+// solveSPD gives the solution gonum's mat.Cholesky gives on well-posed
+// systems (random AᵀA + I, up to 12×12), and refuses what mat.Cholesky
+// refuses: a matrix that is not positive definite, and one whose
+// condition number is far beyond 1e16.
+func TestSolveSPDMatchesCholesky(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 8))
+	for trial := 0; trial < 200; trial++ {
+		k := 1 + rng.IntN(12)
+		a := mat.NewDense(k+3, k, nil)
+		for i := 0; i < k+3; i++ {
+			for j := 0; j < k; j++ {
+				a.Set(i, j, rng.NormFloat64()*math.Pow(10, float64(rng.IntN(5))))
+			}
+		}
+		m := mat.NewSymDense(k, nil)
+		m.SymOuterK(1, a.T())
+		for i := 0; i < k; i++ {
+			m.SetSym(i, i, m.At(i, i)+1)
+		}
+		b := make([]float64, k)
+		for i := range b {
+			b[i] = rng.NormFloat64()
+		}
+		var ch mat.Cholesky
+		var want mat.VecDense
+		if !ch.Factorize(m) || ch.SolveVecTo(&want, mat.NewVecDense(k, append([]float64(nil), b...))) != nil {
+			t.Fatalf("trial %d: mat.Cholesky failed on a well-posed system", trial)
+		}
+		got := make([]float64, k)
+		if !solveSPD(mat.NewSymDense(k, append([]float64(nil), m.RawSymmetric().Data...)), b, got) {
+			t.Fatalf("trial %d: solveSPD refused a well-posed %dx%d system", trial, k, k)
+		}
+		for i := range got {
+			if d := math.Abs(got[i] - want.AtVec(i)); d > 1e-9*math.Max(1, math.Abs(want.AtVec(i))) {
+				t.Fatalf("trial %d: x[%d] = %g, mat.Cholesky %g", trial, i, got[i], want.AtVec(i))
+			}
+		}
+	}
+	x := make([]float64, 2)
+	if solveSPD(mat.NewSymDense(2, []float64{1, 2, 2, 1}), []float64{1, 1}, x) {
+		t.Error("solved an indefinite system")
+	}
+	if solveSPD(mat.NewSymDense(2, []float64{1, 0, 0, 1e-20}), []float64{1, 1}, x) {
+		t.Error("solved a system with condition number 1e20")
+	}
+	var ch mat.Cholesky
+	if ch.Factorize(mat.NewSymDense(2, []float64{1, 0, 0, 1e-20})) && ch.SolveVecTo(new(mat.VecDense), mat.NewVecDense(2, []float64{1, 1})) == nil {
+		t.Error("mat.Cholesky solved the 1e20 system: the two disagree on what to refuse")
+	}
+}
