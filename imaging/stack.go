@@ -152,7 +152,7 @@ func accumulate(paths []string, maxVideo int, opt Options) (average, error) {
 			a.compressed = true
 			continue
 		}
-		format, err := checkFile(path, opt)
+		format, _, err := checkFile(path, opt)
 		if err != nil {
 			return a, err
 		}
@@ -175,7 +175,7 @@ func accumulate(paths []string, maxVideo int, opt Options) (average, error) {
 
 // readVideo passes up to max frames of the video at path to add.
 func readVideo(path string, max int, add func(string, gocv.Mat) error) error {
-	if _, err := checkFile(path, Options{}); err != nil {
+	if _, _, err := checkFile(path, Options{}); err != nil {
 		return err
 	}
 	if err := sniffVideo(path); err != nil {
