@@ -226,8 +226,8 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	}
 	opt = opt.withProfile(format == "jpeg")
 	if opt.workers() > 1 {
-		// A process's first photo builds the transfer tables (24 ms for
-		// 8 bits): on a spare core while the photo decodes.
+		// A process's first photo builds the transfer tables (12-24 ms
+		// for 8 bits): on a spare core while the photo decodes.
 		go tablesFor(levelsOf(cfg), opt.Linear)
 	}
 	t0 := time.Now()

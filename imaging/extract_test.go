@@ -7,10 +7,13 @@ import (
 	"image/jpeg"
 	"io"
 	"math"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"gocv.io/x/gocv"
 
 	"lineshot/imaging/synth"
 	"lineshot/peaks"
@@ -236,5 +239,43 @@ func TestKeptImageShowsTheLines(t *testing.T) {
 				t.Errorf("max width %d: the yellow line %.1f nm shows as (%d, %d, %d)", maxW, l.NM, r, g, b)
 			}
 		}
+	}
+}
+
+// reduceArea's halvings agree with OpenCV's one-step area reduction to
+// within one code on a noisy random frame (each halving rounds), for
+// factors 2, 4 and 8; a size the factor does not divide takes the one-step
+// path and agrees exactly.
+func TestReduceAreaHalvings(t *testing.T) {
+	rng := rand.New(rand.NewPCG(1, 2))
+	for _, c := range []struct{ w, h, k int }{{640, 480, 2}, {1024, 768, 4}, {2048, 1536, 8}, {1030, 770, 4}} {
+		img := image.NewRGBA(image.Rect(0, 0, c.w, c.h))
+		for i := range img.Pix {
+			img.Pix[i] = uint8(rng.IntN(256))
+		}
+		m, err := gocv.ImageToMatRGB(img)
+		if err != nil {
+			t.Fatal(err)
+		}
+		sw, sh := c.w/c.k, c.h/c.k
+		got := reduceArea(m, c.k, sw, sh)
+		want := gocv.NewMat()
+		gocv.Resize(m, &want, image.Pt(sw, sh), 0, 0, gocv.InterpolationArea)
+		if got.Cols() != sw || got.Rows() != sh {
+			t.Fatalf("%dx%d by %d: %dx%d, want %dx%d", c.w, c.h, c.k, got.Cols(), got.Rows(), sw, sh)
+		}
+		g, _ := got.DataPtrUint8()
+		w, _ := want.DataPtrUint8()
+		worst := 0
+		for i := range w {
+			worst = max(worst, abs(int(g[i])-int(w[i])))
+		}
+		exact := c.w%c.k != 0 || c.h%c.k != 0
+		if worst > 1 || exact && worst != 0 {
+			t.Errorf("%dx%d by %d: differs from the one-step reduction by up to %d codes", c.w, c.h, c.k, worst)
+		}
+		m.Close()
+		got.Close()
+		want.Close()
 	}
 }
