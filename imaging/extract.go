@@ -2075,31 +2075,94 @@ func abs(x int) int {
 	return x
 }
 
-// The linearised band region of a 12 MP photo is tens of megabytes; made
-// anew for every photo it cost a zeroing pass and garbage collections
-// (about 18 ms a photo in a CPU profile). These pools hand the buffers of
-// one photo to the next (per goroutine, as sync.Pool does).
+// The linearised band region of a 12 MP photo is tens of megabytes. Made
+// anew in Go's heap for every photo it cost a zeroing pass and garbage
+// collections (about 18 ms a photo in a CPU profile), and a sync.Pool,
+// which empties at every collection, still missed often enough to fault
+// fresh pages in (one region took 24 ms instead of 4); the collector's
+// target also let the heap grow to twice these buffers. So they live in C
+// memory (OpenCV Mats), handed from one photo to the next and freed only
+// beyond a few spare ones.
 var (
-	f32Pool slicePool[float32]
-	u8Pool  slicePool[uint8]
+	f32Pool = newMatPool[float32](gocv.MatTypeCV32FC1)
+	u8Pool  = newMatPool[uint8](gocv.MatTypeCV8UC1)
 )
 
-// slicePool hands out slices of T with arbitrary contents.
-type slicePool[T any] struct{ p sync.Pool }
-
-// get returns a slice of n elements, reused when one large enough is free.
-func (sp *slicePool[T]) get(n int) []T {
-	if p, ok := sp.p.Get().(*[]T); ok && cap(*p) >= n {
-		return (*p)[:n]
-	}
-	return make([]T, n)
+// matPool hands out slices of T with arbitrary contents in C memory. Every
+// slice got must be put back (or it stays allocated until the process
+// ends); put ignores slices it did not hand out.
+type matPool[T float32 | uint8] struct {
+	typ  gocv.MatType
+	mu   sync.Mutex
+	out  map[uintptr]gocv.Mat // handed out, by the address of the first element
+	free []gocv.Mat           // spare, oldest first
 }
 
-// put returns s to the pool.
-func (sp *slicePool[T]) put(s []T) {
-	if cap(s) > 0 {
-		sp.p.Put(&s)
+// maxSpare is how many spare buffers a pool keeps: two a worker on two
+// CPUs, with room for a batch's photos of different sizes.
+const maxSpare = 6
+
+func newMatPool[T float32 | uint8](typ gocv.MatType) *matPool[T] {
+	return &matPool[T]{typ: typ, out: map[uintptr]gocv.Mat{}}
+}
+
+// get returns a slice of n elements: the smallest spare one that holds n,
+// or a new one with a sixteenth to spare (the next photo's region is
+// seldom exactly as large).
+func (p *matPool[T]) get(n int) []T {
+	if n <= 0 {
+		return nil
 	}
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	best := -1
+	for i, m := range p.free {
+		if m.Cols() >= n && (best < 0 || m.Cols() < p.free[best].Cols()) {
+			best = i
+		}
+	}
+	var m gocv.Mat
+	if best >= 0 {
+		m = p.free[best]
+		p.free = slices.Delete(p.free, best, best+1)
+	} else {
+		m = gocv.NewMatWithSize(1, n+n/16, p.typ)
+	}
+	b, err := m.DataPtrUint8()
+	if err != nil || len(b) < n*int(unsafe.Sizeof(T(0))) {
+		m.Close()
+		return make([]T, n) // (not expected) Go's heap instead; put ignores it
+	}
+	s := unsafe.Slice((*T)(unsafe.Pointer(&b[0])), n)
+	p.out[uintptr(unsafe.Pointer(&s[0]))] = m
+	return s
+}
+
+// put gives s back for reuse.
+func (p *matPool[T]) put(s []T) {
+	if cap(s) == 0 {
+		return
+	}
+	key := uintptr(unsafe.Pointer(&s[:1][0]))
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	m, ok := p.out[key]
+	if !ok {
+		return
+	}
+	delete(p.out, key)
+	p.free = append(p.free, m)
+	if len(p.free) > maxSpare {
+		p.free[0].Close()
+		p.free = slices.Delete(p.free, 0, 1)
+	}
+}
+
+// outstanding is how many slices are handed out and not yet put back.
+func (p *matPool[T]) outstanding() int {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	return len(p.out)
 }
 
 // workers is the number of goroutines Options asks for.

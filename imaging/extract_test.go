@@ -5,6 +5,7 @@ import (
 	"image"
 	"image/color"
 	"image/jpeg"
+	"image/png"
 	"io"
 	"math"
 	"math/rand/v2"
@@ -278,4 +279,65 @@ func TestReduceAreaHalvings(t *testing.T) {
 		got.Close()
 		want.Close()
 	}
+}
+
+// The region buffers live in C memory (matPool): one not given back stays
+// allocated for the life of the process, so every path through an
+// extraction must return each one. After a plain photo, a saturated one
+// (the colour path), a lit bench, several bands, an averaged stack with a
+// dark frame, a photo with no band and a 16-bit frame, nothing is out.
+func TestPoolBuffersComeBack(t *testing.T) {
+	plain := synth.Params{Width: 1280, Height: 720, LinesPerMM: 600, TiltDeg: 3, Seed: 21, Emissions: mercury}
+	over := plain
+	over.PeakLevel, over.Seed = 6, 22
+	lit := plain
+	lit.Seed, lit.Glows = 23, []synth.Glow{{X: 600, Y: 250, SigmaPX: 120, Level: 0.12}}
+	two := plain
+	two.Seed, two.Stacked = 24, []synth.StackedLamp{{Emissions: hydrogen, OffsetPX: 160}}
+	dark := plain
+	dark.Seed, dark.PeakLevel = 25, 1e-9 // the lamp off
+	check := func(what string) {
+		t.Helper()
+		if n, m := f32Pool.outstanding(), u8Pool.outstanding(); n != 0 || m != 0 {
+			t.Errorf("after %s: %d float and %d byte buffers not given back", what, n, m)
+		}
+	}
+	for name, p := range map[string]synth.Params{"a plain photo": plain, "a saturated photo": over, "a lit bench": lit} {
+		path, _ := writeJPEG(t, p, 92)
+		s, err := Extract(path, Options{})
+		if err != nil {
+			t.Fatalf("%s: %v", name, err)
+		}
+		if name == "a saturated photo" && s.Saturated == 0 {
+			t.Errorf("%s: nothing saturated, the colour path was not taken", name)
+		}
+		if name == "a lit bench" && !s.StrayLight {
+			t.Errorf("%s: not taken for a lit bench", name)
+		}
+		check(name)
+	}
+	path, _ := writeJPEG(t, two, 92)
+	if ss, err := ExtractBands(path, Options{}); err != nil || len(ss) != 2 {
+		t.Fatalf("two bands: %d strips, %v", len(ss), err)
+	}
+	check("two bands")
+	img, _, err := synth.Render(plain)
+	if err != nil {
+		t.Fatal(err)
+	}
+	png16 := writeImageFile(t, "deep.png", func(w io.Writer) error { return png.Encode(w, deep(img)) })
+	if _, err := Extract(png16, Options{}); err != nil {
+		t.Fatalf("16-bit: %v", err)
+	}
+	check("a 16-bit frame")
+	a, _ := writeJPEG(t, plain, 92)
+	d, _ := writeJPEG(t, dark, 92)
+	if _, err := ExtractStack(Stack{Frames: []string{a, a}, Dark: []string{d}}, Options{}); err != nil {
+		t.Fatalf("stack: %v", err)
+	}
+	check("a stack with a dark frame")
+	if _, err := Extract(d, Options{}); err == nil {
+		t.Fatal("a photo of the lamp off gave a band")
+	}
+	check("a photo with no band")
 }
