@@ -1454,10 +1454,10 @@ func colRange(a, d, lim float64, L int) (int, int) {
 
 // displayStrip warps the band from the decoded frame's own codes (OpenCV,
 // bilinear, 8 or 16 bits a sample) into an L×H strip for display, scaled
-// in linear light so that its brightest samples are white (encodeStrip), sRGB-encoded,
-// and shrunk to at most maxW pixels across when maxW > 0 (area averaging
-// from twice that width up, where thin lines would otherwise alias;
-// bilinear below, a fifth of the time for a 1920 px strip).
+// in linear light so that its brightest samples are white (encodeStrip),
+// sRGB-encoded, and shrunk to at most maxW pixels across when maxW > 0
+// (area averaging from twice that width up, where thin lines would
+// otherwise alias; bilinear below, a fifth of the time for a 1920 px strip).
 // Display only: interpolating codes is not interpolating intensity.
 func displayStrip(fr frame, lut []float32, ang, u0, v0 float64, L, H int, bow Bow, maxW int) (*image.RGBA, error) {
 	sn, cs := math.Sincos(ang * math.Pi / 180)

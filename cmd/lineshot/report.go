@@ -39,9 +39,9 @@ var (
 const stripImageWidth = 1600
 
 // writeStripImage saves (as JPEG, quality 85) the straightened band with
-// an amber tick above and below every measured line; with derived set it
-// is written as a file the batch can make again (writeDerivedAtomic). The band image comes
-// from imaging already shrunk to at most stripImageWidth px across
+// an amber tick above and below every measured line; with derived set, as
+// a file the batch can make again (writeDerivedAtomic). The band image
+// comes from imaging already shrunk to at most stripImageWidth px across
 // (Options.ImageMaxWidth); the ticks scale from profile positions to it.
 func writeStripImage(path string, m measured, derived bool) error {
 	src := m.strip.Image
