@@ -2095,12 +2095,17 @@ type matPool[T float32 | uint8] struct {
 	typ  gocv.MatType
 	mu   sync.Mutex
 	out  map[uintptr]gocv.Mat // handed out, by the address of the first element
-	free []gocv.Mat           // spare, oldest first
+	free []gocv.Mat           // spare
 }
 
-// maxSpare is how many spare buffers a pool keeps: two a worker on two
-// CPUs, with room for a batch's photos of different sizes.
-const maxSpare = 6
+// A pool keeps at most maxSpare spare buffers (two a worker on two CPUs,
+// with room for a batch's photos of different sizes) holding at most
+// maxSpareBytes: the largest go first, so a 50 MP frame's colour region
+// (about 200 MB) is freed at once while a 12 MP photo's buffers stay.
+const (
+	maxSpare      = 6
+	maxSpareBytes = 128 << 20
+)
 
 func newMatPool[T float32 | uint8](typ gocv.MatType) *matPool[T] {
 	return &matPool[T]{typ: typ, out: map[uintptr]gocv.Mat{}}
@@ -2152,9 +2157,21 @@ func (p *matPool[T]) put(s []T) {
 	}
 	delete(p.out, key)
 	p.free = append(p.free, m)
-	if len(p.free) > maxSpare {
-		p.free[0].Close()
-		p.free = slices.Delete(p.free, 0, 1)
+	size := int(unsafe.Sizeof(T(0)))
+	bytes := 0
+	for _, f := range p.free {
+		bytes += f.Cols() * size
+	}
+	for len(p.free) > maxSpare || bytes > maxSpareBytes {
+		big := 0
+		for i, f := range p.free {
+			if f.Cols() > p.free[big].Cols() {
+				big = i
+			}
+		}
+		bytes -= p.free[big].Cols() * size
+		p.free[big].Close()
+		p.free = slices.Delete(p.free, big, big+1)
 	}
 }
 

@@ -341,3 +341,46 @@ func TestPoolBuffersComeBack(t *testing.T) {
 	}
 	check("a photo with no band")
 }
+
+// A pool reuses the smallest spare buffer that holds a request, keeps at
+// most maxSpare spares within maxSpareBytes (freeing the largest first),
+// and ignores slices it did not hand out.
+func TestMatPoolReuseAndBounds(t *testing.T) {
+	p := newMatPool[float32](gocv.MatTypeCV32FC1)
+	a, b := p.get(1000), p.get(5000)
+	a[0], b[0] = 1, 2
+	p.put(a)
+	p.put(b)
+	p.put(make([]float32, 10)) // not the pool's
+	if c := p.get(900); &c[0] != &a[0] {
+		t.Error("a request for 900 did not get the spare of 1000")
+	} else {
+		p.put(c)
+	}
+	if c := p.get(4000); &c[0] != &b[0] {
+		t.Error("a request for 4000 did not get the spare of 5000")
+	} else {
+		p.put(c)
+	}
+	huge := p.get(maxSpareBytes/4 + 1) // more bytes than spares may hold
+	p.put(huge)
+	var many [][]float32
+	for i := 0; i < maxSpare+3; i++ {
+		many = append(many, p.get(100+i))
+	}
+	for _, s := range many {
+		p.put(s)
+	}
+	bytes := 0
+	for _, f := range p.free {
+		bytes += 4 * f.Cols()
+	}
+	if len(p.free) > maxSpare || bytes > maxSpareBytes || p.outstanding() != 0 {
+		t.Errorf("%d spares of %d bytes, %d out; at most %d spares, %d bytes", len(p.free), bytes, p.outstanding(), maxSpare, maxSpareBytes)
+	}
+	for _, f := range p.free {
+		if f.Cols() > maxSpareBytes/4 {
+			t.Error("the oversized buffer was kept")
+		}
+	}
+}
