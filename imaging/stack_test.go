@@ -148,6 +148,12 @@ func TestStackAveragesAndSubtractsDark(t *testing.T) {
 	if rmsN > 0.15 || rmsD > 0.15 {
 		t.Errorf("stacked centres off the truth by %.3f px RMS (dark subtracted: %.3f)", rmsN, rmsD)
 	}
+	// One dim frame alone still meets the target for lines at SNR 10-50
+	// (0.4 px): a band's centre line measured on too few of its rows had
+	// picked noise for lines and put this frame 1.02 px off.
+	if rms1 > 0.4 {
+		t.Errorf("one dim frame: centres off the truth by %.3f px RMS", rms1)
+	}
 	if len(strayN) == 0 {
 		t.Errorf("the stray stripe should show as a line without the dark frame (test is not testing)")
 	}
