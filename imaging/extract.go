@@ -1054,8 +1054,9 @@ func (t lumaLUT) of(r, g, b int) float32 {
 
 // linearRegion copies the region of the frame into the profile's plane
 // (linearised luma, or the linear channel sum) and a per-pixel clip mask
-// (nil when no pixel of the region is clipped); with all set, also into linear R, G, B and luma interleaved (four values
-// a pixel), for the colour channels.
+// (nil when no pixel of the region is clipped); with all set, also into
+// linear R, G, B and luma interleaved (four values a pixel), for the
+// colour channels.
 func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, profile string, all bool, workers int) (plane, []float32, []uint8) {
 	w, h := roi.Dx(), roi.Dy()
 	lut := tables.lut
@@ -1610,13 +1611,7 @@ func lineCurvature(px []float32, stride, off, L, H, sd, workers int) *lineShape 
 	for i := range prof {
 		prof[i] -= base
 	}
-	var maxima []int
-	for i := 5; i < L-5; i++ {
-		if prof[i] > prof[i-1] && prof[i] >= prof[i+1] && prof[i] > 0 {
-			maxima = append(maxima, i)
-		}
-	}
-	sort.Slice(maxima, func(a, b int) bool { return prof[maxima[a]] > prof[maxima[b]] })
+	maxima := maximaByHeight(prof, 5)
 	type meas struct{ col, b, k, w float64 }
 	const r, groups = 4, 6
 	per := (hi - lo + 1) / groups
@@ -1894,7 +1889,7 @@ func warpAffine(src gocv.Mat, org image.Point, sn, cs, u0, v0, vStep float64, L,
 // geometry before the full straightening. Rows are numbered as straighten
 // numbers them. Only what fitCentreAt reads is warped: every sparseRows-th
 // core row and the two edge rows, to pick the strongest lines' columns
-// from, then all rows of 13 columns about each picked line, from which its
+// from, then all rows of the columns about each picked line, from which its
 // centre and strength are measured as on a full warp. On a 12 MP band this
 // is about half the pixels a full warp of the core takes; every 4th row
 // was a quarter, but a dim single frame (the stack test's) then picked
@@ -1930,7 +1925,7 @@ func centreOnly(luma []float32, roi image.Rectangle, ang, vc, hh, side, u0, u1 f
 		prof[i] = prof[i]*scale - float64(H-2*m)*float64(ex[i]+ex[L+i])/2
 	}
 	fit := fitCentreAt(L, H, prof, func(c int, vp []float64) float64 {
-		c0, c1 := max(0, c-6), min(L-1, c+6)
+		c0, c1 := max(0, c-centreReach), min(L-1, c+centreReach)
 		win, err := warp(luma, 1, roi, ang, u0+float64(c0), v0, 1, c1-c0+1, H, Bow{})
 		if err != nil {
 			clear(vp)
@@ -1994,6 +1989,20 @@ type centreFit struct {
 	pts [][3]float64
 }
 
+// maximaByHeight returns the local maxima of prof above 0, at least edge
+// samples from either end, highest first: the candidate lines the centre
+// line and the line shapes are measured at.
+func maximaByHeight(prof []float64, edge int) []int {
+	var maxima []int
+	for i := edge; i < len(prof)-edge; i++ {
+		if prof[i] > prof[i-1] && prof[i] >= prof[i+1] && prof[i] > 0 {
+			maxima = append(maxima, i)
+		}
+	}
+	sort.Slice(maxima, func(a, b int) bool { return prof[maxima[a]] > prof[maxima[b]] })
+	return maxima
+}
+
 // fitCentreLine measures, at up to 12 of the strongest local maxima of
 // the column profile prof, the centre of the line image across the strip
 // (midpoint of its half-maximum edges, on the luma channel) and fits a
@@ -2004,9 +2013,7 @@ func fitCentreLine(px []float32, stride, off, L, H int, prof []float64) centreFi
 	return fitCentreAt(L, H, prof, func(m int, vp []float64) float64 {
 		for j := range vp {
 			vp[j] = 0
-			// ±6 columns hold all of a line that leans a few pixels
-			// across the band (off-axis bands, sheared images).
-			for i := max(0, m-6); i <= min(L-1, m+6); i++ {
+			for i := max(0, m-centreReach); i <= min(L-1, m+centreReach); i++ {
 				vp[j] += float64(px[stride*(j*L+i)+off])
 			}
 		}
@@ -2014,18 +2021,17 @@ func fitCentreLine(px []float32, stride, off, L, H int, prof []float64) centreFi
 	})
 }
 
+// centreReach is how many columns either side of a line fitCentreLine
+// sums to find the line's centre across the strip: ±6 hold all of a line
+// that leans a few pixels across the band (off-axis bands, sheared images).
+const centreReach = 6
+
 // fitCentreAt is fitCentreLine with the strip read through at: at(m, vp)
-// fills vp[j], j < H, with the sum over columns m−6..m+6 (within the
-// strip) of row j, and returns column m's strength (the fit's weight).
+// fills vp[j], j < H, with the sum over columns m ± centreReach (within
+// the strip) of row j, and returns column m's strength (the fit's weight).
 // prof only picks the columns.
 func fitCentreAt(L, H int, prof []float64, at func(m int, vp []float64) float64) centreFit {
-	var maxima []int
-	for i := 2; i < L-2; i++ {
-		if prof[i] > prof[i-1] && prof[i] >= prof[i+1] && prof[i] > 0 {
-			maxima = append(maxima, i)
-		}
-	}
-	sort.Slice(maxima, func(a, b int) bool { return prof[maxima[a]] > prof[maxima[b]] })
+	maxima := maximaByHeight(prof, 2)
 	var picked []int
 	for _, m := range maxima {
 		if len(picked) == 12 || prof[m] < 0.05*prof[maxima[0]] {
