@@ -470,12 +470,12 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 		return nil, err
 	}
 	defer f32Pool.put(sp.pix) // (sp may be replaced below; this buffer is the pool's)
-	gradient := flatten(sp)
+	gradient := flatten(sp, opt.workers())
 	bg, noise, peak := levels(sp)
 	// A lit bench: the band is looked for on the lines' contrast, and
 	// measured with the background beside it taken as a slope.
 	lit := false
-	if glow := glowRange(sp); glow > 0 {
+	if glow := glowRange(sp, opt.workers()); glow > 0 {
 		if c, err := lineContrast(sp, 11); err == nil {
 			gradient, lit = math.Max(gradient, glow), true
 			sp = c
@@ -510,7 +510,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 		ang = opt.AngleDeg
 	}
 	sx, sy := float64(fr.w)/float64(sw), float64(fr.h)/float64(sh)
-	guesses := crossBands(sp, ang, bg, sx, sy, true)
+	guesses := crossBands(sp, ang, bg, sx, sy, true, opt.workers())
 	if len(guesses) == 0 {
 		return nil, fmt.Errorf("%w: the bright pixels form no band (cut off by the frame edge?)", ErrNoBand)
 	}
@@ -532,7 +532,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 				break
 			}
 			ang = principalAngle(own)
-			if g := crossBands(sp, ang, bg, sx, sy, true); len(g) > 0 {
+			if g := crossBands(sp, ang, bg, sx, sy, true, opt.workers()); len(g) > 0 {
 				guesses = g
 			}
 		}
@@ -551,7 +551,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 		// parallel).
 		if s, err := refineBand(fr, tables, clipAt, opt, ang, guesses[strongestGuess(guesses)], bg, noise, gradient, lit); err == nil {
 			ang = s.AngleDeg
-			if g := crossBands(sp, ang, bg, sx, sy, true); len(g) > 0 {
+			if g := crossBands(sp, ang, bg, sx, sy, true, opt.workers()); len(g) > 0 {
 				guesses = g
 			}
 		}
@@ -948,7 +948,16 @@ func crossBandRegion(p plane, roi image.Rectangle, ang, bg, vc, reach float64, w
 		for y := y0; y < y1; y++ {
 			row := p.pix[y*p.w : (y+1)*p.w]
 			t0 := -float64(roi.Min.X)*sn + float64(y+roi.Min.Y)*cs - v0
-			for x := 0; x < p.w; {
+			// Only the columns where t can lie in [0, tmax) are visited
+			// (a pixel's margin each side; each is still tested): a tilted
+			// band leaves about a third of its region's rows outside.
+			xa, xb := 0, p.w
+			if sn != 0 {
+				a, b := (t0-tmax)/sn, t0/sn
+				xa = max(0, int(math.Floor(min(a, b)))-1)
+				xb = min(p.w, int(math.Ceil(max(a, b)))+2)
+			}
+			for x := xa; x < xb; {
 				t := t0 - float64(x)*sn
 				if t < 0 || t >= tmax {
 					x++

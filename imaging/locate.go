@@ -185,7 +185,7 @@ func chord(w, h int, deg, v float64) (u0, u1 float64, ok bool) {
 // straighten takes its own per-column background beside the band. A
 // surface flatter than the noise is left in place (most photos).
 // It returns the surface's range over the frame, in p's units.
-func flatten(p plane) float64 {
+func flatten(p plane, workers int) float64 {
 	if p.w < 8 || p.h < 8 {
 		return 0
 	}
@@ -216,14 +216,38 @@ func flatten(p plane) float64 {
 			if cut > 0 && res[i] > cut {
 				continue
 			}
+			// The upper triangle of Σ b·bᵀ and Σ b·v for the basis
+			// b = (1, u, w, u², uw, w²), written out (the loops over j and
+			// k were half of flatten's time; the sums are the same).
 			u, w := xs[i], ys[i]
-			b := [6]float64{1, u, w, u * u, u * w, w * w}
-			for j := range b {
-				atb[j] += b[j] * v
-				for k := j; k < 6; k++ {
-					ata[j][k] += b[j] * b[k]
-				}
-			}
+			uu, uw, ww := u*u, u*w, w*w
+			atb[0] += v
+			atb[1] += u * v
+			atb[2] += w * v
+			atb[3] += uu * v
+			atb[4] += uw * v
+			atb[5] += ww * v
+			ata[0][0]++
+			ata[0][1] += u
+			ata[0][2] += w
+			ata[0][3] += uu
+			ata[0][4] += uw
+			ata[0][5] += ww
+			ata[1][1] += u * u
+			ata[1][2] += u * w
+			ata[1][3] += u * uu
+			ata[1][4] += u * uw
+			ata[1][5] += u * ww
+			ata[2][2] += w * w
+			ata[2][3] += w * uu
+			ata[2][4] += w * uw
+			ata[2][5] += w * ww
+			ata[3][3] += uu * uu
+			ata[3][4] += uu * uw
+			ata[3][5] += uu * ww
+			ata[4][4] += uw * uw
+			ata[4][5] += uw * ww
+			ata[5][5] += ww * ww
 		}
 		for j := 0; j < 6; j++ {
 			for k := 0; k < j; k++ {
@@ -247,23 +271,26 @@ func flatten(p plane) float64 {
 	lo, hi := math.Inf(1), math.Inf(-1)
 	for i := range vs {
 		res[i] = surf(c, xs[i], ys[i])
-		lo, hi = math.Min(lo, res[i]), math.Max(hi, res[i])
+		lo, hi = min(lo, res[i]), max(hi, res[i])
 	}
 	level, rng := peaks.MedianInPlace(res), hi-lo
 	if rng < sigma {
 		return rng
 	}
-	// Subtract it row by row: along a row the surface is a quadratic in u.
-	for y := 0; y < p.h; y++ {
-		v := float64(y)*sy - 1
-		a0 := c[0] + c[2]*v + c[5]*v*v - level
-		a1 := c[1] + c[4]*v
-		row := p.pix[y*p.w : (y+1)*p.w]
-		for x := range row {
-			u := float64(x)*sx - 1
-			row[x] -= float32(a0 + u*(a1+c[3]*u))
+	// Subtract it row by row (rows side by side): along a row the surface
+	// is a quadratic in u.
+	inParts(p.h, workers, 64, func(y0, y1 int) {
+		for y := y0; y < y1; y++ {
+			v := float64(y)*sy - 1
+			a0 := c[0] + c[2]*v + c[5]*v*v - level
+			a1 := c[1] + c[4]*v
+			row := p.pix[y*p.w : (y+1)*p.w]
+			for x := range row {
+				u := float64(x)*sx - 1
+				row[x] -= float32(a0 + u*(a1+c[3]*u))
+			}
 		}
-	}
+	})
 	return rng
 }
 
@@ -313,7 +340,7 @@ func solveSmall(a [][]float64, b []float64) ([]float64, bool) {
 // its neighbours' edges. A further band counts when its plateau is at
 // least a tenth of the strongest band's (dimmer bumps are the strongest
 // band's wings or room light) and its height within a factor 3 of it.
-func crossBands(p plane, ang, bg, sx, sy float64, all bool) []bandGuess {
+func crossBands(p plane, ang, bg, sx, sy float64, all bool, workers int) []bandGuess {
 	sn, cs := math.Sincos(ang * math.Pi / 180)
 	vmin, vmax := math.Inf(1), math.Inf(-1)
 	for _, c := range [][2]float64{{0, 0}, {float64(p.w), 0}, {0, float64(p.h)}, {float64(p.w), float64(p.h)}} {
@@ -321,17 +348,32 @@ func crossBands(p plane, ang, bg, sx, sy float64, all bool) []bandGuess {
 		vmin, vmax = math.Min(vmin, v), math.Max(vmax, v)
 	}
 	step := math.Max(sx, sy)
-	prof := make([]float64, int((vmax-vmin)/step)+2)
-	count := make([]float64, len(prof))
-	for y := 0; y < p.h; y++ {
-		// v along the row, stepped from its first pixel.
-		fy := (float64(y)+0.5)*sy - 0.5
-		v, dv := -(0.5*sx-0.5)*sn+fy*cs, -sx*sn
-		for _, val := range p.pix[y*p.w : (y+1)*p.w] {
-			k := int((v - vmin) / step)
-			prof[k] += float64(val) - bg
-			count[k]++
-			v += dv
+	nb := int((vmax-vmin)/step) + 2
+	// The rows go in eight fixed chunks, side by side, each into its own
+	// bins, summed in chunk order: the same result for any number of
+	// workers.
+	const chunks = 8
+	var parts [chunks][2][]float64
+	inChunks(p.h, chunks, workers, func(c, y0, y1 int) {
+		prof, count := make([]float64, nb), make([]float64, nb)
+		for y := y0; y < y1; y++ {
+			// v along the row, stepped from its first pixel.
+			fy := (float64(y)+0.5)*sy - 0.5
+			v, dv := -(0.5*sx-0.5)*sn+fy*cs, -sx*sn
+			for _, val := range p.pix[y*p.w : (y+1)*p.w] {
+				k := int((v - vmin) / step)
+				prof[k] += float64(val) - bg
+				count[k]++
+				v += dv
+			}
+		}
+		parts[c] = [2][]float64{prof, count}
+	})
+	prof, count := make([]float64, nb), make([]float64, nb)
+	for _, pc := range parts {
+		for k := range prof {
+			prof[k] += pc[0][k]
+			count[k] += pc[1][k]
 		}
 	}
 	// The frame's median (bg) sits a little below the background's mean
@@ -408,7 +450,18 @@ func crossBands(p plane, ang, bg, sx, sy float64, all bool) []bandGuess {
 // returns the opened map's range away from the edges when that exceeds 8σ
 // of the pixel-to-pixel noise of sp (the frame's spread is no measure
 // here: a glow widens it), else 0.
-func glowRange(sp plane) float64 {
+func glowRange(sp plane, workers int) float64 {
+	// The noise (about a third of the time) is taken beside the opening on
+	// a spare core; it is waited for on every return, as the caller
+	// changes sp afterwards.
+	var noise float64
+	done := make(chan struct{})
+	if workers > 1 {
+		go func() { noise = pixelNoise(sp); close(done) }()
+	} else {
+		close(done)
+	}
+	defer func() { <-done }()
 	q := max(1, int(math.Ceil(float64(max(sp.w, sp.h))/128)))
 	tw, th := max(8, sp.w/q), max(8, sp.h/q)
 	src, err := floatMat(sp.pix, sp.h, sp.w, gocv.MatTypeCV32FC1)
@@ -437,7 +490,11 @@ func glowRange(sp plane) float64 {
 			lo, hi = math.Min(lo, float64(v[r*tw+c])), math.Max(hi, float64(v[r*tw+c]))
 		}
 	}
-	if !(hi-lo >= 8*pixelNoise(sp)) {
+	<-done
+	if workers <= 1 {
+		noise = pixelNoise(sp)
+	}
+	if !(hi-lo >= 8*noise) {
 		return 0
 	}
 	return hi - lo
