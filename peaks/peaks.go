@@ -12,9 +12,12 @@
 package peaks
 
 import (
+	"cmp"
 	"fmt"
 	"math"
+	"runtime"
 	"sort"
+	"sync"
 
 	"lineshot/calibrate/lsq"
 )
@@ -68,6 +71,10 @@ type Options struct {
 	// weights each sample by noise² + Gain·S and approaches the Cramér–Rao
 	// bound at high SNR. 0 means uniform weights (the gain is unknown).
 	Gain float64
+	// Workers is how many groups of overlapping lines may be fitted at
+	// once (each group is fitted on its own, so the result does not
+	// depend on it); 0 means one per CPU, 1 one after another.
+	Workers int
 }
 
 // Result is what Find returns besides the peaks, to look at.
@@ -191,14 +198,15 @@ func Find(profile []float64, opt Options) (Result, error) {
 		noise = 1e-12 * (1 + maxAbs(y))
 	}
 	f := fitter{y: y, noise: noise, gain: opt.Gain, clipped: opt.Clipped}
-	res.Peaks = f.fitAll(est, minSNR)
+	workers := cmp.Or(opt.Workers, runtime.GOMAXPROCS(0))
+	res.Peaks = f.fitAll(est, minSNR, workers)
 	// A faint line on a strong line's flank has little prominence of its
 	// own: look again in what the fitted lines leave, and fit anew with
 	// whatever stands out there.
 	if more := f.inResidual(res.Peaks, est, res.Threshold); len(more) > 0 {
 		est = append(est, more...)
 		sort.Slice(est, func(a, b int) bool { return est[a].mu < est[b].mu })
-		res.Peaks = f.fitAll(est, minSNR)
+		res.Peaks = f.fitAll(est, minSNR, workers)
 	}
 	f.splitWide(&res, minSNR)
 	if len(opt.NoiseShape) == n {
@@ -262,10 +270,34 @@ func topWidth(y []float64) int {
 // fitAll fits every group of estimates and keeps what is a line: as high
 // as asked once fitted, wider than a single-sample spike, and placed to
 // better than half its width.
-func (f fitter) fitAll(est []comp, minSNR float64) []Peak {
+func (f fitter) fitAll(est []comp, minSNR float64, workers int) []Peak {
+	// The groups do not overlap and the fitter is only read: with workers,
+	// they are fitted side by side, each into its own slot.
+	groups := groupComps(est)
+	fitted := make([][]Peak, len(groups))
+	if workers > 1 && len(groups) > 1 {
+		var wg sync.WaitGroup
+		next := make(chan int)
+		for range min(workers, len(groups)) {
+			wg.Go(func() {
+				for k := range next {
+					fitted[k] = f.fitGroup(est[groups[k][0]:groups[k][1]])
+				}
+			})
+		}
+		for k := range groups {
+			next <- k
+		}
+		close(next)
+		wg.Wait()
+	} else {
+		for k, g := range groups {
+			fitted[k] = f.fitGroup(est[g[0]:g[1]])
+		}
+	}
 	var out []Peak
-	for _, g := range groupComps(est) {
-		for _, p := range f.fitGroup(est[g[0]:g[1]]) {
+	for _, fg := range fitted {
+		for _, p := range fg {
 			if p.SNR < minSNR || p.FWHM < 0.8 || p.Sigma > p.FWHM/2 {
 				continue
 			}

@@ -124,3 +124,39 @@ func TestProminenceMatchesDefinition(t *testing.T) {
 		}
 	}
 }
+
+// Fitting the groups of lines side by side gives what fitting them one
+// after another gives, in the same order: 40 lines, some blended in pairs
+// and threes, on 4000 samples.
+func TestWorkersDoNotChangeTheResult(t *testing.T) {
+	var truth []line
+	rng := rand.New(rand.NewPCG(3, 9))
+	for c := 60.0; c < 3900; c += 95 + 40*rng.Float64() {
+		truth = append(truth, line{c, 30 + 900*rng.Float64(), 1 + 1.5*rng.Float64()})
+		if rng.Float64() < 0.3 {
+			truth = append(truth, line{c + 3 + 2*rng.Float64(), 30 + 300*rng.Float64(), 1.5})
+		}
+	}
+	y := synth(4000, truth, 2, 5)
+	one, err := Find(y, Options{Workers: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(one.Peaks) < len(truth)*3/4 {
+		t.Fatalf("found %d peaks of %d: the test needs most of them", len(one.Peaks), len(truth))
+	}
+	for _, w := range []int{2, 3, 8} {
+		many, err := Find(y, Options{Workers: w})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(many.Peaks) != len(one.Peaks) {
+			t.Fatalf("workers %d: %d peaks, one worker %d", w, len(many.Peaks), len(one.Peaks))
+		}
+		for k := range one.Peaks {
+			if many.Peaks[k] != one.Peaks[k] {
+				t.Errorf("workers %d, peak %d: %+v, one worker %+v", w, k, many.Peaks[k], one.Peaks[k])
+			}
+		}
+	}
+}

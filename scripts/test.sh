@@ -14,9 +14,11 @@ fi
 go vet ./...
 go test -count=1 ./...
 # The concurrent code under the race detector: the batch, a photo's work
-# split over CPUs (imaging) and the lamps tried side by side (calibrate).
+# split over CPUs (imaging), groups of lines fitted side by side (peaks)
+# and the lamps tried side by side (calibrate).
 go test -count=1 -race -run 'TestBatch(OverALab|InterruptedAndResumed)' ./cmd/lineshot
 go test -count=1 -race -run 'TestExtractBandsTwoLamps|TestLitBench$' ./imaging
+go test -count=1 -race -run 'TestWorkersDoNotChangeTheResult' ./peaks
 go test -count=1 -race -run 'TestBothOrdersClassifiedRight|TestClassif' ./calibrate
 # Every fuzz target briefly; found crashers land in testdata/fuzz/.
 FUZZTIME=${FUZZTIME:-3s} scripts/fuzz.sh

@@ -539,7 +539,7 @@ func extractAndFind(path string, cfg measureConfig) (measured, error) {
 // findLines measures the lines of a straightened band; path names it in
 // errors.
 func findLines(s imaging.Strip, path string, cfg measureConfig) (measured, error) {
-	r, err := peaks.Find(s.Profile, peaks.Options{MinSNR: cfg.minSNR, Clipped: s.Clipped, NoiseShape: s.NoiseShape})
+	r, err := peaks.Find(s.Profile, peaks.Options{MinSNR: cfg.minSNR, Clipped: s.Clipped, NoiseShape: s.NoiseShape, Workers: cfg.imageOpts.Workers})
 	if err != nil {
 		return measured{}, fmt.Errorf("%s: %w", path, err)
 	}
