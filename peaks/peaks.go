@@ -72,8 +72,8 @@ type Options struct {
 	// bound at high SNR. 0 means uniform weights (the gain is unknown).
 	Gain float64
 	// Workers is how many groups of overlapping lines may be fitted at
-	// once (each group is fitted on its own, so the result does not
-	// depend on it); 0 means one per CPU, 1 one after another.
+	// once, and wide lines tried as pairs (each on its own, so the result
+	// does not depend on it); 0 means one per CPU, 1 one after another.
 	Workers int
 }
 
@@ -208,7 +208,7 @@ func Find(profile []float64, opt Options) (Result, error) {
 		sort.Slice(est, func(a, b int) bool { return est[a].mu < est[b].mu })
 		res.Peaks = f.fitAll(est, minSNR, workers)
 	}
-	f.splitWide(&res, minSNR)
+	f.splitWide(&res, minSNR, workers)
 	if len(opt.NoiseShape) == n {
 		kept := res.Peaks[:0]
 		for _, p := range res.Peaks {
@@ -275,26 +275,7 @@ func (f fitter) fitAll(est []comp, minSNR float64, workers int) []Peak {
 	// they are fitted side by side, each into its own slot.
 	groups := groupComps(est)
 	fitted := make([][]Peak, len(groups))
-	if workers > 1 && len(groups) > 1 {
-		var wg sync.WaitGroup
-		next := make(chan int)
-		for range min(workers, len(groups)) {
-			wg.Go(func() {
-				for k := range next {
-					fitted[k] = f.fitGroup(est[groups[k][0]:groups[k][1]])
-				}
-			})
-		}
-		for k := range groups {
-			next <- k
-		}
-		close(next)
-		wg.Wait()
-	} else {
-		for k, g := range groups {
-			fitted[k] = f.fitGroup(est[g[0]:g[1]])
-		}
-	}
+	inTurn(len(groups), workers, func(k int) { fitted[k] = f.fitGroup(est[groups[k][0]:groups[k][1]]) })
 	var out []Peak
 	for _, fg := range fitted {
 		for _, p := range fg {
@@ -633,7 +614,7 @@ func (f fitter) fitSlit(xs, ys []float64, g Peak, x0 float64) (slitFit, bool) {
 // tries to split each into two. A split is kept when it lowers χ² by more
 // than 25 and both parts clear the SNR threshold at least 0.4 FWHM apart;
 // otherwise the line is flagged Unresolved.
-func (f fitter) splitWide(res *Result, minSNR float64) {
+func (f fitter) splitWide(res *Result, minSNR float64, workers int) {
 	var ws []float64
 	for _, p := range res.Peaks {
 		if p.SNR >= 20 && !p.Blend {
@@ -644,12 +625,19 @@ func (f fitter) splitWide(res *Result, minSNR float64) {
 		return
 	}
 	typ := median(ws)
-	var out []Peak
-	for _, p := range res.Peaks {
+	// Each wide line is tried on its own (side by side with workers), into
+	// its own slot: what it becomes, one line or two.
+	became := make([][]Peak, len(res.Peaks))
+	var wide []int
+	for k, p := range res.Peaks {
 		if p.Blend || p.SNR < 20 || p.FWHM < 1.25*typ {
-			out = append(out, p)
-			continue
+			became[k] = []Peak{p}
+		} else {
+			wide = append(wide, k)
 		}
+	}
+	try := func(k int) {
+		p := res.Peaks[k]
 		half := p.FWHM / 4
 		cs := []comp{
 			{idx: p.Index, mu: p.Center - half, a: p.Height * 0.7, fwhm: typ, prom: p.Prominence},
@@ -660,13 +648,43 @@ func (f fitter) splitWide(res *Result, minSNR float64) {
 		two := f.chi2(parts)
 		if parts[0].Method == "gauss" && parts[1].Method == "gauss" && one-two > 25 &&
 			parts[0].SNR >= minSNR && parts[1].SNR >= minSNR && math.Abs(parts[1].Center-parts[0].Center) >= 0.4*typ {
-			out = append(out, parts...)
-			continue
+			became[k] = parts
+			return
 		}
 		p.Unresolved = true
-		out = append(out, p)
+		became[k] = []Peak{p}
+	}
+	inTurn(len(wide), workers, func(i int) { try(wide[i]) })
+	var out []Peak
+	for _, b := range became {
+		out = append(out, b...)
 	}
 	res.Peaks = out
+}
+
+// inTurn calls fn(i) for every i in [0, n), up to workers at a time (one
+// after another when workers ≤ 1), and waits for all.
+func inTurn(n, workers int, fn func(i int)) {
+	if workers <= 1 || n <= 1 {
+		for i := range n {
+			fn(i)
+		}
+		return
+	}
+	var wg sync.WaitGroup
+	next := make(chan int)
+	for range min(workers, n) {
+		wg.Go(func() {
+			for i := range next {
+				fn(i)
+			}
+		})
+	}
+	for i := range n {
+		next <- i
+	}
+	close(next)
+	wg.Wait()
 }
 
 // chi2 evaluates χ² of fitted Gaussians (on the baseline-free profile,
