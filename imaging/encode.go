@@ -14,17 +14,28 @@ import (
 // which mattered for the band image a batch writes per photo).
 func WriteJPEG(w io.Writer, img *image.RGBA, quality int) error {
 	b := img.Bounds()
-	if b.Empty() {
+	return WriteJPEGDrawn(w, b.Dx(), b.Dy(), quality, func(pix []uint8) {
+		for y := 0; y < b.Dy(); y++ {
+			copy(pix[4*b.Dx()*y:4*b.Dx()*(y+1)], img.Pix[img.PixOffset(b.Min.X, b.Min.Y+y):])
+		}
+	})
+}
+
+// WriteJPEGDrawn encodes as a JPEG a width×height RGBA image that draw
+// fills in (rows top to bottom, 4·width bytes each, no padding). The
+// pixels live in C memory and are freed at once: a batch's band image
+// per photo then adds nothing for Go's collector to sweep.
+func WriteJPEGDrawn(w io.Writer, width, height, quality int, draw func(pix []uint8)) error {
+	if width <= 0 || height <= 0 {
 		return errors.New("jpeg: empty image")
 	}
-	if img.Stride != 4*b.Dx() || b.Min != (image.Point{}) {
-		img = copyRGBA(img)
-	}
-	src, err := gocv.NewMatFromBytes(b.Dy(), b.Dx(), gocv.MatTypeCV8UC4, img.Pix[:4*b.Dx()*b.Dy()])
-	if err != nil {
-		return fmt.Errorf("jpeg: %w", err)
-	}
+	src := gocv.NewMatWithSize(height, width, gocv.MatTypeCV8UC4)
 	defer src.Close()
+	pix, err := src.DataPtrUint8()
+	if err != nil || len(pix) < 4*width*height {
+		return fmt.Errorf("jpeg: no %dx%d image from OpenCV", width, height)
+	}
+	draw(pix[:4*width*height])
 	bgr := gocv.NewMat()
 	defer bgr.Close()
 	gocv.CvtColor(src, &bgr, gocv.ColorRGBAToBGR)
@@ -35,14 +46,4 @@ func WriteJPEG(w io.Writer, img *image.RGBA, quality int) error {
 	defer buf.Close()
 	_, err = w.Write(buf.GetBytes())
 	return err
-}
-
-// copyRGBA returns img with its origin at (0, 0) and no row padding.
-func copyRGBA(img *image.RGBA) *image.RGBA {
-	b := img.Bounds()
-	out := image.NewRGBA(image.Rect(0, 0, b.Dx(), b.Dy()))
-	for y := 0; y < b.Dy(); y++ {
-		copy(out.Pix[y*out.Stride:(y+1)*out.Stride], img.Pix[img.PixOffset(b.Min.X, b.Min.Y+y):])
-	}
-	return out
 }

@@ -5,7 +5,6 @@ import (
 	"encoding/base64"
 	"fmt"
 	"html/template"
-	"image"
 	"image/color"
 	"io"
 	"math"
@@ -52,24 +51,34 @@ func writeStripImage(path string, m measured, derived bool) error {
 	w, h := b.Dx(), b.Dy()
 	tickScale := float64(w) / float64(max(1, len(m.strip.Profile)))
 	const tick = 10
-	dst := image.NewRGBA(image.Rect(0, 0, w, h+2*tick))
-	for y := 0; y < h; y++ {
-		o := src.PixOffset(b.Min.X, b.Min.Y+y)
-		copy(dst.Pix[(y+tick)*dst.Stride:], src.Pix[o:o+4*w])
-	}
-	for _, p := range m.found.Peaks {
-		x := int(p.Center*tickScale + 0.5)
-		for y := 0; y < tick-2; y++ {
-			if x >= 0 && x < w {
-				dst.Set(x, y, markerColor)
-				dst.Set(x, h+2*tick-1-y, markerColor)
+	// The band between two rows of ticks, one at each line, drawn straight
+	// into the encoder's buffer.
+	mark := []uint8{markerColor.R, markerColor.G, markerColor.B, 255}
+	draw := func(pix []uint8) {
+		stride := 4 * w
+		clear(pix[:tick*stride]) // black tick rows (the buffer is not cleared)
+		clear(pix[(h+tick)*stride:])
+		for y := 0; y < h; y++ {
+			o := src.PixOffset(b.Min.X, b.Min.Y+y)
+			copy(pix[(y+tick)*stride:(y+tick+1)*stride], src.Pix[o:o+stride])
+		}
+		// Ticks are 3 px wide: the encoder halves the colour resolution
+		// (4:2:0), and a 1 px orange tick beside black came out grey-violet.
+		for _, p := range m.found.Peaks {
+			xc := int(p.Center*tickScale + 0.5)
+			for x := max(0, xc-1); x <= min(w-1, xc+1); x++ {
+				for y := 0; y < tick-2; y++ {
+					for _, row := range []int{y, h + 2*tick - 1 - y} {
+						copy(pix[row*stride+4*x:], mark)
+					}
+				}
 			}
 		}
 	}
 	if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
 		return err
 	}
-	enc := func(wr io.Writer) error { return imaging.WriteJPEG(wr, dst, 85) }
+	enc := func(wr io.Writer) error { return imaging.WriteJPEGDrawn(wr, w, h+2*tick, 85, draw) }
 	if derived {
 		return writeDerivedAtomic(path, enc)
 	}
