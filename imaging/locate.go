@@ -5,6 +5,7 @@ import (
 	"image"
 	"math"
 	"sort"
+	"sync"
 
 	"gocv.io/x/gocv"
 
@@ -39,11 +40,29 @@ func levels(p plane) (med, sigma, peak float64) {
 // 20 000 evenly spaced samples.
 func background(p plane) (med, sigma float64) {
 	step := max(1, len(p.pix)/20000)
-	s := make([]float64, 0, len(p.pix)/step+1)
+	b := borrow(len(p.pix)/step + 1)
+	defer scratch.Put(b)
+	s := *b
 	for i := 0; i < len(p.pix); i += step {
 		s = append(s, float64(p.pix[i]))
 	}
 	return medMAD(s)
+}
+
+// scratch lends float64 slices for a photo's temporary sample sets (the
+// medians of about 20 000 samples taken several times a photo, flatten's
+// grid): a third of what each photo of a batch left for Go's collector.
+var scratch = sync.Pool{New: func() any { return new([]float64) }}
+
+// borrow returns a scratch slice of length 0 and capacity at least n, to
+// be given back with scratch.Put once nothing refers to it.
+func borrow(n int) *[]float64 {
+	b := scratch.Get().(*[]float64)
+	if cap(*b) < n {
+		*b = make([]float64, 0, n)
+	}
+	*b = (*b)[:0]
+	return b
 }
 
 // medMAD returns the median of s and the robust σ 1.4826·MAD about it,
@@ -193,7 +212,9 @@ func flatten(p plane, workers int) float64 {
 	step := max(1, int(math.Sqrt(float64(p.w*p.h)/10000)))
 	sx, sy := 2/float64(p.w-1), 2/float64(p.h-1)
 	n := ((p.w + step - 1) / step) * ((p.h + step - 1) / step)
-	xs, ys, vs := make([]float64, 0, n), make([]float64, 0, n), make([]float64, 0, n)
+	bx, by, bv, br := borrow(n), borrow(n), borrow(n), borrow(n)
+	defer func() { scratch.Put(bx); scratch.Put(by); scratch.Put(bv); scratch.Put(br) }()
+	xs, ys, vs := *bx, *by, *bv
 	for y := 0; y < p.h; y += step {
 		for x := 0; x < p.w; x += step {
 			xs, ys, vs = append(xs, float64(x)*sx-1), append(ys, float64(y)*sy-1), append(vs, float64(p.at(x, y)))
@@ -206,7 +227,7 @@ func flatten(p plane, workers int) float64 {
 	var c [6]float64
 	c[0] = med
 	cut := 5 * sigma
-	res := make([]float64, len(vs))
+	res := (*br)[:len(vs)] // every element written before it is read
 	for iter := 0; iter < 4; iter++ {
 		var ata [6][6]float64
 		var atb [6]float64
@@ -505,7 +526,9 @@ func glowRange(sp plane, workers int) float64 {
 // backgrounds and glows hardly change it.
 func pixelNoise(p plane) float64 {
 	step := max(1, p.w*p.h/20000)
-	d := make([]float64, 0, len(p.pix)/step+1)
+	b := borrow(len(p.pix)/step + 1)
+	defer scratch.Put(b)
+	d := *b
 	for i := 0; i+1 < len(p.pix); i += step {
 		if (i+1)%p.w != 0 {
 			d = append(d, float64(p.pix[i+1]-p.pix[i]))
