@@ -465,13 +465,16 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 	sw, sh := max(8, fr.w/k), max(8, fr.h/k)
 	small := reduceArea(m, k, sw, sh)
 	defer small.Close()
-	sp, err := sumPlane(small, lut, opt.workers())
+	sp, top, err := sumPlane(small, lut, opt.workers())
 	if err != nil {
 		return nil, err
 	}
 	defer f32Pool.put(sp.pix) // (sp may be replaced below; this buffer is the pool's)
-	gradient := flatten(sp, opt.workers())
-	bg, noise, peak := levels(sp)
+	gradient, bg, noise, same := flatten(sp, opt.workers())
+	peak := float64(top)
+	if !same {
+		bg, noise, peak = levels(sp)
+	}
 	// A lit bench: the band is looked for on the lines' contrast, and
 	// measured with the background beside it taken as a slope.
 	lit := false
@@ -906,23 +909,32 @@ func qualityWarnings(s Strip, cut bool) []string {
 }
 
 // sumPlane returns the sum of the linearised channels of an 8- or 16-bit
-// BGR Mat.
-func sumPlane(m gocv.Mat, lut []float32, workers int) (plane, error) {
+// BGR Mat, and its largest value as levels takes it (0 if none is above).
+func sumPlane(m gocv.Mat, lut []float32, workers int) (plane, float32, error) {
 	fr, err := newFrame(m)
 	if err != nil {
-		return plane{}, err
+		return plane{}, 0, err
 	}
 	p := plane{w: fr.w, h: fr.h, pix: f32Pool.get(fr.w * fr.h)} // every element written below
+	var mu sync.Mutex
+	var top float32
 	inParts(len(p.pix), workers, 1<<16, func(lo, hi int) {
+		var t float32
 		for i := lo; i < hi; i++ {
 			if fr.bytes8 != nil {
 				p.pix[i] = lut[fr.bytes8[3*i]] + lut[fr.bytes8[3*i+1]] + lut[fr.bytes8[3*i+2]]
 			} else {
 				p.pix[i] = lut[fr.words16[3*i]] + lut[fr.words16[3*i+1]] + lut[fr.words16[3*i+2]]
 			}
+			if p.pix[i] > t {
+				t = p.pix[i]
+			}
 		}
+		mu.Lock()
+		top = max(top, t)
+		mu.Unlock()
 	})
-	return p, nil
+	return p, top, nil
 }
 
 // crossBandRegion measures the band's centre and half-height at full
@@ -1392,25 +1404,27 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 					// Each sample's own level: the pooled median; or, on a
 					// lit bench (stray light sloping across the band), its
 					// side's median, the band's level midway between them.
-					nt := 0
-					top, bot := 0.0, 0.0
-					if nt = nTop[i]; lit && nt > 0 && nt < len(v) {
-						top, bot = peaks.MedianInPlace(v[:nt]), peaks.MedianInPlace(v[nt:])
+					// The profile channel also gives the samples' scatter
+					// (their median absolute deviation from that level).
+					nt := nTop[i]
+					switch {
+					case lit && nt > 0 && nt < len(v):
+						top, bot := peaks.MedianInPlace(v[:nt]), peaks.MedianInPlace(v[nt:])
 						bgv = (top + bot) / 2
-					} else {
-						nt = len(v)
-						top = peaks.MedianInPlace(v)
-						bgv = top
-					}
-					if c == nc-1 && nb[i] >= 4 {
-						for k := range v {
-							if k < nt {
-								v[k] = math.Abs(v[k] - top)
-							} else {
-								v[k] = math.Abs(v[k] - bot)
+						if c == nc-1 && nb[i] >= 4 {
+							for k := range v {
+								if k < nt {
+									v[k] = math.Abs(v[k] - top)
+								} else {
+									v[k] = math.Abs(v[k] - bot)
+								}
 							}
+							spread[i] = peaks.MedianInPlace(v)
 						}
-						spread[i] = peaks.MedianInPlace(v)
+					case c == nc-1 && nb[i] >= 4:
+						bgv, spread[i] = medMADFew(v)
+					default:
+						bgv = peaks.MedianInPlace(v)
 					}
 				}
 				if nIn[i] > 0 {
@@ -1443,6 +1457,46 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	}
 	s.NoiseShape = noiseShape(spread)
 	return s, fitCentreLine(px, nc, nc-1, L, Hc, s.Profile).shifted(float64(off)), nil
+}
+
+// medMADFew returns the median of the few values v (sorting them) and
+// their median absolute deviation from it, the values two selections give
+// (peaks.MedianInPlace: the mean of the two middle values for an even
+// count). Sorted, the deviations in increasing order are a merge of the
+// values below the median read downwards and those above read upwards:
+// for the 24 samples of a strip column, half the time of two selections.
+func medMADFew(v []float64) (med, mad float64) {
+	for i := 1; i < len(v); i++ { // insertion sort: a few dozen values at most
+		x, j := v[i], i
+		for ; j > 0 && v[j-1] > x; j-- {
+			v[j] = v[j-1]
+		}
+		v[j] = x
+	}
+	n := len(v)
+	med = v[n/2]
+	if n%2 == 0 {
+		med = (v[n/2-1] + v[n/2]) / 2
+	}
+	// The k-th smallest deviation (k = n/2), and for an even count the one
+	// before it too.
+	b := sort.SearchFloat64s(v, med) // v[b:] ≥ med, v[:b] < med
+	a := b - 1
+	var prev, cur float64
+	for k := 0; k <= n/2; k++ {
+		prev = cur
+		if a >= 0 && (b >= n || math.Abs(v[a]-med) <= math.Abs(v[b]-med)) {
+			cur = math.Abs(v[a] - med)
+			a--
+		} else {
+			cur = math.Abs(v[b] - med)
+			b++
+		}
+	}
+	if n%2 == 0 {
+		return med, (prev + cur) / 2
+	}
+	return med, cur
 }
 
 // colRange returns the columns i in [0, L) with 0 ≤ a + i·d ≤ lim.

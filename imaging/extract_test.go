@@ -384,3 +384,31 @@ func TestMatPoolReuseAndBounds(t *testing.T) {
 		}
 	}
 }
+
+// medMADFew gives exactly what two selections give (the median, then the
+// median of the absolute deviations from it), for every count a strip
+// column can have and with ties (values on a coarse grid).
+func TestMedMADFewMatchesSelection(t *testing.T) {
+	rng := rand.New(rand.NewPCG(4, 4))
+	for trial := 0; trial < 3000; trial++ {
+		n := 1 + trial%30
+		v := make([]float64, n)
+		for i := range v {
+			if trial%3 == 0 {
+				v[i] = float64(rng.IntN(5)) / 4 // many ties
+			} else {
+				v[i] = rng.NormFloat64()
+			}
+		}
+		w := append([]float64(nil), v...)
+		med := peaks.MedianInPlace(w)
+		for i := range w {
+			w[i] = math.Abs(w[i] - med)
+		}
+		mad := peaks.MedianInPlace(w)
+		gm, gd := medMADFew(append([]float64(nil), v...))
+		if gm != med || gd != mad {
+			t.Fatalf("%v: medMADFew %v, %v; selections %v, %v", v, gm, gd, med, mad)
+		}
+	}
+}

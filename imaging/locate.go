@@ -203,10 +203,12 @@ func chord(w, h int, deg, v float64) (u0, u1 float64, ok bool) {
 // looked for. Lines themselves are untouched (the fit excludes them);
 // straighten takes its own per-column background beside the band. A
 // surface flatter than the noise is left in place (most photos).
-// It returns the surface's range over the frame, in p's units.
-func flatten(p plane, workers int) float64 {
+// It returns the surface's range over the frame, in p's units; and, with
+// unchanged when it left p as it was, p's median and robust σ as
+// background gives them, measured on the way (levels need not again).
+func flatten(p plane, workers int) (rng, med, sigma float64, unchanged bool) {
 	if p.w < 8 || p.h < 8 {
-		return 0
+		return 0, 0, 0, false
 	}
 	// About 10 000 samples on a grid are plenty for six coefficients.
 	step := max(1, int(math.Sqrt(float64(p.w*p.h)/10000)))
@@ -223,7 +225,7 @@ func flatten(p plane, workers int) float64 {
 	surf := func(c [6]float64, u, v float64) float64 {
 		return c[0] + u*(c[1]+c[3]*u+c[4]*v) + v*(c[2]+c[5]*v)
 	}
-	med, sigma := background(p)
+	med, sigma = background(p)
 	var c [6]float64
 	c[0] = med
 	cut := 5 * sigma
@@ -281,7 +283,7 @@ func flatten(p plane, workers int) float64 {
 		}
 		nc, ok := solveSmall(rows, atb[:])
 		if !ok {
-			return 0
+			return 0, med, sigma, true
 		}
 		copy(c[:], nc)
 		if iter > 0 {
@@ -294,9 +296,9 @@ func flatten(p plane, workers int) float64 {
 		res[i] = surf(c, xs[i], ys[i])
 		lo, hi = min(lo, res[i]), max(hi, res[i])
 	}
-	level, rng := peaks.MedianInPlace(res), hi-lo
-	if rng < sigma {
-		return rng
+	level := peaks.MedianInPlace(res)
+	if rng = hi - lo; rng < sigma {
+		return rng, med, sigma, true
 	}
 	// Subtract it row by row (rows side by side): along a row the surface
 	// is a quadratic in u.
@@ -312,7 +314,7 @@ func flatten(p plane, workers int) float64 {
 			}
 		}
 	})
-	return rng
+	return rng, 0, 0, false
 }
 
 // solveSmall solves the small square system a·x = b (normal equations of
