@@ -12,6 +12,7 @@ import (
 	"os"
 	"path/filepath"
 	"strings"
+	"sync"
 	"testing"
 
 	"gocv.io/x/gocv"
@@ -410,5 +411,26 @@ func TestMedMADFewMatchesSelection(t *testing.T) {
 		if gm != med || gd != mad {
 			t.Fatalf("%v: medMADFew %v, %v; selections %v, %v", v, gm, gd, med, mad)
 		}
+	}
+}
+
+// The process keeps one malloc arena however many threads allocate (the
+// constructor in threads.cpp): photos measured side by side, as a batch
+// does, would otherwise each leave freed memory in their thread's arena.
+func TestOneMallocArena(t *testing.T) {
+	path, _ := writeJPEG(t, synth.Params{Width: 1200, Height: 800, TiltDeg: 1, Seed: 3, Emissions: mercury}, 90)
+	var wg sync.WaitGroup
+	for range 4 {
+		wg.Go(func() {
+			for range 3 {
+				if _, err := Extract(path, Options{Workers: 2}); err != nil {
+					t.Error(err)
+				}
+			}
+		})
+	}
+	wg.Wait()
+	if n := mallocArenas(); n != 1 {
+		t.Fatalf("%d malloc arenas after photos measured side by side, want 1", n)
 	}
 }

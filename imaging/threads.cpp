@@ -1,6 +1,37 @@
+#include <malloc.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
 #include <opencv2/core.hpp>
 #include "threads.h"
 
 void lineshot_set_opencv_threads(int n) {
     cv::setNumThreads(n);
+}
+
+// One malloc arena for the whole process, set before any thread allocates
+// (a constructor of the program runs after the libraries' and before main).
+// glibc otherwise gives each thread that allocates under contention its own
+// arena, and what one thread frees stays in its arena: a two-worker batch of
+// 12 MP photos peaked about 17 MB higher, at the same throughput. Called
+// from main instead, after threads had allocated, the setting did nothing.
+__attribute__((constructor)) static void lineshot_one_arena(void) {
+    mallopt(M_ARENA_MAX, 1);
+}
+
+int lineshot_malloc_arenas(void) {
+    char *buf = NULL;
+    size_t len = 0;
+    FILE *f = open_memstream(&buf, &len);
+    if (f == NULL) {
+        return -1;
+    }
+    malloc_info(0, f);
+    fclose(f);
+    int n = 0;
+    for (const char *p = buf; (p = strstr(p, "<heap nr=")) != NULL; p++) {
+        n++;
+    }
+    free(buf);
+    return n;
 }

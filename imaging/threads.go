@@ -18,3 +18,10 @@ func SetOpenCVThreads(n int) {
 	}
 	C.lineshot_set_opencv_threads(C.int(n))
 }
+
+// mallocArenas is how many malloc arenas glibc has made (from
+// malloc_info), or -1 if it cannot tell: 1 while the process-wide setting
+// in threads.cpp holds.
+func mallocArenas() int {
+	return int(C.lineshot_malloc_arenas())
+}
