@@ -965,9 +965,11 @@ func crossBandRegion(p plane, roi image.Rectangle, ang, bg, vc, reach float64, w
 			// band leaves about a third of its region's rows outside.
 			xa, xb := 0, p.w
 			if sn != 0 {
+				// (Clamped as floats: a nearly level band puts a and b
+				// beyond int's range.)
 				a, b := (t0-tmax)/sn, t0/sn
-				xa = max(0, int(math.Floor(min(a, b)))-1)
-				xb = min(p.w, int(math.Ceil(max(a, b)))+2)
+				xa = int(max(0, min(float64(p.w), math.Floor(min(a, b))-1)))
+				xb = int(max(0, min(float64(p.w), math.Ceil(max(a, b))+2)))
 			}
 			for x := xa; x < xb; {
 				t := t0 - float64(x)*sn

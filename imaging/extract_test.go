@@ -434,3 +434,23 @@ func TestOneMallocArena(t *testing.T) {
 		t.Fatalf("%d malloc arenas after photos measured side by side, want 1", n)
 	}
 }
+
+// crossBandRegion measures a band at any direction, nearly level ones
+// included (where the columns a row's band coordinate allows run past
+// int's range before they are clamped): a band of rows 40-59 across a
+// region, at angles down to 1e-16°.
+func TestCrossBandRegionNearlyLevel(t *testing.T) {
+	const w, h = 400, 100
+	p := plane{w: w, h: h, pix: make([]float32, w*h)}
+	for y := 40; y < 60; y++ {
+		for x := 0; x < w; x++ {
+			p.pix[y*w+x] = 1
+		}
+	}
+	for _, ang := range []float64{0, 1e-16, -1e-16, 1e-9, 0.01} {
+		vc, hh, ok := crossBandRegion(p, image.Rect(0, 0, w, h), ang, 0, 50, 40, 2)
+		if !ok || math.Abs(vc-49.5) > 0.6 || math.Abs(hh-10) > 1.5 {
+			t.Errorf("angle %g°: centre %.2f, half-height %.2f, ok %v; want about 49.5 and 10", ang, vc, hh, ok)
+		}
+	}
+}
