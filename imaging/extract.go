@@ -244,7 +244,11 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 		defer m.Close()
 	}
 	decoded := time.Since(t0)
-	ss, err := extractBandsMat(m, opt, all)
+	var reload func() gocv.Mat
+	if !all {
+		reload = func() gocv.Mat { return gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth) }
+	}
+	ss, err := extractBandsMat(m, opt, all, reload)
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", path, err)
 	}
@@ -345,6 +349,71 @@ type frame struct {
 	bytes8  []uint8  // BGR, 8-bit
 	words16 []uint16 // BGR, 16-bit
 	mat     gocv.Mat
+	// Once a single band's region is known, an 8-bit frame that can be
+	// decoded again (reload set) gives back the rows far from it: a
+	// 12 MP frame is 37 MB, and most of it is read only by the band
+	// search. kept is the rows still held ([0, 0): all); a step that
+	// needs others decodes the photo again (need). reloaded marks a Mat
+	// of our own, closed with release.
+	kept     [2]int
+	reload   func() gocv.Mat
+	reloaded bool
+	// dropping, when set, gives the rows back on another goroutine (2 ms
+	// for 25 MB of a 12 MP frame, beside the region's linearisation); its
+	// owner waits for it before the Mat is closed.
+	dropping *sync.WaitGroup
+}
+
+// keepRows gives back the rows of the frame outside [y0, y1), when it can
+// be decoded again; the rows held only ever shrink.
+func (f *frame) keepRows(y0, y1 int) {
+	if f.reload == nil || f.bytes8 == nil {
+		return
+	}
+	y0, y1 = max(0, y0), min(f.h, y1)
+	if f.kept[1] > 0 {
+		y0, y1 = max(y0, f.kept[0]), min(y1, f.kept[1])
+	}
+	if y0 >= y1 {
+		return
+	}
+	above, below := f.bytes8[:3*f.w*y0], f.bytes8[3*f.w*y1:]
+	if f.dropping != nil {
+		f.dropping.Go(func() { dropPages(above); dropPages(below) })
+	} else {
+		dropPages(above)
+		dropPages(below)
+	}
+	f.kept = [2]int{y0, y1}
+}
+
+// need makes sure the frame holds rows [y0, y1), decoding the photo again
+// when some were given back (then it holds every row, for good).
+func (f *frame) need(y0, y1 int) error {
+	if f.kept[1] == 0 || (y0 >= f.kept[0] && y1 <= f.kept[1]) {
+		return nil
+	}
+	m := f.reload()
+	nf, err := newFrame(m)
+	if err == nil && (nf.w != f.w || nf.h != f.h || nf.bytes8 == nil) {
+		err = errors.New("the photo changed while it was measured")
+	}
+	if err != nil {
+		m.Close()
+		return err
+	}
+	f.release()
+	*f = nf
+	f.reloaded = true
+	return nil
+}
+
+// release closes a Mat the frame decoded again itself.
+func (f *frame) release() {
+	if f.reloaded {
+		f.mat.Close()
+		f.reloaded = false
+	}
 }
 
 func newFrame(m gocv.Mat) (frame, error) {
@@ -436,7 +505,7 @@ func srgbToLinear(v float64) float64 {
 const searchScale = 1024
 
 func extractMat(m gocv.Mat, opt Options) (Strip, error) {
-	ss, err := extractBandsMat(m, opt, false)
+	ss, err := extractBandsMat(m, opt, false, nil)
 	if err != nil {
 		return Strip{}, err
 	}
@@ -445,11 +514,19 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 
 // extractBandsMat finds the strongest band, or with all every band that
 // runs parallel to it, and straightens and collapses each.
-func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
+func extractBandsMat(m gocv.Mat, opt Options, all bool, reload func() gocv.Mat) ([]Strip, error) {
 	t0 := time.Now()
-	fr, err := newFrame(m)
+	f, err := newFrame(m)
 	if err != nil {
 		return nil, err
+	}
+	fr := &f
+	fr.reload = reload
+	defer fr.release()
+	var dropping sync.WaitGroup
+	defer dropping.Wait() // before the caller closes the Mat
+	if opt.workers() > 1 {
+		fr.dropping = &dropping
 	}
 	nLevels := 256
 	clipAt := clipCode8
@@ -617,21 +694,30 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool) ([]Strip, error) {
 // 12 MP frame took 2.1 ms against 6.2 for one reduction by 4 (best of 15 on
 // these machines). Each halving rounds to whole codes, so a reduced pixel
 // may differ from the direct average by one code: far below what the band
-// search looks at (its thresholds are several noise σ).
+// search looks at (its thresholds are several noise σ). The halvings go
+// in stripes of rows, a multiple of k high: a reduced pixel depends on its
+// own block alone, so the result is the whole frame's, while the first
+// halving's output stays a stripe's size (for a whole 12 MP frame it held
+// 9 MB beside the frame, at a measurement's memory peak).
 func reduceArea(m gocv.Mat, k, sw, sh int) gocv.Mat {
-	cur := m
-	if k&(k-1) == 0 && sw*k == m.Cols() && sh*k == m.Rows() {
-		for ; k > 1; k /= 2 {
-			next := gocv.NewMat()
-			gocv.Resize(cur, &next, image.Pt(cur.Cols()/2, cur.Rows()/2), 0, 0, gocv.InterpolationArea)
-			if cur.Ptr() != m.Ptr() {
+	if k > 1 && k&(k-1) == 0 && sw*k == m.Cols() && sh*k == m.Rows() {
+		out := gocv.NewMatWithSize(sh, sw, m.Type())
+		stripe := k * max(1, 512/k) // frame rows a stripe
+		for y0 := 0; y0 < m.Rows(); y0 += stripe {
+			y1 := min(m.Rows(), y0+stripe)
+			cur := m.Region(image.Rect(0, y0, m.Cols(), y1))
+			for f := k; f > 1; f /= 2 {
+				next := gocv.NewMat()
+				gocv.Resize(cur, &next, image.Pt(cur.Cols()/2, cur.Rows()/2), 0, 0, gocv.InterpolationArea)
 				cur.Close()
+				cur = next
 			}
-			cur = next
+			dst := out.Region(image.Rect(0, y0/k, sw, y1/k))
+			cur.CopyTo(&dst)
+			dst.Close()
+			cur.Close()
 		}
-		if cur.Ptr() != m.Ptr() {
-			return cur
-		}
+		return out
 	}
 	small := gocv.NewMat()
 	gocv.Resize(m, &small, image.Pt(sw, sh), 0, 0, gocv.InterpolationArea)
@@ -662,7 +748,7 @@ type bandGuess struct {
 }
 
 // refineBand measures one band on the full frame and straightens it.
-func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float64, g bandGuess, bg, noise, gradient float64, lit bool) (Strip, error) {
+func refineBand(fr *frame, tables codeTables, clipAt int, opt Options, ang float64, g bandGuess, bg, noise, gradient float64, lit bool) (Strip, error) {
 	vc, hh := g.vc, g.hh
 	t1 := time.Now()
 	// 2. On the full frame, in a region around the band: measure the band's
@@ -703,8 +789,15 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 			if roi, err = bandROI(fr.w, fr.h, ang, vc, hh+side+4+bowReach+0.004*float64(fr.w+fr.h)); err != nil {
 				return err
 			}
+			if err := fr.need(roi.Min.Y, roi.Max.Y); err != nil {
+				return err
+			}
+			// Only rows near the region are read from here on (64 more
+			// each side, for corrections beyond the region's own margin);
+			// the rest go back before the region's buffers are taken.
+			fr.keepRows(roi.Min.Y-64, roi.Max.Y+64)
 			release()
-			rp, rgb, clip = linearRegion(fr, roi, tables, clipAt, opt.Profile, opt.Channels, opt.workers())
+			rp, rgb, clip = linearRegion(*fr, roi, tables, clipAt, opt.Profile, opt.Channels, opt.workers())
 			rbg, _ = background(rp)
 			find = rp
 			if lit {
@@ -847,15 +940,22 @@ func refineBand(fr frame, tables codeTables, clipAt int, opt Options, ang float6
 		// all (the region once more with colour), so that a line clipped
 		// in one channel can be measured in another.
 		f32Pool.put(rgb)
-		rgb = regionRGB(fr, roi, tables)
+		rgb = nil
+		if err := fr.need(roi.Min.Y, roi.Max.Y); err != nil {
+			return Strip{}, err
+		}
+		rgb = regionRGB(*fr, roi, tables)
 		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow, opt.workers(), lit); err == nil {
 			take(s4, fit4)
 		}
 	}
 	if opt.KeepImage {
 		half, sd := int(math.Ceil(hh)), int(math.Ceil(side))
+		if err := fr.need(roi.Min.Y, roi.Max.Y); err != nil { // the band lies in the region
+			return Strip{}, err
+		}
 		var err error
-		if s.Image, err = displayStrip(fr, tables.lut, ang, u0, vc-float64(half+sd), len(s.Profile), 2*(half+sd)+1, bow, opt.ImageMaxWidth); err != nil {
+		if s.Image, err = displayStrip(*fr, tables.lut, ang, u0, vc-float64(half+sd), len(s.Profile), 2*(half+sd)+1, bow, opt.ImageMaxWidth); err != nil {
 			return Strip{}, err
 		}
 	}
@@ -1090,19 +1190,24 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 		rgb = f32Pool.get(4 * w * h)
 	}
 	sum := profile != ProfileLuma
-	clip := u8Pool.get(w * h) // bit 0: R clipped, bit 1: G, bit 2: B
-	var anyClip atomic.Uint32
 	fast := fr.bytes8 != nil && !all && tables.luma.exact != nil
+	var clip []uint8 // bit 0: R clipped, bit 1: G, bit 2: B
+	if !fast {
+		clip = u8Pool.get(w * h)
+	}
+	var anyClip atomic.Uint32
 	inParts(h, workers, max(1, 1<<16/max(1, w)), func(y0, y1 int) {
 		var seen uint8
 		if fast {
 			// The common case (8-bit photo, one channel) without the
-			// general loop's branches and calls: half the time.
+			// general loop's branches and calls: half the time. Whether
+			// anything is clipped is all it notes: the mask is made
+			// after, when something is (most photos have none, and its
+			// buffer, a byte a pixel, added to the measurement's peak).
 			lumaTab := tables.luma.exact
 			for y := y0; y < y1; y++ {
 				src := fr.bytes8[3*((y+roi.Min.Y)*fr.w+roi.Min.X) : 3*((y+roi.Min.Y)*fr.w+roi.Max.X)]
 				dst := pp.pix[y*w : (y+1)*w]
-				cl := clip[y*w : (y+1)*w]
 				for x := range dst {
 					b, g, r := src[3*x], src[3*x+1], src[3*x+2]
 					if sum {
@@ -1110,9 +1215,7 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 					} else {
 						dst[x] = lumaTab[299*int(r)+587*int(g)+114*int(b)]
 					}
-					cb := clipBits(int(r), int(g), int(b), clipAt)
-					cl[x] = cb
-					seen |= cb
+					seen |= clipBits(int(r), int(g), int(b), clipAt)
 				}
 			}
 		} else {
@@ -1137,6 +1240,21 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 		}
 		anyClip.Or(uint32(seen))
 	})
+	if fast && anyClip.Load() != 0 {
+		clip = u8Pool.get(w * h)
+		inParts(h, workers, max(1, 1<<16/max(1, w)), func(y0, y1 int) {
+			for y := y0; y < y1; y++ {
+				src := fr.bytes8[3*((y+roi.Min.Y)*fr.w+roi.Min.X) : 3*((y+roi.Min.Y)*fr.w+roi.Max.X)]
+				cl := clip[y*w : (y+1)*w]
+				for x := range cl {
+					cl[x] = clipBits(int(src[3*x+2]), int(src[3*x+1]), int(src[3*x]), clipAt)
+				}
+			}
+		})
+	}
+	if clip == nil {
+		return pp, rgb, nil
+	}
 	return pp, rgb, clipOrNil(clip, uint8(anyClip.Load()))
 }
 

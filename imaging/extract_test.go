@@ -246,11 +246,12 @@ func TestKeptImageShowsTheLines(t *testing.T) {
 
 // reduceArea's halvings agree with OpenCV's one-step area reduction to
 // within one code on a noisy random frame (each halving rounds), for
-// factors 2, 4 and 8; a size the factor does not divide takes the one-step
-// path and agrees exactly.
+// factors 2, 4 and 8, and exactly with the whole frame halved k times
+// (they go in stripes of rows); a size the factor does not divide takes
+// the one-step path and agrees exactly.
 func TestReduceAreaHalvings(t *testing.T) {
 	rng := rand.New(rand.NewPCG(1, 2))
-	for _, c := range []struct{ w, h, k int }{{640, 480, 2}, {1024, 768, 4}, {2048, 1536, 8}, {1030, 770, 4}} {
+	for _, c := range []struct{ w, h, k int }{{640, 480, 2}, {1024, 768, 4}, {2048, 1536, 8}, {1030, 770, 4}, {1000, 1004, 4}} {
 		img := image.NewRGBA(image.Rect(0, 0, c.w, c.h))
 		for i := range img.Pix {
 			img.Pix[i] = uint8(rng.IntN(256))
@@ -275,6 +276,24 @@ func TestReduceAreaHalvings(t *testing.T) {
 		exact := c.w%c.k != 0 || c.h%c.k != 0
 		if worst > 1 || exact && worst != 0 {
 			t.Errorf("%dx%d by %d: differs from the one-step reduction by up to %d codes", c.w, c.h, c.k, worst)
+		}
+		if !exact {
+			// Halved in stripes: exactly the whole frame halved k times.
+			whole := m.Clone()
+			for f := c.k; f > 1; f /= 2 {
+				next := gocv.NewMat()
+				gocv.Resize(whole, &next, image.Pt(whole.Cols()/2, whole.Rows()/2), 0, 0, gocv.InterpolationArea)
+				whole.Close()
+				whole = next
+			}
+			h, _ := whole.DataPtrUint8()
+			for i := range h {
+				if g[i] != h[i] {
+					t.Errorf("%dx%d by %d: sample %d is %d, the whole frame halved gives %d", c.w, c.h, c.k, i, g[i], h[i])
+					break
+				}
+			}
+			whole.Close()
 		}
 		m.Close()
 		got.Close()
@@ -452,5 +471,119 @@ func TestCrossBandRegionNearlyLevel(t *testing.T) {
 		if !ok || math.Abs(vc-49.5) > 0.6 || math.Abs(hh-10) > 1.5 {
 			t.Errorf("angle %g°: centre %.2f, half-height %.2f, ok %v; want about 49.5 and 10", ang, vc, hh, ok)
 		}
+	}
+}
+
+// Giving back the rows far from the band changes nothing: Extract (which
+// gives them back) and the same decoded frame measured with every row
+// held agree to the last bit, for a level, a tilted and a bowed band.
+func TestRowsGivenBackChangeNothing(t *testing.T) {
+	for _, p := range []synth.Params{
+		{Width: 1600, Height: 1200, TiltDeg: 0, Seed: 31, Emissions: mercury},
+		{Width: 1600, Height: 1200, TiltDeg: 6, Seed: 32, Emissions: mercury},
+		{Width: 2000, Height: 1500, TiltDeg: 2, Seed: 33, Emissions: mercury, RadialK1: -0.05},
+	} {
+		path, _ := writeJPEG(t, p, 92)
+		got, err := Extract(path, Options{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		m := gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
+		want, err := extractMat(m, Options{}.withProfile(true)) // as Extract chooses for a JPEG
+		m.Close()
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(got.Profile) != len(want.Profile) || got.AngleDeg != want.AngleDeg || got.Bow != want.Bow {
+			t.Fatalf("tilt %g°: %d samples at %v° bow %+v; all rows held: %d at %v° bow %+v", p.TiltDeg, len(got.Profile), got.AngleDeg, got.Bow, len(want.Profile), want.AngleDeg, want.Bow)
+		}
+		for i := range got.Profile {
+			if got.Profile[i] != want.Profile[i] {
+				t.Fatalf("tilt %g°: profile sample %d is %v, %v with all rows held", p.TiltDeg, i, got.Profile[i], want.Profile[i])
+			}
+		}
+	}
+}
+
+// A step that needs rows the frame gave back gets them by decoding the
+// photo again: the rows read as a fresh decode's, and are held for good.
+func TestFrameNeedDecodesAgain(t *testing.T) {
+	path, _ := writeJPEG(t, synth.Params{Width: 1200, Height: 900, TiltDeg: 1, Seed: 34, Emissions: mercury}, 90)
+	load := func() gocv.Mat { return gocv.IMRead(path, gocv.IMReadColor) }
+	ref := load()
+	defer ref.Close()
+	want, _ := ref.DataPtrUint8()
+	m := load()
+	defer m.Close()
+	f, err := newFrame(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	f.reload = load
+	defer f.release()
+	f.keepRows(400, 500)
+	row := 3 * f.w
+	if f.kept != [2]int{400, 500} {
+		t.Fatalf("kept %v, want [400 500]", f.kept)
+	}
+	zero := true
+	for _, b := range f.bytes8[100*row : 101*row] {
+		zero = zero && b == 0
+	}
+	if !zero {
+		t.Error("row 100 still holds its pixels after rows outside 400-500 were given back")
+	}
+	if err := f.need(410, 490); err != nil || f.reloaded {
+		t.Fatalf("rows held: need gave %v, decoded again %v", err, f.reloaded)
+	}
+	if err := f.need(90, 120); err != nil {
+		t.Fatal(err)
+	}
+	if !f.reloaded || f.kept[1] != 0 {
+		t.Fatalf("after need(90, 120): decoded again %v, kept %v", f.reloaded, f.kept)
+	}
+	for i := 90 * row; i < 120*row; i++ {
+		if f.bytes8[i] != want[i] {
+			t.Fatalf("byte %d is %d after decoding again, %d in a fresh decode", i, f.bytes8[i], want[i])
+		}
+	}
+}
+
+// linearRegion's quick path (8-bit, one channel) makes its clip mask in a
+// second pass, only when something is clipped: the mask and the plane are
+// the general path's, bit for bit, on a frame with clipped pixels.
+func TestLinearRegionClipMask(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 7))
+	img := image.NewRGBA(image.Rect(0, 0, 300, 200))
+	for i := range img.Pix {
+		img.Pix[i] = uint8(rng.IntN(256)) // about 2 % of samples at 250 and up
+	}
+	m, err := gocv.ImageToMatRGB(img)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer m.Close()
+	fr, err := newFrame(m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	roi := image.Rect(17, 23, 281, 190)
+	tables := tablesFor(256, false)
+	for _, profile := range []string{ProfileLuma, ProfileSum} {
+		qp, _, qc := linearRegion(fr, roi, tables, clipCode8, profile, false, 2)
+		gp, grgb, gc := linearRegion(fr, roi, tables, clipCode8, profile, true, 2)
+		if qc == nil || gc == nil || len(qc) != len(gc) {
+			t.Fatalf("%s: clip masks %d and %d long, want both", profile, len(qc), len(gc))
+		}
+		for i := range gc {
+			if qc[i] != gc[i] || qp.pix[i] != gp.pix[i] {
+				t.Fatalf("%s: pixel %d: mask %b plane %v, general path %b %v", profile, i, qc[i], qp.pix[i], gc[i], gp.pix[i])
+			}
+		}
+		f32Pool.put(qp.pix)
+		f32Pool.put(gp.pix)
+		f32Pool.put(grgb)
+		u8Pool.put(qc)
+		u8Pool.put(gc)
 	}
 }

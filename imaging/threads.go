@@ -7,6 +7,8 @@ package imaging
 */
 import "C"
 
+import "unsafe"
+
 // SetOpenCVThreads sets how many threads OpenCV's own functions (warps,
 // resizing) may use, for the whole process; n < 1 restores OpenCV's
 // default (one per CPU). A batch that already measures a photo per CPU
@@ -24,4 +26,12 @@ func SetOpenCVThreads(n int) {
 // in threads.cpp holds.
 func mallocArenas() int {
 	return int(C.lineshot_malloc_arenas())
+}
+
+// dropPages gives the whole memory pages inside b back to the system; b
+// reads as zeros afterwards. b must be memory from C (a Mat's data).
+func dropPages(b []uint8) {
+	if len(b) > 0 {
+		C.lineshot_drop_pages(unsafe.Pointer(&b[0]), C.size_t(len(b)))
+	}
 }

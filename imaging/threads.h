@@ -1,10 +1,12 @@
-// The OpenCV and C-library settings lineshot makes that gocv does not expose.
+// The OpenCV and C-library calls lineshot makes that gocv does not expose.
+#include <stddef.h>
 #ifdef __cplusplus
 extern "C" {
 #endif
 
 void lineshot_set_opencv_threads(int n);
 int lineshot_malloc_arenas(void);
+void lineshot_drop_pages(void *p, size_t n);
 
 #ifdef __cplusplus
 }
