@@ -808,14 +808,14 @@ func refineBand(fr *frame, tables codeTables, clipAt int, opt Options, ang float
 			fr.keepRows(roi.Min.Y-64, roi.Max.Y+64)
 			release()
 			rp, rgb, clip = linearRegion(*fr, roi, tables, clipAt, opt.Profile, opt.Channels, opt.workers())
-			rbg, _ = background(rp)
+			rbg = backgroundLevel(rp)
 			find = rp
 			if lit {
 				// Stray light across the region: the band's place and
 				// centre line are measured on the lines' contrast.
 				if c, err := lineContrast(rp, 31); err == nil {
 					find = c
-					rbg, _ = background(find)
+					rbg = backgroundLevel(find)
 				}
 			}
 		}

@@ -39,14 +39,30 @@ func levels(p plane) (med, sigma, peak float64) {
 // background is levels without the peak: the median and robust σ of about
 // 20 000 evenly spaced samples.
 func background(p plane) (med, sigma float64) {
+	b := backgroundSamples(p)
+	defer scratch.Put(b)
+	return medMAD(*b)
+}
+
+// backgroundLevel is background's median alone (the σ is a second
+// selection, not needed where the region's level is subtracted).
+func backgroundLevel(p plane) float64 {
+	b := backgroundSamples(p)
+	defer scratch.Put(b)
+	return peaks.MedianInPlace(*b)
+}
+
+// backgroundSamples borrows a scratch slice holding about 20 000 evenly
+// spaced samples of p.
+func backgroundSamples(p plane) *[]float64 {
 	step := max(1, len(p.pix)/20000)
 	b := borrow(len(p.pix)/step + 1)
-	defer scratch.Put(b)
 	s := *b
 	for i := 0; i < len(p.pix); i += step {
 		s = append(s, float64(p.pix[i]))
 	}
-	return medMAD(s)
+	*b = s
+	return b
 }
 
 // scratch lends float64 slices for a photo's temporary sample sets (the
