@@ -161,3 +161,40 @@ func TestWorkersDoNotChangeTheResult(t *testing.T) {
 		}
 	}
 }
+
+// Prominences gives exactly what walking out from each maximum gives
+// (the definition), on noisy profiles with plateaus and ties.
+func TestProminencesMatchWalking(t *testing.T) {
+	rng := rand.New(rand.NewPCG(8, 1))
+	for trial := 0; trial < 200; trial++ {
+		n := 1 + rng.IntN(600)
+		y := make([]float64, n)
+		for i := range y {
+			if trial%2 == 0 {
+				y[i] = float64(rng.IntN(6)) // ties and plateaus
+			} else {
+				y[i] = rng.NormFloat64() + 20*math.Exp(-math.Pow(float64(i-n/2)/8, 2))
+			}
+		}
+		idx := LocalMaxima(y)
+		if trial%3 == 0 {
+			idx = make([]int, n) // every sample, maxima or not
+			for i := range idx {
+				idx[i] = i
+			}
+		}
+		got := Prominences(y, idx)
+		for k, i := range idx {
+			lmin, rmin := y[i], y[i]
+			for j := i - 1; j >= 0 && y[j] <= y[i]; j-- {
+				lmin = math.Min(lmin, y[j])
+			}
+			for j := i + 1; j < n && y[j] <= y[i]; j++ {
+				rmin = math.Min(rmin, y[j])
+			}
+			if want := y[i] - math.Max(lmin, rmin); got[k] != want {
+				t.Fatalf("trial %d, sample %d of %d: prominence %v, walking gives %v", trial, i, n, got[k], want)
+			}
+		}
+	}
+}

@@ -2,6 +2,7 @@ package peaks
 
 import (
 	"math"
+	"math/bits"
 )
 
 // Baseline writes into dst (len(dst) == len(src)) a smooth lower envelope
@@ -211,18 +212,57 @@ func LocalMaxima(y []float64) []int {
 // peak, extend left and right until a higher sample or the edge; on each
 // side take the lowest sample of that stretch; the prominence is the peak
 // minus the higher of the two minima.
+//
+// Walking out from every maximum costs a profile's length for each tall
+// one; instead the stretch's ends (the nearest higher sample each side)
+// come from one pass with a stack, and its minima from a table of minima
+// over power-of-two spans: the same values, in n·log n for a profile.
 func Prominences(y []float64, idx []int) []float64 {
 	out := make([]float64, len(idx))
+	n := len(y)
+	if len(idx) == 0 || n == 0 {
+		return out
+	}
+	// left[i], right[i]: the nearest samples higher than y[i] (−1, n: none).
+	left, right := make([]int, n), make([]int, n)
+	stack := make([]int, 0, 64)
+	for i := range y {
+		for len(stack) > 0 && y[stack[len(stack)-1]] <= y[i] {
+			stack = stack[:len(stack)-1]
+		}
+		left[i] = -1
+		if len(stack) > 0 {
+			left[i] = stack[len(stack)-1]
+		}
+		stack = append(stack, i)
+	}
+	stack = stack[:0]
+	for i := n - 1; i >= 0; i-- {
+		for len(stack) > 0 && y[stack[len(stack)-1]] <= y[i] {
+			stack = stack[:len(stack)-1]
+		}
+		right[i] = n
+		if len(stack) > 0 {
+			right[i] = stack[len(stack)-1]
+		}
+		stack = append(stack, i)
+	}
+	// span[k][i] is the least of y[i : i+2^k].
+	span := [][]float64{y}
+	for w := 1; 2*w <= n; w *= 2 {
+		prev := span[len(span)-1]
+		next := make([]float64, n-2*w+1)
+		for i := range next {
+			next[i] = math.Min(prev[i], prev[i+w])
+		}
+		span = append(span, next)
+	}
+	least := func(lo, hi int) float64 { // the least of y[lo..hi], lo ≤ hi
+		k := bits.Len(uint(hi-lo+1)) - 1
+		return math.Min(span[k][lo], span[k][hi-(1<<k)+1])
+	}
 	for k, i := range idx {
-		lmin := y[i]
-		for j := i - 1; j >= 0 && y[j] <= y[i]; j-- {
-			lmin = math.Min(lmin, y[j])
-		}
-		rmin := y[i]
-		for j := i + 1; j < len(y) && y[j] <= y[i]; j++ {
-			rmin = math.Min(rmin, y[j])
-		}
-		out[k] = y[i] - math.Max(lmin, rmin)
+		out[k] = y[i] - math.Max(least(left[i]+1, i), least(i, right[i]-1))
 	}
 	return out
 }
