@@ -5,7 +5,28 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 t=${FUZZTIME:-3s}
-run() { echo "fuzz: $1 $2 ($t)"; go test -run '^$' -fuzz "^$2\$" -fuzztime "$t" "$1" >/dev/null; }
+# A failing input is written under testdata/fuzz/ and fails the run. Once in
+# a long while the fuzzing engine itself stops a run without one (a worker
+# that did not answer in time on a loaded machine): that run is shown and
+# tried once more, so that it does not fail the whole test command.
+run() {
+  echo "fuzz: $1 $2 ($t)"
+  local out
+  out=$(mktemp)
+  for try in 1 2; do
+    if go test -run '^$' -fuzz "^$2\$" -fuzztime "$t" "$1" >"$out" 2>&1; then
+      rm -f "$out"
+      return 0
+    fi
+    if grep -q 'Failing input written to' "$out" || [ "$try" = 2 ]; then
+      cat "$out"
+      rm -f "$out"
+      return 1
+    fi
+    echo "fuzz: $2 stopped without a failing input; again. Its last lines:"
+    tail -n 5 "$out"
+  done
+}
 run ./calibrate/vernier FuzzParseAngle
 run ./calibrate/vernier FuzzReadCSV
 run ./cmd/lineshot FuzzParseProfileCSV
