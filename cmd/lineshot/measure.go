@@ -543,7 +543,7 @@ func findLines(s imaging.Strip, path string, cfg measureConfig) (measured, error
 	if err != nil {
 		return measured{}, fmt.Errorf("%s: %w", path, err)
 	}
-	fromUnclippedChannel(s, &r, cfg.minSNR)
+	fromUnclippedChannel(s, &r, cfg.minSNR, cfg.imageOpts.Workers)
 	if len(r.Peaks) == 0 {
 		return measured{}, fmt.Errorf("%s: no line stands above the noise (threshold %.1fσ)", path, cfg.minSNR)
 	}
@@ -570,8 +570,9 @@ func findLines(s imaging.Strip, path string, cfg measureConfig) (measured, error
 // On simulated photos with a Gaussian blur the flank fit was as good as
 // the channel's (0.02-0.03 px either way) and the channel's, from
 // chroma-subsampled JPEG, was once 0.9 px off with a σ of 0.02 px: so the
-// flanks are preferred whenever they hold.
-func fromUnclippedChannel(s imaging.Strip, r *peaks.Result, minSNR float64) {
+// flanks are preferred whenever they hold. workers is the photo's share
+// of the CPUs (peaks.Options.Workers).
+func fromUnclippedChannel(s imaging.Strip, r *peaks.Result, minSNR float64, workers int) {
 	if s.Channels[0] == nil || s.ChannelClipped[0] == nil {
 		return
 	}
@@ -602,7 +603,7 @@ func fromUnclippedChannel(s imaging.Strip, r *peaks.Result, minSNR float64) {
 			continue
 		}
 		if found[best] == nil {
-			res, err := peaks.Find(s.Channels[best], peaks.Options{MinSNR: minSNR, Clipped: s.ChannelClipped[best]})
+			res, err := peaks.Find(s.Channels[best], peaks.Options{MinSNR: minSNR, Clipped: s.ChannelClipped[best], Workers: workers})
 			if err != nil {
 				continue
 			}

@@ -73,12 +73,12 @@ func TestUnclippedChannelFallback(t *testing.T) {
 		s.Channels[2][i] = 0.02 * g // B: faint
 	}
 	r := peaks.Result{Peaks: []peaks.Peak{{Center: 60.9, Sigma: 0.4, FWHM: 3.1, Saturated: true, Method: "centroid"}}}
-	fromUnclippedChannel(s, &r, 5)
+	fromUnclippedChannel(s, &r, 5, 0)
 	if p := r.Peaks[0]; p.Channel != "R" || math.Abs(p.Center-mu) > 0.02 {
 		t.Errorf("failed fit: centre %.3f from channel %q, truth %.1f in R", p.Center, p.Channel, mu)
 	}
 	r = peaks.Result{Peaks: []peaks.Peak{{Center: 60.31, Sigma: 0.003, FWHM: 3.1, Saturated: true, Method: "gauss"}}}
-	fromUnclippedChannel(s, &r, 5)
+	fromUnclippedChannel(s, &r, 5, 0)
 	if p := r.Peaks[0]; p.Channel != "" || p.Center != 60.31 {
 		t.Errorf("good flank fit replaced: centre %.3f from channel %q", p.Center, p.Channel)
 	}
