@@ -253,16 +253,16 @@ func Prominences(y []float64, idx []int) []float64 {
 		prev := span[len(span)-1]
 		next := make([]float64, n-2*w+1)
 		for i := range next {
-			next[i] = math.Min(prev[i], prev[i+w])
+			next[i] = min(prev[i], prev[i+w]) // as math.Min (NaN, ±0), inlined
 		}
 		span = append(span, next)
 	}
 	least := func(lo, hi int) float64 { // the least of y[lo..hi], lo ≤ hi
 		k := bits.Len(uint(hi-lo+1)) - 1
-		return math.Min(span[k][lo], span[k][hi-(1<<k)+1])
+		return min(span[k][lo], span[k][hi-(1<<k)+1])
 	}
 	for k, i := range idx {
-		out[k] = y[i] - math.Max(least(left[i]+1, i), least(i, right[i]-1))
+		out[k] = y[i] - max(least(left[i]+1, i), least(i, right[i]-1))
 	}
 	return out
 }
