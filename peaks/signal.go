@@ -224,29 +224,7 @@ func Prominences(y []float64, idx []int) []float64 {
 		return out
 	}
 	// left[i], right[i]: the nearest samples higher than y[i] (−1, n: none).
-	left, right := make([]int, n), make([]int, n)
-	stack := make([]int, 0, 64)
-	for i := range y {
-		for len(stack) > 0 && y[stack[len(stack)-1]] <= y[i] {
-			stack = stack[:len(stack)-1]
-		}
-		left[i] = -1
-		if len(stack) > 0 {
-			left[i] = stack[len(stack)-1]
-		}
-		stack = append(stack, i)
-	}
-	stack = stack[:0]
-	for i := n - 1; i >= 0; i-- {
-		for len(stack) > 0 && y[stack[len(stack)-1]] <= y[i] {
-			stack = stack[:len(stack)-1]
-		}
-		right[i] = n
-		if len(stack) > 0 {
-			right[i] = stack[len(stack)-1]
-		}
-		stack = append(stack, i)
-	}
+	left, right := nearestHigher(y, 1), nearestHigher(y, -1)
 	// span[k][i] is the least of y[i : i+2^k].
 	span := [][]float64{y}
 	for w := 1; 2*w <= n; w *= 2 {
@@ -265,4 +243,29 @@ func Prominences(y []float64, idx []int) []float64 {
 		out[k] = y[i] - max(least(left[i]+1, i), least(i, right[i]-1))
 	}
 	return out
+}
+
+// nearestHigher returns, for each sample of y, the nearest sample before it
+// that is higher, walking y in direction dir (1: from the start, so the
+// nearest higher one on its left, −1 for the right), or −1 or len(y) when
+// there is none: one pass keeping a stack of the samples not yet outdone.
+func nearestHigher(y []float64, dir int) []int {
+	n := len(y)
+	near := make([]int, n)
+	i, none := 0, -1
+	if dir < 0 {
+		i, none = n-1, n
+	}
+	stack := make([]int, 0, 64)
+	for ; i >= 0 && i < n; i += dir {
+		for len(stack) > 0 && y[stack[len(stack)-1]] <= y[i] {
+			stack = stack[:len(stack)-1]
+		}
+		near[i] = none
+		if len(stack) > 0 {
+			near[i] = stack[len(stack)-1]
+		}
+		stack = append(stack, i)
+	}
+	return near
 }
