@@ -231,7 +231,7 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 		go tablesFor(levelsOf(cfg), opt.Linear)
 	}
 	t0 := time.Now()
-	m := gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
+	m := imread(path)
 	if m.Empty() {
 		m.Close()
 		return nil, fmt.Errorf("%s: not an image OpenCV can decode", path)
@@ -246,7 +246,7 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	decoded := time.Since(t0)
 	var reload func() gocv.Mat
 	if !all {
-		reload = func() gocv.Mat { return gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth) }
+		reload = func() gocv.Mat { return imread(path) }
 	}
 	ss, err := extractBandsMat(m, opt, all, reload)
 	if err != nil {
@@ -261,12 +261,18 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 // Decode decodes the photo at path as Extract does and discards it,
 // returning its size: the floor under Extract's time, for benchmarks.
 func Decode(path string) (w, h int, err error) {
-	m := gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
+	m := imread(path)
 	defer m.Close()
 	if m.Empty() {
 		return 0, 0, fmt.Errorf("%s: not an image OpenCV can decode", path)
 	}
 	return m.Cols(), m.Rows(), nil
+}
+
+// imread decodes the photo at path as every measurement does: colour,
+// at its own bit depth (8 or 16).
+func imread(path string) gocv.Mat {
+	return gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
 }
 
 // Timing is how long each stage of Extract took.
@@ -804,7 +810,9 @@ func refineBand(fr *frame, tables codeTables, clipAt int, opt Options, ang float
 			}
 			// Only rows near the region are read from here on (64 more
 			// each side, for corrections beyond the region's own margin);
-			// the rest go back before the region's buffers are taken.
+			// the rest go back before the region's buffers are taken. The
+			// region's own rows stay held: the colour pass and the display
+			// strip below read within it without asking.
 			fr.keepRows(roi.Min.Y-64, roi.Max.Y+64)
 			release()
 			rp, rgb, clip = linearRegion(*fr, roi, tables, clipAt, opt.Profile, opt.Channels, opt.workers())
@@ -950,10 +958,6 @@ func refineBand(fr *frame, tables codeTables, clipAt int, opt Options, ang float
 		// all (the region once more with colour), so that a line clipped
 		// in one channel can be measured in another.
 		f32Pool.put(rgb)
-		rgb = nil
-		if err := fr.need(roi.Min.Y, roi.Max.Y); err != nil {
-			return Strip{}, err
-		}
 		rgb = regionRGB(*fr, roi, tables)
 		if s4, fit4, err := straighten(rgb, 4, clip, roi, ang, vc, hh, side, u0, u1, opt.Profile, bow, opt.workers(), lit); err == nil {
 			take(s4, fit4)
@@ -961,9 +965,6 @@ func refineBand(fr *frame, tables codeTables, clipAt int, opt Options, ang float
 	}
 	if opt.KeepImage {
 		half, sd := int(math.Ceil(hh)), int(math.Ceil(side))
-		if err := fr.need(roi.Min.Y, roi.Max.Y); err != nil { // the band lies in the region
-			return Strip{}, err
-		}
 		var err error
 		if s.Image, err = displayStrip(*fr, tables.lut, ang, u0, vc-float64(half+sd), len(s.Profile), 2*(half+sd)+1, bow, opt.ImageMaxWidth); err != nil {
 			return Strip{}, err
@@ -1201,6 +1202,10 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 	}
 	sum := profile != ProfileLuma
 	fast := fr.bytes8 != nil && !all && tables.luma.exact != nil
+	// row8 is region row y of an 8-bit frame, 3 bytes (B, G, R) a pixel.
+	row8 := func(y int) []uint8 {
+		return fr.bytes8[3*((y+roi.Min.Y)*fr.w+roi.Min.X) : 3*((y+roi.Min.Y)*fr.w+roi.Max.X)]
+	}
 	var clip []uint8 // bit 0: R clipped, bit 1: G, bit 2: B
 	if !fast {
 		clip = u8Pool.get(w * h)
@@ -1216,7 +1221,7 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 			// buffer, a byte a pixel, added to the measurement's peak).
 			lumaTab := tables.luma.exact
 			for y := y0; y < y1; y++ {
-				src := fr.bytes8[3*((y+roi.Min.Y)*fr.w+roi.Min.X) : 3*((y+roi.Min.Y)*fr.w+roi.Max.X)]
+				src := row8(y)
 				dst := pp.pix[y*w : (y+1)*w]
 				for x := range dst {
 					b, g, r := src[3*x], src[3*x+1], src[3*x+2]
@@ -1254,16 +1259,13 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 		clip = u8Pool.get(w * h)
 		inParts(h, workers, max(1, 1<<16/max(1, w)), func(y0, y1 int) {
 			for y := y0; y < y1; y++ {
-				src := fr.bytes8[3*((y+roi.Min.Y)*fr.w+roi.Min.X) : 3*((y+roi.Min.Y)*fr.w+roi.Max.X)]
+				src := row8(y)
 				cl := clip[y*w : (y+1)*w]
 				for x := range cl {
 					cl[x] = clipBits(int(src[3*x+2]), int(src[3*x+1]), int(src[3*x]), clipAt)
 				}
 			}
 		})
-	}
-	if clip == nil {
-		return pp, rgb, nil
 	}
 	return pp, rgb, clipOrNil(clip, uint8(anyClip.Load()))
 }

@@ -494,13 +494,11 @@ func glowRange(sp plane, workers int) float64 {
 	// a spare core; it is waited for on every return, as the caller
 	// changes sp afterwards.
 	var noise float64
-	done := make(chan struct{})
+	var spare sync.WaitGroup
+	defer spare.Wait()
 	if workers > 1 {
-		go func() { noise = pixelNoise(sp); close(done) }()
-	} else {
-		close(done)
+		spare.Go(func() { noise = pixelNoise(sp) })
 	}
-	defer func() { <-done }()
 	q := max(1, int(math.Ceil(float64(max(sp.w, sp.h))/128)))
 	tw, th := max(8, sp.w/q), max(8, sp.h/q)
 	src, err := floatMat(sp.pix, sp.h, sp.w, gocv.MatTypeCV32FC1)
@@ -529,7 +527,7 @@ func glowRange(sp plane, workers int) float64 {
 			lo, hi = math.Min(lo, float64(v[r*tw+c])), math.Max(hi, float64(v[r*tw+c]))
 		}
 	}
-	<-done
+	spare.Wait()
 	if workers <= 1 {
 		noise = pixelNoise(sp)
 	}

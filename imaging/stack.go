@@ -159,7 +159,7 @@ func accumulate(paths []string, maxVideo int, opt Options) (average, error) {
 		if format == "jpeg" {
 			a.compressed = true
 		}
-		m := gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
+		m := imread(path)
 		if m.Empty() {
 			m.Close()
 			return a, fmt.Errorf("%s: not an image OpenCV can decode", path)
