@@ -230,8 +230,11 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 		// for 8 bits): on a spare core while the photo decodes.
 		go tablesFor(levelsOf(cfg), opt.Linear)
 	}
-	t0 := time.Now()
-	m := imread(path)
+	m, small, decoded, waited, err := decodeAndReduce(path, format, opt.workers())
+	if err != nil {
+		m.Close()
+		return nil, fmt.Errorf("%s: cannot decode the JPEG: %v", path, err)
+	}
 	if m.Empty() {
 		m.Close()
 		return nil, fmt.Errorf("%s: not an image OpenCV can decode", path)
@@ -243,25 +246,33 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	} else {
 		defer m.Close()
 	}
-	decoded := time.Since(t0)
 	var reload func() gocv.Mat
 	if !all {
-		reload = func() gocv.Mat { return imread(path) }
+		reload = func() gocv.Mat {
+			m, _ := decodeFrame(path, format)
+			return m
+		}
 	}
-	ss, err := extractBandsMat(m, opt, all, reload)
+	ss, err := extractBandsMat(m, opt, all, reload, small)
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", path, err)
 	}
 	for i := range ss {
+		// (The reduction's part after the decode belongs to the search.)
 		ss[i].Timing.Decode = decoded
+		ss[i].Timing.Locate += waited
 	}
 	return ss, nil
 }
 
 // Decode decodes the photo at path as Extract does and discards it,
 // returning its size: the floor under Extract's time, for benchmarks.
+// (Without Extract's checks of the file: a strict floor.)
 func Decode(path string) (w, h int, err error) {
-	m := imread(path)
+	m, ok, err := decodeRows(path, nil)
+	if err != nil || !ok {
+		m = imread(path) // not a JPEG, or not one the row decoder takes
+	}
 	defer m.Close()
 	if m.Empty() {
 		return 0, 0, fmt.Errorf("%s: not an image OpenCV can decode", path)
@@ -269,15 +280,16 @@ func Decode(path string) (w, h int, err error) {
 	return m.Cols(), m.Rows(), nil
 }
 
-// imread decodes the photo at path as every measurement does: colour,
-// at its own bit depth (8 or 16).
+// imread decodes the photo at path with OpenCV as every measurement does
+// what the row decoder does not take: colour, at its own bit depth (8 or
+// 16), turned as its Exif orientation says.
 func imread(path string) gocv.Mat {
 	return gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
 }
 
 // Timing is how long each stage of Extract took.
 type Timing struct {
-	Decode     time.Duration // OpenCV's imread
+	Decode     time.Duration // the row decoder (most JPEGs) or OpenCV's imread
 	Locate     time.Duration // reduce the frame, find the band's direction and place
 	Straighten time.Duration // linearise the band region, warp, collapse (all rounds)
 }
@@ -521,7 +533,7 @@ func srgbToLinear(v float64) float64 {
 const searchScale = 1024
 
 func extractMat(m gocv.Mat, opt Options) (Strip, error) {
-	ss, err := extractBandsMat(m, opt, false, nil)
+	ss, err := extractBandsMat(m, opt, false, nil, nil)
 	if err != nil {
 		return Strip{}, err
 	}
@@ -530,7 +542,13 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 
 // extractBandsMat finds the strongest band, or with all every band that
 // runs parallel to it, and straightens and collapses each.
-func extractBandsMat(m gocv.Mat, opt Options, all bool, reload func() gocv.Mat) ([]Strip, error) {
+//
+// small, when not nil, is the frame already reduced for the band search
+// (decodeAndReduce); extractBandsMat closes it.
+func extractBandsMat(m gocv.Mat, opt Options, all bool, reload func() gocv.Mat, small *gocv.Mat) ([]Strip, error) {
+	if small != nil {
+		defer small.Close()
+	}
 	t0 := time.Now()
 	f, err := newFrame(m)
 	if err != nil {
@@ -553,12 +571,13 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool, reload func() gocv.Mat) 
 	lut := tables.lut
 
 	// 1. Find the band roughly on a reduced frame.
-	// A whole reduction factor keeps OpenCV's area averaging on its fast path.
-	k := max(1, int(math.Ceil(float64(max(fr.w, fr.h))/searchScale)))
-	sw, sh := max(8, fr.w/k), max(8, fr.h/k)
-	small := reduceArea(m, k, sw, sh)
-	defer small.Close()
-	sp, top, err := sumPlane(small, lut, opt.workers())
+	k, sw, sh := searchReduction(fr.w, fr.h)
+	if small == nil {
+		s := reduceArea(m, k, sw, sh)
+		defer s.Close()
+		small = &s
+	}
+	sp, top, err := sumPlane(*small, lut, opt.workers())
 	if err != nil {
 		return nil, err
 	}
@@ -711,33 +730,44 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool, reload func() gocv.Mat) 
 // these machines). Each halving rounds to whole codes, so a reduced pixel
 // may differ from the direct average by one code: far below what the band
 // search looks at (its thresholds are several noise σ). The halvings go
-// in stripes of rows, a multiple of k high: a reduced pixel depends on its
+// in stripes of decodeStripe rows (a multiple of k): a reduced pixel depends on its
 // own block alone, so the result is the whole frame's, while the first
 // halving's output stays a stripe's size (for a whole 12 MP frame it held
 // 9 MB beside the frame, at a measurement's memory peak).
 func reduceArea(m gocv.Mat, k, sw, sh int) gocv.Mat {
-	if k > 1 && k&(k-1) == 0 && sw*k == m.Cols() && sh*k == m.Rows() {
+	if byStripes(k, sw, sh, m.Cols(), m.Rows()) {
 		out := gocv.NewMatWithSize(sh, sw, m.Type())
-		stripe := k * max(1, 512/k) // frame rows a stripe
-		for y0 := 0; y0 < m.Rows(); y0 += stripe {
-			y1 := min(m.Rows(), y0+stripe)
-			cur := m.Region(image.Rect(0, y0, m.Cols(), y1))
-			for f := k; f > 1; f /= 2 {
-				next := gocv.NewMat()
-				gocv.Resize(cur, &next, image.Pt(cur.Cols()/2, cur.Rows()/2), 0, 0, gocv.InterpolationArea)
-				cur.Close()
-				cur = next
-			}
-			dst := out.Region(image.Rect(0, y0/k, sw, y1/k))
-			cur.CopyTo(&dst)
-			dst.Close()
-			cur.Close()
+		for y0 := 0; y0 < m.Rows(); y0 += decodeStripe {
+			reduceStripe(m, out, k, y0, min(m.Rows(), y0+decodeStripe))
 		}
 		return out
 	}
 	small := gocv.NewMat()
 	gocv.Resize(m, &small, image.Pt(sw, sh), 0, 0, gocv.InterpolationArea)
 	return small
+}
+
+// byStripes reports whether reduceArea reduces a w×h frame to sw×sh by
+// halvings in stripes: k a power of two (at most decodeStripe) dividing
+// both sides.
+func byStripes(k, sw, sh, w, h int) bool {
+	return k > 1 && k&(k-1) == 0 && k <= decodeStripe && sw*k == w && sh*k == h
+}
+
+// reduceStripe reduces frame rows [y0, y1) (y0 a multiple of k, y1 too
+// or the frame's end) into out's rows y0/k … y1/k − 1 by log2(k) halvings.
+func reduceStripe(m, out gocv.Mat, k, y0, y1 int) {
+	cur := m.Region(image.Rect(0, y0, m.Cols(), y1))
+	for f := k; f > 1; f /= 2 {
+		next := gocv.NewMat()
+		gocv.Resize(cur, &next, image.Pt(cur.Cols()/2, cur.Rows()/2), 0, 0, gocv.InterpolationArea)
+		cur.Close()
+		cur = next
+	}
+	dst := out.Region(image.Rect(0, y0/k, out.Cols(), y1/k))
+	cur.CopyTo(&dst)
+	dst.Close()
+	cur.Close()
 }
 
 // strongestGuess is the index of the band with the brightest plateau.

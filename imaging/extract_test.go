@@ -143,6 +143,8 @@ func FuzzExtractBytes(f *testing.F) {
 	var buf bytes.Buffer
 	jpeg.Encode(&buf, img, nil)
 	f.Add(buf.Bytes())
+	f.Add(withOrientation(buf.Bytes(), 1)) // the row decoder's Exif reading
+	f.Add(withOrientation(buf.Bytes(), 6))
 	f.Add([]byte("\xff\xd8\xff\xe0 not really"))
 	f.Add([]byte("\x89PNG\r\n\x1a\n"))
 	f.Fuzz(func(t *testing.T, b []byte) {

@@ -159,7 +159,11 @@ func accumulate(paths []string, maxVideo int, opt Options) (average, error) {
 		if format == "jpeg" {
 			a.compressed = true
 		}
-		m := imread(path)
+		m, err := decodeFrame(path, format)
+		if err != nil {
+			m.Close()
+			return a, fmt.Errorf("%s: cannot decode the JPEG: %v", path, err)
+		}
 		if m.Empty() {
 			m.Close()
 			return a, fmt.Errorf("%s: not an image OpenCV can decode", path)

@@ -1,7 +1,7 @@
 #!/usr/bin/env bash
 # Installs what lineshot needs to build, when it is missing: Debian's
-# libopencv-dev (OpenCV 4.6, the version gocv v0.32 builds against) and
-# pkg-config, using sudo when not root; then the Go modules.
+# libopencv-dev (OpenCV 4.6, the version gocv v0.32 builds against),
+# libjpeg-dev and pkg-config, using sudo when not root; then the Go modules.
 # Sourced by demo.sh and test.sh; safe to run again.
 set -euo pipefail
 
@@ -10,6 +10,9 @@ command -v pkg-config >/dev/null 2>&1 || need_apt+=(pkg-config)
 if ! pkg-config --exists opencv4 2>/dev/null; then
   need_apt+=(libopencv-dev)
 fi
+# libjpeg's headers, for the row decoder (imaging/jpegrows.c); libopencv-dev
+# brings them too, through libtiff-dev.
+pkg-config --exists libjpeg 2>/dev/null || need_apt+=(libjpeg-dev)
 for pkg in "$@"; do
   dpkg -s "$pkg" >/dev/null 2>&1 || need_apt+=("$pkg")
 done

@@ -1,0 +1,149 @@
+// A JPEG decoder that hands over the frame a stripe of rows at a time, so
+// that the band search can reduce the rows already decoded on another core
+// while libjpeg decodes the rest. It decodes as OpenCV's imread does for
+// the photos it takes (libjpeg's defaults, BGR output); everything else
+// (other colour spaces, rotated photos) is left to imread.
+#include <setjmp.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <jpeglib.h>
+#include "jpegrows.h"
+
+struct lineshot_jpeg {
+    struct jpeg_decompress_struct cinfo;
+    struct jpeg_error_mgr jerr;
+    jmp_buf jump;
+    FILE *file;
+    char msg[JMSG_LENGTH_MAX];
+};
+
+static void on_error(j_common_ptr c) {
+    struct lineshot_jpeg *j = (struct lineshot_jpeg *)c->client_data;
+    (*c->err->format_message)(c, j->msg);
+    longjmp(j->jump, 1);
+}
+
+// Warnings (corrupt data libjpeg decodes past, as imread does) are counted
+// by libjpeg, not printed: a file cut short never gets here (the caller
+// checks for the end marker first).
+static void on_message(j_common_ptr c, int level) {
+    if (level < 0) {
+        c->err->num_warnings++;
+    }
+}
+
+static unsigned get16(const unsigned char *p, int big) {
+    return big ? (unsigned)p[0] << 8 | p[1] : (unsigned)p[1] << 8 | p[0];
+}
+
+static unsigned long get32(const unsigned char *p, int big) {
+    return big ? (unsigned long)get16(p, 1) << 16 | get16(p + 2, 1)
+               : (unsigned long)get16(p + 2, 0) << 16 | get16(p, 0);
+}
+
+// upright reports whether the saved APP1 markers say the photo needs no
+// turning: no Exif block, or one whose first directory has no orientation
+// tag or orientation 1. Anything it cannot read in full counts as not
+// upright, and the photo goes to imread, which applies the orientation.
+static int upright(struct jpeg_decompress_struct *c) {
+    for (jpeg_saved_marker_ptr m = c->marker_list; m != NULL; m = m->next) {
+        if (m->marker != JPEG_APP0 + 1 || m->data_length < 6 || memcmp(m->data, "Exif\0\0", 6) != 0) {
+            continue; // XMP and other APP1 blocks
+        }
+        const unsigned char *t = m->data + 6;
+        unsigned long n = m->data_length - 6;
+        if (n < 8 || !(memcmp(t, "II*\0", 4) == 0 || memcmp(t, "MM\0*", 4) == 0)) {
+            return 0;
+        }
+        int big = t[0] == 'M';
+        unsigned long ifd = get32(t + 4, big);
+        if (ifd > n - 2) {
+            return 0;
+        }
+        unsigned count = get16(t + ifd, big);
+        if (count > (n - ifd - 2) / 12) {
+            return 0;
+        }
+        for (unsigned k = 0; k < count; k++) {
+            const unsigned char *e = t + ifd + 2 + 12 * k;
+            if (get16(e, big) == 0x0112) {
+                return get16(e + 2, big) == 3 && get32(e + 4, big) == 1 && get16(e + 8, big) == 1;
+            }
+        }
+    }
+    return 1;
+}
+
+struct lineshot_jpeg *lineshot_jpeg_open(const char *path, int *w, int *h, int *rows_ok, char *msg, size_t msglen) {
+    *rows_ok = 0;
+    struct lineshot_jpeg *j = calloc(1, sizeof *j);
+    if (j == NULL) {
+        snprintf(msg, msglen, "out of memory");
+        return NULL;
+    }
+    j->file = fopen(path, "rb");
+    if (j->file == NULL) {
+        snprintf(msg, msglen, "cannot open the file");
+        free(j);
+        return NULL;
+    }
+    j->cinfo.err = jpeg_std_error(&j->jerr);
+    j->jerr.error_exit = on_error;
+    j->jerr.emit_message = on_message;
+    j->cinfo.client_data = j;
+    if (setjmp(j->jump)) {
+        snprintf(msg, msglen, "%s", j->msg);
+        lineshot_jpeg_close(j);
+        return NULL;
+    }
+    jpeg_create_decompress(&j->cinfo);
+    jpeg_stdio_src(&j->cinfo, j->file);
+    jpeg_save_markers(&j->cinfo, JPEG_APP0 + 1, 0xffff);
+    jpeg_read_header(&j->cinfo, TRUE);
+    *w = (int)j->cinfo.image_width;
+    *h = (int)j->cinfo.image_height;
+    int colour = (j->cinfo.jpeg_color_space == JCS_YCbCr && j->cinfo.num_components == 3) ||
+                 (j->cinfo.jpeg_color_space == JCS_GRAYSCALE && j->cinfo.num_components == 1);
+    if (!colour || j->cinfo.data_precision != 8 || !upright(&j->cinfo)) {
+        return j; // rows_ok stays 0: the caller closes it and uses imread
+    }
+    j->cinfo.out_color_space = JCS_EXT_BGR;
+    jpeg_start_decompress(&j->cinfo);
+    if (j->cinfo.output_components != 3 || (int)j->cinfo.output_width != *w || (int)j->cinfo.output_height != *h) {
+        return j;
+    }
+    *rows_ok = 1;
+    return j;
+}
+
+int lineshot_jpeg_rows(struct lineshot_jpeg *j, unsigned char *dst, size_t stride, int n, char *msg, size_t msglen) {
+    if (setjmp(j->jump)) {
+        snprintf(msg, msglen, "%s", j->msg);
+        return -1;
+    }
+    int got = 0;
+    while (got < n && j->cinfo.output_scanline < j->cinfo.output_height) {
+        JSAMPROW row = dst + (size_t)got * stride;
+        JDIMENSION k = jpeg_read_scanlines(&j->cinfo, &row, 1);
+        if (k == 0) {
+            snprintf(msg, msglen, "the decoder stopped at row %u", j->cinfo.output_scanline);
+            return -1;
+        }
+        got += (int)k;
+    }
+    return got;
+}
+
+void lineshot_jpeg_close(struct lineshot_jpeg *j) {
+    if (j == NULL) {
+        return;
+    }
+    // jpeg_destroy_decompress also ends a decode stopped midway; it raises
+    // no errors of its own.
+    jpeg_destroy_decompress(&j->cinfo);
+    if (j->file != NULL) {
+        fclose(j->file);
+    }
+    free(j);
+}

@@ -1,0 +1,25 @@
+// A JPEG decoder that hands over a frame's rows a stripe at a time
+// (jpegrows.c).
+#include <stddef.h>
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+struct lineshot_jpeg;
+
+// Opens the JPEG at path and reads its header. On failure it returns NULL
+// with the reason in msg. *rows_ok says whether the photo decodes here as
+// imread would (YCbCr or grey, 8 bits, upright); when not, the caller
+// closes the decoder and uses imread.
+struct lineshot_jpeg *lineshot_jpeg_open(const char *path, int *w, int *h, int *rows_ok, char *msg, size_t msglen);
+
+// Decodes the next n rows (fewer at the end of the frame) into dst, B, G, R
+// a pixel, rows stride bytes apart; returns the rows decoded, or -1 with
+// the reason in msg.
+int lineshot_jpeg_rows(struct lineshot_jpeg *j, unsigned char *dst, size_t stride, int n, char *msg, size_t msglen);
+
+void lineshot_jpeg_close(struct lineshot_jpeg *j);
+
+#ifdef __cplusplus
+}
+#endif
