@@ -280,6 +280,18 @@ func Decode(path string) (w, h int, err error) {
 	return m.Cols(), m.Rows(), nil
 }
 
+// DecodeOpenCV decodes the photo at path with OpenCV's imread alone and
+// discards it: the floor benchmarks measured against before the row
+// decoder, kept for comparison.
+func DecodeOpenCV(path string) (w, h int, err error) {
+	m := imread(path)
+	defer m.Close()
+	if m.Empty() {
+		return 0, 0, fmt.Errorf("%s: not an image OpenCV can decode", path)
+	}
+	return m.Cols(), m.Rows(), nil
+}
+
 // imread decodes the photo at path with OpenCV as every measurement does
 // what the row decoder does not take: colour, at its own bit depth (8 or
 // 16), turned as its Exif orientation says.
