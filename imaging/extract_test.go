@@ -569,9 +569,12 @@ func TestLinearRegionClipMask(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	roi := image.Rect(17, 23, 281, 190)
 	tables := tablesFor(256, false)
-	for _, profile := range []string{ProfileLuma, ProfileSum} {
+	for _, c := range []struct {
+		profile string
+		roi     image.Rectangle
+	}{{ProfileLuma, image.Rect(17, 23, 281, 190)}, {ProfileSum, image.Rect(17, 23, 281, 190)}, {ProfileSum, image.Rect(17, 23, 282, 190)}} {
+		profile, roi := c.profile, c.roi // an even and an odd width (the sum's rows go two pixels a step)
 		qp, _, qc := linearRegion(fr, roi, tables, clipCode8, profile, false, 2)
 		gp, grgb, gc := linearRegion(fr, roi, tables, clipCode8, profile, true, 2)
 		if qc == nil || gc == nil || len(qc) != len(gc) {
@@ -587,5 +590,40 @@ func TestLinearRegionClipMask(t *testing.T) {
 		f32Pool.put(grgb)
 		u8Pool.put(qc)
 		u8Pool.put(gc)
+	}
+	// One clipped sample, in an odd-width region's last column (each
+	// channel in turn): the quick path still makes the mask; none, no mask.
+	for ch := 0; ch < 4; ch++ {
+		flat := image.NewRGBA(image.Rect(0, 0, 40, 10))
+		for i := range flat.Pix {
+			flat.Pix[i] = 100
+		}
+		if ch < 3 {
+			flat.Pix[flat.PixOffset(34, 5)+ch] = 255
+		}
+		fm, err := gocv.ImageToMatRGB(flat)
+		if err != nil {
+			t.Fatal(err)
+		}
+		ff, err := newFrame(fm)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, profile := range []string{ProfileLuma, ProfileSum} {
+			qp, _, qc := linearRegion(ff, image.Rect(2, 1, 35, 9), tables, clipCode8, profile, false, 1)
+			want := uint8(0)
+			if ch < 3 {
+				want = 1 << ch // bit 0 R, 1 G, 2 B
+			}
+			switch {
+			case want == 0 && qc != nil:
+				t.Errorf("%s: nothing clipped, but a mask", profile)
+			case want != 0 && (qc == nil || qc[4*33+32] != want):
+				t.Errorf("%s: channel %d clipped at the last column: mask %v", profile, ch, qc)
+			}
+			f32Pool.put(qp.pix)
+			u8Pool.put(qc)
+		}
+		fm.Close()
 	}
 }
