@@ -172,3 +172,45 @@ func TestDecodeAndReduce(t *testing.T) {
 		whole.Close()
 	}
 }
+
+// TestDecodeRowsDamagedExif: every byte of an Exif block set to values
+// that break its lengths and offsets, one at a time: the row decoder reads
+// no further than the block (run under -asan to see it), takes the photo
+// or leaves it to imread, and Decode still decodes it.
+func TestDecodeRowsDamagedExif(t *testing.T) {
+	img, _, err := synth.Render(synth.Params{Width: 64, Height: 48, Emissions: mercury, NoNoise: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	m, err := gocv.ImageToMatRGB(img)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer m.Close()
+	buf, err := gocv.IMEncode(gocv.JPEGFileExt, m)
+	if err != nil {
+		t.Fatal(err)
+	}
+	raw := withOrientation(append([]byte(nil), buf.GetBytes()...), 1)
+	buf.Close()
+	p := filepath.Join(t.TempDir(), "photo.jpg")
+	const seg = 2 + 2 + 6 + 8 + 2 + 12 + 4 // marker, length, "Exif\0\0", TIFF header, count, one entry, next
+	for i := 2 + 4; i < 2+seg; i++ {
+		for _, v := range []byte{0x00, 0x01, 0x7f, 0xfe, 0xff} {
+			b := append([]byte(nil), raw...)
+			b[i] = v
+			if err := os.WriteFile(p, b, 0o644); err != nil {
+				t.Fatal(err)
+			}
+			if m, ok, err := decodeRows(p, nil); err == nil && ok {
+				if m.Cols() != 64 || m.Rows() != 48 {
+					t.Errorf("byte %d = %#x: %dx%d", i, v, m.Cols(), m.Rows())
+				}
+				m.Close()
+			}
+			if w, h, err := Decode(p); err != nil || w*h != 64*48 {
+				t.Errorf("byte %d = %#x: Decode %dx%d, %v", i, v, w, h, err)
+			}
+		}
+	}
+}

@@ -1,7 +1,8 @@
 #!/usr/bin/env bash
 # Installs what is missing and runs every check the project has: gofmt,
-# go vet, the whole test suite, the race detector on the batch code and a
-# short run of every fuzz target. CI runs exactly this (.ci/run).
+# go vet, the whole test suite, the race detector on the batch code, the
+# JPEG row decoder under AddressSanitizer and a short run of every fuzz
+# target. CI runs exactly this (.ci/run).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 # SciPy: the outside check of peaks/ (TestAgainstSciPy); Chromium: the report in a real browser (TestReportInBrowser)
@@ -17,8 +18,12 @@ go test -count=1 ./...
 # split over CPUs (imaging), groups of lines fitted side by side (peaks)
 # and the lamps tried side by side (calibrate).
 go test -count=1 -race -run 'TestBatch(OverALab|InterruptedAndResumed)' ./cmd/lineshot
-go test -count=1 -race -run 'TestExtractBandsTwoLamps|TestLitBench$|TestRowsGivenBackChangeNothing' ./imaging
+go test -count=1 -race -run 'TestExtractBandsTwoLamps|TestLitBench$|TestRowsGivenBackChangeNothing|TestDecodeAndReduce' ./imaging
 go test -count=1 -race -run 'TestWorkersDoNotChangeTheResult' ./peaks
 go test -count=1 -race -run 'TestBothOrdersClassifiedRight|TestClassif' ./calibrate
+# The row decoder's C code (imaging/jpegrows.c) under AddressSanitizer: a
+# read past an Exif block or a row buffer fails the run (about a minute to
+# build the first time).
+go test -count=1 -asan -run 'TestDecodeRows|TestDecodeAndReduce' ./imaging
 # Every fuzz target briefly; found crashers land in testdata/fuzz/.
 FUZZTIME=${FUZZTIME:-3s} scripts/fuzz.sh
