@@ -42,35 +42,51 @@ static unsigned long get32(const unsigned char *p, int big) {
                : (unsigned long)get16(p + 2, 0) << 16 | get16(p, 0);
 }
 
+// exif_upright reads a TIFF block t of n bytes (an Exif block after its
+// "Exif\0\0"): 1 when its first directory has no orientation tag or
+// orientation 1, 0 when another orientation or anything it cannot read.
+static int exif_upright(const unsigned char *t, unsigned long n) {
+    if (n < 8 || !(memcmp(t, "II*\0", 4) == 0 || memcmp(t, "MM\0*", 4) == 0)) {
+        return 0;
+    }
+    int big = t[0] == 'M';
+    unsigned long ifd = get32(t + 4, big);
+    if (ifd > n - 2) {
+        return 0;
+    }
+    unsigned count = get16(t + ifd, big);
+    if (count > (n - ifd - 2) / 12) {
+        return 0;
+    }
+    for (unsigned k = 0; k < count; k++) {
+        const unsigned char *e = t + ifd + 2 + 12 * k;
+        if (get16(e, big) == 0x0112) {
+            return get16(e + 2, big) == 3 && get32(e + 4, big) == 1 && get16(e + 8, big) == 1;
+        }
+    }
+    return 1;
+}
+
 // upright reports whether the saved APP1 markers say the photo needs no
-// turning: no Exif block, or one whose first directory has no orientation
-// tag or orientation 1. Anything it cannot read in full counts as not
-// upright, and the photo goes to imread, which applies the orientation.
+// turning: no Exif block, or one exif_upright finds upright. Anything it
+// cannot read in full counts as not upright, and the photo goes to imread,
+// which applies the orientation. Each block is read from a copy of its own
+// size: libjpeg keeps markers inside larger pools, where a read past the
+// block would go unseen by AddressSanitizer (test.sh runs it).
 static int upright(struct jpeg_decompress_struct *c) {
     for (jpeg_saved_marker_ptr m = c->marker_list; m != NULL; m = m->next) {
         if (m->marker != JPEG_APP0 + 1 || m->data_length < 6 || memcmp(m->data, "Exif\0\0", 6) != 0) {
             continue; // XMP and other APP1 blocks
         }
-        const unsigned char *t = m->data + 6;
         unsigned long n = m->data_length - 6;
-        if (n < 8 || !(memcmp(t, "II*\0", 4) == 0 || memcmp(t, "MM\0*", 4) == 0)) {
+        unsigned char *t = malloc(n > 0 ? n : 1);
+        if (t == NULL) {
             return 0;
         }
-        int big = t[0] == 'M';
-        unsigned long ifd = get32(t + 4, big);
-        if (ifd > n - 2) {
-            return 0;
-        }
-        unsigned count = get16(t + ifd, big);
-        if (count > (n - ifd - 2) / 12) {
-            return 0;
-        }
-        for (unsigned k = 0; k < count; k++) {
-            const unsigned char *e = t + ifd + 2 + 12 * k;
-            if (get16(e, big) == 0x0112) {
-                return get16(e + 2, big) == 3 && get32(e + 4, big) == 1 && get16(e + 8, big) == 1;
-            }
-        }
+        memcpy(t, m->data + 6, n);
+        int ok = exif_upright(t, n);
+        free(t);
+        return ok;
     }
     return 1;
 }
