@@ -53,11 +53,14 @@ func decodeRows(path string, plan func(m gocv.Mat) (each func(y0, y1 int), wait 
 		m.Close()
 		return gocv.Mat{}, false, errors.New("cannot hold the decoded frame")
 	}
-	var each func(y0, y1 int)
+	each, wait := func(y0, y1 int) {}, func() {}
 	if plan != nil {
-		var wait func()
-		if each, wait = plan(m); wait != nil {
-			defer wait() // deferred after the Mat's closing below: runs first
+		e, w := plan(m)
+		if e != nil {
+			each = e
+		}
+		if w != nil {
+			wait = w
 		}
 	}
 	stride := 3 * int(w)
@@ -65,13 +68,13 @@ func decodeRows(path string, plan func(m gocv.Mat) (each func(y0, y1 int), wait 
 		n := min(decodeStripe, int(h)-y0)
 		got := C.lineshot_jpeg_rows(j, (*C.uchar)(unsafe.Pointer(&px[y0*stride])), C.size_t(stride), C.int(n), &msg[0], C.size_t(len(msg)))
 		if int(got) != n {
+			wait() // (what reads the rows decoded so far stops before the Mat goes)
 			m.Close()
 			return gocv.Mat{}, false, errors.New(C.GoString(&msg[0]))
 		}
-		if each != nil {
-			each(y0, y0+n)
-		}
+		each(y0, y0+n)
 	}
+	wait()
 	return m, true, nil
 }
 
