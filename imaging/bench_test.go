@@ -5,6 +5,7 @@ import (
 	"os"
 	"path/filepath"
 	"testing"
+	"time"
 
 	"lineshot/imaging/synth"
 )
@@ -84,5 +85,49 @@ func BenchmarkExtract(b *testing.B) {
 			b.ReportMetric(float64(t.Locate)/n, "locate-ms")
 			b.ReportMetric(float64(t.Straighten)/n, "straighten-ms")
 		})
+	}
+}
+
+// BenchmarkReduceBesideDecode is what reducing the frame for the band
+// search costs after the decode: the decode alone, the decode with the
+// reduction beside it (two goroutines), between its stripes (one) and
+// after it, interleaved in each iteration so that a noisy machine's
+// stretches weigh on all alike; reported as the fastest of each (ms).
+func BenchmarkReduceBesideDecode(b *testing.B) {
+	p := benchPhoto(b, 4032, 3024)
+	best := map[string]time.Duration{}
+	keep := func(name string, d time.Duration) {
+		if old, ok := best[name]; !ok || d < old {
+			best[name] = d
+		}
+	}
+	for b.Loop() {
+		t0 := time.Now()
+		m, _ := decodeFrame(p, "jpeg")
+		keep("decode-ms", time.Since(t0))
+		m.Close()
+		for _, v := range []struct {
+			name    string
+			workers int
+		}{{"beside-ms", 2}, {"between-ms", 1}} {
+			t0 = time.Now()
+			m, small, _, _, err := decodeAndReduce(p, "jpeg", v.workers)
+			keep(v.name, time.Since(t0))
+			if err != nil || small == nil {
+				b.Fatal("no reduction beside the decode", err)
+			}
+			small.Close()
+			m.Close()
+		}
+		t0 = time.Now()
+		m, _ = decodeFrame(p, "jpeg")
+		k, sw, sh := searchReduction(m.Cols(), m.Rows())
+		s := reduceArea(m, k, sw, sh)
+		keep("after-ms", time.Since(t0))
+		s.Close()
+		m.Close()
+	}
+	for name, d := range best {
+		b.ReportMetric(float64(d.Microseconds())/1000, name)
 	}
 }
