@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 	"runtime"
+	"slices"
 	"sort"
 
 	"golang.org/x/sync/errgroup"
@@ -169,7 +170,7 @@ func identify(peaks []Peak, lamp Lamp, opt IdentifyOptions) (Identification, err
 		}
 		s := h.score(m, tol, opt.Pins)
 		if s.score > best.score {
-			best = s
+			best = s.keep()
 		}
 	}
 	comb(len(cand), need, func(pi []int) {
@@ -203,7 +204,7 @@ func identify(peaks []Peak, lamp Lamp, opt IdentifyOptions) (Identification, err
 		if len(s.matches) < need || (iter == 0 && len(s.matches) < len(best.matches)) {
 			break
 		}
-		best = s
+		best = s.keep()
 		final = m
 		final.fit(peaks, best.matches)
 	}
@@ -396,6 +397,10 @@ type hypo struct {
 	refs   []Line
 	hmax   float64
 	lo, hi float64
+	// score's scratch, reused from call to call (a hypo is scored by one
+	// goroutine): which peaks are matched, and the matches.
+	used    []bool
+	matches []Match
 }
 
 type scored struct {
@@ -404,11 +409,25 @@ type scored struct {
 	inRange float64 // total strength of lines expected within the frame
 }
 
+// keep returns s with its own copy of the matches (score's are scratch).
+func (s scored) keep() scored {
+	s.matches = slices.Clone(s.matches)
+	return s
+}
+
 // score matches every reference line to its nearest peak under m within
 // tol px and sums (0.5 + strength)·(0.5 + height/hmax) over the matches.
+// The matches it returns are h's scratch, valid until the next call: a
+// caller keeping them clones them (keep).
 func (h *hypo) score(m mapping, tol float64, pins []Pin) scored {
 	var s scored
-	usedPeak := map[int]bool{}
+	if len(h.used) != len(h.peaks) {
+		h.used = make([]bool, len(h.peaks))
+	}
+	usedPeak := h.used
+	clear(usedPeak)
+	s.matches = h.matches[:0]
+	defer func() { h.matches = s.matches }()
 	for _, pin := range pins {
 		i := h.nearestPeakPX(pin.PX)
 		if i < 0 || math.Abs(m.at(h.peaks[i].PX)-pin.NM) > tol*math.Abs(m.slope(h.peaks[i].PX)) {
