@@ -1073,14 +1073,25 @@ func sumPlane(m gocv.Mat, lut []float32, workers int) (plane, float32, error) {
 	var top float32
 	inParts(len(p.pix), workers, 1<<16, func(lo, hi int) {
 		var t float32
-		for i := lo; i < hi; i++ {
-			if fr.bytes8 != nil {
-				p.pix[i] = lut[fr.bytes8[3*i]] + lut[fr.bytes8[3*i+1]] + lut[fr.bytes8[3*i+2]]
-			} else {
-				p.pix[i] = lut[fr.words16[3*i]] + lut[fr.words16[3*i+1]] + lut[fr.words16[3*i+2]]
+		if fr.bytes8 != nil {
+			// 8 bits: the table as a fixed-size array and the samples
+			// sliced a pixel at a time, without bounds checks in the loop.
+			l := (*[256]float32)(lut)
+			src, dst := fr.bytes8[3*lo:3*hi], p.pix[lo:hi]
+			for i := range dst {
+				q := src[3*i : 3*i+3 : 3*i+3]
+				v := l[q[0]] + l[q[1]] + l[q[2]]
+				dst[i] = v
+				if v > t {
+					t = v
+				}
 			}
-			if p.pix[i] > t {
-				t = p.pix[i]
+		} else {
+			for i := lo; i < hi; i++ {
+				p.pix[i] = lut[fr.words16[3*i]] + lut[fr.words16[3*i+1]] + lut[fr.words16[3*i+2]]
+				if p.pix[i] > t {
+					t = p.pix[i]
+				}
 			}
 		}
 		mu.Lock()
