@@ -232,12 +232,7 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	}
 	m, small, decoded, waited, err := decodeAndReduce(path, format, opt.workers())
 	if err != nil {
-		m.Close()
-		return nil, fmt.Errorf("%s: cannot decode the JPEG: %v", path, err)
-	}
-	if m.Empty() {
-		m.Close()
-		return nil, fmt.Errorf("%s: not an image OpenCV can decode", path)
+		return nil, err
 	}
 	// Handing a 12 MP frame's memory back takes several milliseconds;
 	// with a core to spare it is done beside the work that follows.
@@ -246,12 +241,9 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	} else {
 		defer m.Close()
 	}
-	var reload func() gocv.Mat
+	var reload func() (gocv.Mat, error)
 	if !all {
-		reload = func() gocv.Mat {
-			m, _ := decodeFrame(path, format)
-			return m
-		}
+		reload = func() (gocv.Mat, error) { return decodeFrame(path, format) }
 	}
 	ss, err := extractBandsMat(m, opt, all, reload, small)
 	if err != nil {
@@ -271,12 +263,12 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 func Decode(path string) (w, h int, err error) {
 	m, ok, err := decodeRows(path, nil)
 	if err != nil || !ok {
-		m = imread(path) // not a JPEG, or not one the row decoder takes
+		// Not a JPEG, or not one the row decoder takes.
+		if m, err = imreadOK(path); err != nil {
+			return 0, 0, err
+		}
 	}
 	defer m.Close()
-	if m.Empty() {
-		return 0, 0, fmt.Errorf("%s: not an image OpenCV can decode", path)
-	}
 	return m.Cols(), m.Rows(), nil
 }
 
@@ -284,11 +276,11 @@ func Decode(path string) (w, h int, err error) {
 // discards it: the floor benchmarks measured against before the row
 // decoder, kept for comparison.
 func DecodeOpenCV(path string) (w, h int, err error) {
-	m := imread(path)
-	defer m.Close()
-	if m.Empty() {
-		return 0, 0, fmt.Errorf("%s: not an image OpenCV can decode", path)
+	m, err := imreadOK(path)
+	if err != nil {
+		return 0, 0, err
 	}
+	defer m.Close()
 	return m.Cols(), m.Rows(), nil
 }
 
@@ -297,6 +289,17 @@ func DecodeOpenCV(path string) (w, h int, err error) {
 // 16), turned as its Exif orientation says.
 func imread(path string) gocv.Mat {
 	return gocv.IMRead(path, gocv.IMReadColor|gocv.IMReadAnyDepth)
+}
+
+// imreadOK is imread with its failure (an empty Mat, closed here) as an
+// error naming the file.
+func imreadOK(path string) (gocv.Mat, error) {
+	m := imread(path)
+	if m.Empty() {
+		m.Close()
+		return gocv.Mat{}, fmt.Errorf("%s: not an image OpenCV can decode", path)
+	}
+	return m, nil
 }
 
 // Timing is how long each stage of Extract took.
@@ -386,7 +389,7 @@ type frame struct {
 	// needs others decodes the photo again (need). reloaded marks a Mat
 	// of our own, closed with release.
 	kept     [2]int
-	reload   func() gocv.Mat
+	reload   func() (gocv.Mat, error)
 	reloaded bool
 	// dropping, when set, gives the rows back on another goroutine (2 ms
 	// for 25 MB of a 12 MP frame, beside the region's linearisation); its
@@ -433,7 +436,10 @@ func (f *frame) need(y0, y1 int) error {
 	if f.kept[1] == 0 || (y0 >= f.kept[0] && y1 <= f.kept[1]) {
 		return nil
 	}
-	m := f.reload()
+	m, err := f.reload()
+	if err != nil {
+		return err
+	}
 	nf, err := newFrame(m)
 	if err == nil && (nf.w != f.w || nf.h != f.h || nf.bytes8 == nil) {
 		err = errors.New("the photo changed while it was measured")
@@ -557,7 +563,7 @@ func extractMat(m gocv.Mat, opt Options) (Strip, error) {
 //
 // small, when not nil, is the frame already reduced for the band search
 // (decodeAndReduce); extractBandsMat closes it.
-func extractBandsMat(m gocv.Mat, opt Options, all bool, reload func() gocv.Mat, small *gocv.Mat) ([]Strip, error) {
+func extractBandsMat(m gocv.Mat, opt Options, all bool, reload func() (gocv.Mat, error), small *gocv.Mat) ([]Strip, error) {
 	if small != nil {
 		defer small.Close()
 	}

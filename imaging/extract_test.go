@@ -521,7 +521,7 @@ func TestFrameNeedDecodesAgain(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	f.reload = load
+	f.reload = func() (gocv.Mat, error) { return load(), nil }
 	defer f.release()
 	f.keepRows(400, 500)
 	row := 3 * f.w

@@ -85,19 +85,24 @@ const decodeStripe = 512
 
 // decodeFrame decodes the photo at path as every measurement does: a JPEG
 // the row decoder takes by rows, anything else with imread (colour, at its
-// own bit depth). An empty Mat means it could not be decoded; err, when
-// set, says why.
+// own bit depth). On failure there is no Mat to close and the error names
+// the file and the reason.
 func decodeFrame(path, format string) (gocv.Mat, error) {
 	if format == "jpeg" {
 		m, ok, err := decodeRows(path, nil)
 		if err != nil {
-			return gocv.NewMat(), err
+			return gocv.Mat{}, jpegError(path, err)
 		}
 		if ok {
 			return m, nil
 		}
 	}
-	return imread(path), nil
+	return imreadOK(path)
+}
+
+// jpegError is the row decoder's failure as the user reads it.
+func jpegError(path string, err error) error {
+	return fmt.Errorf("%s: cannot decode the JPEG: %v", path, err)
 }
 
 // searchReduction is the factor k and the size sw×sh the band search
@@ -116,11 +121,13 @@ func searchReduction(w, h int) (k, sw, sh int) {
 // between the stripes on the decoding core it saved nothing). small is then
 // exactly reduceArea's result, else nil (the caller reduces). decoded is
 // how long the decode took; waited, how long the reduction went on after it.
+//
+// Errors are as decodeFrame's: no Mat to close.
 func decodeAndReduce(path, format string, workers int) (m gocv.Mat, small *gocv.Mat, decoded, waited time.Duration, err error) {
 	t0 := time.Now()
-	if format != "jpeg" {
-		m = imread(path)
-		return m, nil, time.Since(t0), 0, nil
+	if format != "jpeg" || workers <= 1 {
+		m, err = decodeFrame(path, format)
+		return m, nil, time.Since(t0), 0, err
 	}
 	var (
 		out  gocv.Mat
@@ -129,7 +136,7 @@ func decodeAndReduce(path, format string, workers int) (m gocv.Mat, small *gocv.
 	var t1 time.Time // when the last row was in place
 	plan := func(m gocv.Mat) (func(y0, y1 int), func()) {
 		k, sw, sh := searchReduction(m.Cols(), m.Rows())
-		if workers <= 1 || !byStripes(k, sw, sh, m.Cols(), m.Rows()) {
+		if !byStripes(k, sw, sh, m.Cols(), m.Rows()) {
 			return nil, nil
 		}
 		out, made = gocv.NewMatWithSize(sh, sw, m.Type()), true
@@ -153,15 +160,15 @@ func decodeAndReduce(path, format string, workers int) (m gocv.Mat, small *gocv.
 		t1 = time.Now()
 	}
 	decoded, waited = t1.Sub(t0), time.Since(t1)
-	if err != nil || !ok {
+	if err != nil {
 		if made {
 			out.Close()
 		}
-		if err != nil {
-			return gocv.NewMat(), nil, decoded, 0, err
-		}
-		m = imread(path)
-		return m, nil, time.Since(t0), 0, nil
+		return gocv.Mat{}, nil, decoded, 0, jpegError(path, err)
+	}
+	if !ok { // (plan was not called: nothing made)
+		m, err = imreadOK(path)
+		return m, nil, time.Since(t0), 0, err
 	}
 	if !made {
 		return m, nil, decoded, 0, nil

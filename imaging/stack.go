@@ -161,12 +161,7 @@ func accumulate(paths []string, maxVideo int, opt Options) (average, error) {
 		}
 		m, err := decodeFrame(path, format)
 		if err != nil {
-			m.Close()
-			return a, fmt.Errorf("%s: cannot decode the JPEG: %v", path, err)
-		}
-		if m.Empty() {
-			m.Close()
-			return a, fmt.Errorf("%s: not an image OpenCV can decode", path)
+			return a, err
 		}
 		err = add(path, m)
 		m.Close()
