@@ -427,7 +427,6 @@ func (h *hypo) score(m mapping, tol float64, pins []Pin) scored {
 	usedPeak := h.used
 	clear(usedPeak)
 	s.matches = h.matches[:0]
-	defer func() { h.matches = s.matches }()
 	for _, pin := range pins {
 		i := h.nearestPeakPX(pin.PX)
 		if i < 0 || math.Abs(m.at(h.peaks[i].PX)-pin.NM) > tol*math.Abs(m.slope(h.peaks[i].PX)) {
@@ -462,6 +461,7 @@ func (h *hypo) score(m mapping, tol float64, pins []Pin) scored {
 		s.matches = append(s.matches, Match{Peak: best, Line: r})
 		s.score += (0.5 + r.Strength) * (0.5 + h.peaks[best].Height/h.hmax) * (1 - 0.5*bd/tol)
 	}
+	h.matches = s.matches // (grown, for the next call)
 	return s
 }
 
