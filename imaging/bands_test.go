@@ -116,3 +116,19 @@ func TestExtractBandsTwoLamps(t *testing.T) {
 		})
 	}
 }
+
+// A cross-band profile that is not numbers (NaN, as a buffer read before
+// it was written would give) finds no band instead of failing.
+func TestBandEdgesNotANumber(t *testing.T) {
+	prof := []float64{math.NaN(), 1, 5, 9, 9, 9, 5, 1, 0}
+	if _, _, ok := bandEdges(prof); ok {
+		t.Error("a band found in a profile starting with NaN")
+	}
+	// With 0 there: the plateau is the median of the 5-sample means above
+	// 70 % of their maximum (6.6, 7.4, 6.6), its half 3.3 is crossed at
+	// 1.575 and 6.425 (linear between samples): centre 4, half 2.425.
+	prof[0] = 0
+	if c, h, ok := bandEdges(prof); !ok || math.Abs(c-4) > 1e-9 || math.Abs(h-2.425) > 1e-9 {
+		t.Errorf("the same profile with 0: centre %g, half %g, %v; want 4, 2.425", c, h, ok)
+	}
+}

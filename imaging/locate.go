@@ -154,8 +154,8 @@ func bandEdges(prof []float64) (center, half float64, ok bool) {
 			imax = i
 		}
 	}
-	if sm[imax] <= 0 {
-		return 0, 0, false // nothing stands above the background
+	if !(sm[imax] > 0) {
+		return 0, 0, false // nothing stands above the background (or no number at all)
 	}
 	// Plateau level: the median of the samples above 70% of the maximum
 	// (the slit image is flat-topped); the edges are where the profile
