@@ -2475,7 +2475,10 @@ func (p *matPool[T]) get(n int) []T {
 		m = p.free[best]
 		p.free = slices.Delete(p.free, best, best+1)
 	} else {
-		m = gocv.NewMatWithSize(1, n+n/16, p.typ)
+		var err error
+		if m, err = newMatUnset(1, n+n/16, p.typ, true); err != nil {
+			return make([]T, n) // (not expected) Go's heap instead; put ignores it
+		}
 	}
 	b, err := m.DataPtrUint8()
 	if err != nil || len(b) < n*int(unsafe.Sizeof(T(0))) {

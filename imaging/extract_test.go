@@ -11,6 +11,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"sync"
 	"testing"
@@ -362,6 +363,68 @@ func TestPoolBuffersComeBack(t *testing.T) {
 		t.Fatal("a photo of the lamp off gave a band")
 	}
 	check("a photo with no band")
+}
+
+// The pools hand out buffers with whatever they held (and fresh ones as
+// allocated, not cleared): an extraction must read nothing it did not
+// write. With every spare buffer of both pools filled with NaN and 0xff
+// bytes, the same photos give the same strips to the last bit.
+func TestPoolBuffersNeedNoClearing(t *testing.T) {
+	plain := synth.Params{Width: 1280, Height: 720, LinesPerMM: 600, TiltDeg: 3, Seed: 31, Emissions: mercury}
+	over := plain
+	over.PeakLevel, over.Seed = 6, 32
+	for _, c := range []struct {
+		name string
+		p    synth.Params
+		opt  Options
+	}{{"a plain photo", plain, Options{}}, {"a saturated photo", over, Options{}}, {"a plain photo, summed channels", plain, Options{Profile: ProfileSum}}} {
+		name, opt := c.name, c.opt
+		path, _ := writeJPEG(t, c.p, 92)
+		want, err := Extract(path, opt)
+		if err != nil {
+			t.Fatalf("%s: %v", name, err)
+		}
+		f32Pool.mu.Lock()
+		for _, m := range f32Pool.free {
+			b, _ := m.DataPtrFloat32()
+			for i := range b {
+				b[i] = float32(math.NaN())
+			}
+		}
+		f32Pool.mu.Unlock()
+		u8Pool.mu.Lock()
+		for _, m := range u8Pool.free {
+			b, _ := m.DataPtrUint8()
+			for i := range b {
+				b[i] = 0xff
+			}
+		}
+		u8Pool.mu.Unlock()
+		if len(f32Pool.free) == 0 {
+			t.Fatalf("%s: no spare buffers to fill", name)
+		}
+		got, err := Extract(path, opt)
+		if err != nil {
+			t.Fatalf("%s, buffers filled: %v", name, err)
+		}
+		if !slices.Equal(got.Profile, want.Profile) || got.Saturated != want.Saturated || got.AngleDeg != want.AngleDeg {
+			t.Errorf("%s: the strip changed with the buffers' old contents (saturated %g against %g)", name, got.Saturated, want.Saturated)
+		}
+	}
+}
+
+// A Mat too large to allocate is an error, not a crash (OpenCV throws).
+func TestNewMatUnsetTooLarge(t *testing.T) {
+	m, err := newMatUnset(1<<30, 1<<30, gocv.MatTypeCV8UC3, true)
+	if err == nil {
+		m.Close()
+		t.Fatal("a 3 EB Mat was allocated")
+	}
+	m, err = newMatUnset(3024, 4032, gocv.MatTypeCV8UC3, true)
+	if err != nil || m.Rows() != 3024 || m.Cols() != 4032 || m.Type() != gocv.MatTypeCV8UC3 {
+		t.Fatalf("a 12 MP frame: %v", err)
+	}
+	m.Close()
 }
 
 // A pool reuses the smallest spare buffer that holds a request, keeps at

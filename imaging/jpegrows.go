@@ -47,7 +47,10 @@ func decodeRows(path string, plan func(m gocv.Mat) (each func(y0, y1 int), wait 
 	if w < 1 || h < 1 {
 		return gocv.Mat{}, false, fmt.Errorf("image of %dx%d pixels", w, h)
 	}
-	m = gocv.NewMatWithSize(int(h), int(w), gocv.MatTypeCV8UC3)
+	m, err = newMatUnset(int(h), int(w), gocv.MatTypeCV8UC3, true)
+	if err != nil {
+		return gocv.Mat{}, false, err
+	}
 	px, err := m.DataPtrUint8()
 	if err != nil || len(px) != 3*int(w)*int(h) {
 		m.Close()

@@ -40,6 +40,32 @@ int lineshot_malloc_arenas(void) {
 
 // Gives the whole pages inside [p, p+n) back to the system (their contents
 // read as zero afterwards): the rows of a decoded frame no step will read.
+// Allocates m's data for rows x cols of type without setting it (gocv's
+// NewMatWithSize writes zeros over it first); 0 on success, -1 if OpenCV
+// could not allocate. With huge set, the whole 2 MiB pages inside the
+// data are asked for as transparent huge pages (when the kernel's setting
+// is "madvise"; otherwise nothing changes): a 12 MP frame is then 18 page
+// faults instead of about 9000, and the faults had been about a third of
+// the frame's decode (39 -> 27 ms). Giving rows back later (drop_pages)
+// still works: a huge page only partly given back is split by the kernel.
+int lineshot_mat_create(void *m, int rows, int cols, int type, int huge) {
+    try {
+        cv::Mat *mat = static_cast<cv::Mat *>(m);
+        mat->create(rows, cols, type);
+        if (huge) {
+            size_t n = mat->total() * mat->elemSize();
+            uintptr_t a = ((uintptr_t)mat->data + (2u << 20) - 1) & ~(uintptr_t)((2u << 20) - 1);
+            uintptr_t e = ((uintptr_t)mat->data + n) & ~(uintptr_t)((2u << 20) - 1);
+            if (e > a) {
+                madvise((void *)a, e - a, MADV_HUGEPAGE);
+            }
+        }
+        return 0;
+    } catch (...) {
+        return -1;
+    }
+}
+
 void lineshot_drop_pages(void *p, size_t n) {
     uintptr_t a = ((uintptr_t)p + 4095) & ~(uintptr_t)4095;
     uintptr_t e = ((uintptr_t)p + n) & ~(uintptr_t)4095;

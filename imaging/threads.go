@@ -7,7 +7,12 @@ package imaging
 */
 import "C"
 
-import "unsafe"
+import (
+	"fmt"
+	"unsafe"
+
+	"gocv.io/x/gocv"
+)
 
 // SetOpenCVThreads sets how many threads OpenCV's own functions (warps,
 // resizing) may use, for the whole process; n < 1 restores OpenCV's
@@ -34,4 +39,21 @@ func dropPages(b []uint8) {
 	if len(b) > 0 {
 		C.lineshot_drop_pages(unsafe.Pointer(&b[0]), C.size_t(len(b)))
 	}
+}
+
+// newMatUnset is gocv.NewMatWithSize without the zeros it writes first
+// (a pass over 36 MB for a 12 MP frame, before any row is decoded), its
+// contents arbitrary: for buffers whose every element is written before
+// it is read. huge asks for transparent huge pages (see threads.cpp).
+func newMatUnset(rows, cols int, t gocv.MatType, huge bool) (gocv.Mat, error) {
+	m := gocv.NewMat()
+	h := 0
+	if huge {
+		h = 1
+	}
+	if C.lineshot_mat_create(unsafe.Pointer(m.Ptr()), C.int(rows), C.int(cols), C.int(t), C.int(h)) != 0 {
+		m.Close()
+		return gocv.Mat{}, fmt.Errorf("cannot allocate %d×%d pixels", cols, rows)
+	}
+	return m, nil
 }

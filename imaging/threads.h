@@ -7,6 +7,7 @@ extern "C" {
 void lineshot_set_opencv_threads(int n);
 int lineshot_malloc_arenas(void);
 void lineshot_drop_pages(void *p, size_t n);
+int lineshot_mat_create(void *m, int rows, int cols, int type, int huge);
 
 #ifdef __cplusplus
 }
