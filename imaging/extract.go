@@ -754,7 +754,11 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool, reload func() (gocv.Mat,
 // 9 MB beside the frame, at a measurement's memory peak).
 func reduceArea(m gocv.Mat, k, sw, sh int) gocv.Mat {
 	if byStripes(k, sw, sh, m.Cols(), m.Rows()) {
-		out := gocv.NewMatWithSize(sh, sw, m.Type())
+		// (The stripes fill every row: no need to clear it first.)
+		out, err := newMatUnset(sh, sw, m.Type(), false)
+		if err != nil {
+			return gocv.NewMat() // empty: the caller's check fails the photo
+		}
 		for y0 := 0; y0 < m.Rows(); y0 += decodeStripe {
 			reduceStripe(m, out, k, y0, min(m.Rows(), y0+decodeStripe))
 		}

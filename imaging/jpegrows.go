@@ -142,7 +142,11 @@ func decodeAndReduce(path, format string, workers int) (m gocv.Mat, small *gocv.
 		if !byStripes(k, sw, sh, m.Cols(), m.Rows()) {
 			return nil, nil
 		}
-		out, made = gocv.NewMatWithSize(sh, sw, m.Type()), true
+		o, err := newMatUnset(sh, sw, m.Type(), false) // (the stripes fill every row)
+		if err != nil {
+			return nil, nil // the caller reduces after the decode
+		}
+		out, made = o, true
 		todo := make(chan [2]int, (m.Rows()+decodeStripe-1)/decodeStripe)
 		done := make(chan struct{})
 		go func() {
