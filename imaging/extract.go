@@ -1294,11 +1294,7 @@ func linearRegion(fr frame, roi image.Rectangle, tables codeTables, clipAt int, 
 					seen |= sumRow8(dst, src, (*[256]float32)(lut), &atClip)
 					continue
 				}
-				for x := range dst {
-					b, g, r := src[3*x], src[3*x+1], src[3*x+2]
-					dst[x] = lumaTab[299*int(r)+587*int(g)+114*int(b)]
-					seen |= clipBits(int(r), int(g), int(b), clipAt)
-				}
+				seen |= lumaRow8(dst, src, (*[lumaCodes]float32)(lumaTab), &atClip)
 			}
 		} else {
 			for y := y0; y < y1; y++ {
@@ -1355,6 +1351,28 @@ func sumRow8(dst []float32, src []uint8, lut *[256]float32, at *[256]uint8) uint
 	if x < len(dst) {
 		p := src[3*x : 3*x+3 : 3*x+3]
 		dst[x] = lut[p[2]] + lut[p[1]] + lut[p[0]]
+		seen |= at[p[0]] | at[p[1]] | at[p[2]]
+	}
+	return seen
+}
+
+// lumaRow8 writes to dst each pixel's linear luma, tab[299·R + 587·G +
+// 114·B] (lumaLUT.exact) from src (B, G, R bytes), and returns a non-zero
+// byte when any code is marked in at, as sumRow8 does: two pixels a step,
+// the clip test a table look-up instead of three comparisons.
+func lumaRow8(dst []float32, src []uint8, tab *[lumaCodes]float32, at *[256]uint8) uint8 {
+	src = src[:3*len(dst)]
+	var seen uint8
+	x := 0
+	for ; x+1 < len(dst); x += 2 {
+		p := src[3*x : 3*x+6 : 3*x+6]
+		dst[x] = tab[299*int(p[2])+587*int(p[1])+114*int(p[0])]
+		dst[x+1] = tab[299*int(p[5])+587*int(p[4])+114*int(p[3])]
+		seen |= at[p[0]] | at[p[1]] | at[p[2]] | at[p[3]] | at[p[4]] | at[p[5]]
+	}
+	if x < len(dst) {
+		p := src[3*x : 3*x+3 : 3*x+3]
+		dst[x] = tab[299*int(p[2])+587*int(p[1])+114*int(p[0])]
 		seen |= at[p[0]] | at[p[1]] | at[p[2]]
 	}
 	return seen
@@ -1487,6 +1505,14 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	var nBandAll, nClipAll atomic.Int64
 	inParts(L, workers, 256, func(c0, c1 int) {
 		var nBand, nClip int
+		runs := make([]int, c1-c0+1) // band rows counted a run at a time (the usual band row below)
+		defer func() {
+			n := 0
+			for i := c0; i < c1; i++ {
+				n += runs[i-c0]
+				nIn[i] += n
+			}
+		}()
 		for j := 0; j < H; j++ {
 			inBand := j >= sd && j <= H-1-sd
 			if !inBand && (min(j, H-1-j)%every != 0) {
@@ -1532,25 +1558,46 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 					continue
 				}
 				nBand += ihi - ilo + 1
+				// Every column of [ilo, ihi] counts this row: noted at the
+				// run's ends, added up after the rows.
+				runs[ilo-c0]++
+				runs[ihi+1-c0]--
 				if curv == nil {
-					a, n := acc[0][ilo:ihi+1], nIn[ilo:ihi+1]
+					a := acc[0][ilo : ihi+1]
 					for k, v := range px[base0+ilo : base0+ihi+1] {
 						a[k] += float64(v)
-						n[k]++
 					}
 					continue
 				}
+				// Following the line shape: the column offset at row
+				// offset t is lean[i]·t + bow[i]·t·t (lineShape.shift,
+				// each term only when there is one).
 				a, row := acc[0], px[base0:base0+L]
 				t := float64(j) - jc
-				for i := ilo; i <= ihi; i++ {
-					nIn[i]++
-					xi := float64(i) + curv.shift(i, t)
+				sum := func(i int, xi float64) {
 					i0 := int(math.Floor(xi))
 					if i0 >= 0 && i0+1 < L {
 						f := float32(xi - float64(i0))
 						a[i] += float64(row[i0]*(1-f) + row[i0+1]*f)
 					} else {
 						a[i] += float64(row[i])
+					}
+				}
+				switch lean, bw := curv.lean, curv.bow; {
+				case lean != nil && bw != nil:
+					lean, bw := lean[:ihi+1], bw[:ihi+1]
+					for i := ilo; i <= ihi; i++ {
+						sum(i, float64(i)+(lean[i]*t+bw[i]*t*t))
+					}
+				case lean != nil:
+					lean := lean[:ihi+1]
+					for i := ilo; i <= ihi; i++ {
+						sum(i, float64(i)+lean[i]*t)
+					}
+				default:
+					bw := bw[:ihi+1]
+					for i := ilo; i <= ihi; i++ {
+						sum(i, float64(i)+bw[i]*t*t)
 					}
 				}
 				continue
@@ -1837,17 +1884,21 @@ var srgbTable = sync.OnceValue(func() *[4096]uint8 {
 // interpolating a table: for a line of one colour, R′, G′ and B′ follow
 // the same transfer curve, so the linearised luma is proportional to its
 // intensity.
+// lumaCodes is the length of lumaLUT.exact: 299R′+587G′+114B′ for 8-bit
+// codes reaches 1000·255.
+const lumaCodes = 1000*255 + 1
+
 type lumaLUT struct {
 	step  float64
 	tab   []float32
-	exact []float32 // 8-bit: indexed by 299R′+587G′+114B′ (1000 × luma)
+	exact []float32 // 8-bit: indexed by 299R′+587G′+114B′ (1000 × luma), lumaCodes long
 }
 
 func newLumaLUT(levels int, linear bool) lumaLUT {
 	n := 4097
 	t := lumaLUT{step: float64(levels-1) / float64(n-1), tab: make([]float32, n)}
 	if levels == 256 {
-		t.exact = make([]float32, 1000*255+1)
+		t.exact = make([]float32, lumaCodes)
 		for i := range t.exact {
 			v := float64(i) / (1000 * 255)
 			if !linear {

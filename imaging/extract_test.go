@@ -636,8 +636,8 @@ func TestLinearRegionClipMask(t *testing.T) {
 	for _, c := range []struct {
 		profile string
 		roi     image.Rectangle
-	}{{ProfileLuma, image.Rect(17, 23, 281, 190)}, {ProfileSum, image.Rect(17, 23, 281, 190)}, {ProfileSum, image.Rect(17, 23, 282, 190)}} {
-		profile, roi := c.profile, c.roi // an even and an odd width (the sum's rows go two pixels a step)
+	}{{ProfileLuma, image.Rect(17, 23, 281, 190)}, {ProfileLuma, image.Rect(17, 23, 282, 190)}, {ProfileSum, image.Rect(17, 23, 281, 190)}, {ProfileSum, image.Rect(17, 23, 282, 190)}} {
+		profile, roi := c.profile, c.roi // an even and an odd width (the quick rows go two pixels a step)
 		qp, _, qc := linearRegion(fr, roi, tables, clipCode8, profile, false, 2)
 		gp, grgb, gc := linearRegion(fr, roi, tables, clipCode8, profile, true, 2)
 		if qc == nil || gc == nil || len(qc) != len(gc) {
