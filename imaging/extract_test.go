@@ -690,3 +690,44 @@ func TestLinearRegionClipMask(t *testing.T) {
 		fm.Close()
 	}
 }
+
+// encodeStrip's bytes are, per sample, the sRGB code of its linear value
+// scaled so that the 99.99th percentile of all samples is white, written
+// out directly here (per sample, not through a per-code table): B, G, R in
+// the codes become R, G, B, 255 in the image; for 8- and 16-bit codes.
+func TestEncodeStripBytes(t *testing.T) {
+	rng := rand.New(rand.NewPCG(9, 9))
+	check := func(name string, codes []int, lut []float32, got *image.RGBA, L, H int) {
+		t.Helper()
+		sorted := slices.Clone(codes)
+		slices.Sort(sorted)
+		top := math.Max(float64(lut[sorted[int(0.9999*float64(len(codes)-1))]]), 1e-6)
+		tab := srgbTable()
+		for i := 0; i < L*H; i++ {
+			for k, src := range []int{2, 1, 0} {
+				v := int(float64(lut[codes[3*i+src]]) * float64(len(tab)-1) / top)
+				want := tab[max(0, min(len(tab)-1, v))]
+				if g := got.Pix[4*i+k]; g != want {
+					t.Fatalf("%s: pixel %d channel %d: %d, want %d", name, i, k, g, want)
+				}
+			}
+			if got.Pix[4*i+3] != 255 {
+				t.Fatalf("%s: pixel %d not opaque", name, i)
+			}
+		}
+	}
+	L, H := 97, 13
+	c8, c16 := make([]uint8, 3*L*H), make([]uint16, 3*L*H)
+	i8, i16 := make([]int, len(c8)), make([]int, len(c16))
+	for i := range c8 {
+		c8[i] = uint8(rng.IntN(120)) // mostly dim, a few bright
+		if rng.IntN(200) == 0 {
+			c8[i] = uint8(200 + rng.IntN(56))
+		}
+		c16[i] = uint16(c8[i])*257 + uint16(rng.IntN(257))
+		i8[i], i16[i] = int(c8[i]), int(c16[i])
+	}
+	lut8, lut16 := linearLUT(256, false), linearLUT(65536, false)
+	check("8-bit", i8, lut8, encodeStrip(c8, lut8, L, H), L, H)
+	check("16-bit", i16, lut16, encodeStrip(c16, lut16, L, H), L, H)
+}
