@@ -133,7 +133,7 @@ func BenchmarkReduceBesideDecode(b *testing.B) {
 		t0 = time.Now()
 		m, _ = decodeFrame(p, "jpeg")
 		k, sw, sh := searchReduction(m.Cols(), m.Rows())
-		s := reduceArea(m, k, sw, sh)
+		s, _ := reduceArea(m, k, sw, sh)
 		keep("after-ms", time.Since(t0))
 		s.Close()
 		m.Close()

@@ -591,7 +591,10 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool, reload func() (gocv.Mat,
 	// 1. Find the band roughly on a reduced frame.
 	k, sw, sh := searchReduction(fr.w, fr.h)
 	if small == nil {
-		s := reduceArea(m, k, sw, sh)
+		s, err := reduceArea(m, k, sw, sh)
+		if err != nil {
+			return nil, err
+		}
 		defer s.Close()
 		small = &s
 	}
@@ -752,21 +755,21 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool, reload func() (gocv.Mat,
 // own block alone, so the result is the whole frame's, while the first
 // halving's output stays a stripe's size (for a whole 12 MP frame it held
 // 9 MB beside the frame, at a measurement's memory peak).
-func reduceArea(m gocv.Mat, k, sw, sh int) gocv.Mat {
+func reduceArea(m gocv.Mat, k, sw, sh int) (gocv.Mat, error) {
 	if byStripes(k, sw, sh, m.Cols(), m.Rows()) {
 		// (The stripes fill every row: no need to clear it first.)
 		out, err := newMatUnset(sh, sw, m.Type(), false)
 		if err != nil {
-			return gocv.NewMat() // empty: the caller's check fails the photo
+			return gocv.Mat{}, fmt.Errorf("reducing the frame for the band search: %w", err)
 		}
 		for y0 := 0; y0 < m.Rows(); y0 += decodeStripe {
 			reduceStripe(m, out, k, y0, min(m.Rows(), y0+decodeStripe))
 		}
-		return out
+		return out, nil
 	}
 	small := gocv.NewMat()
 	gocv.Resize(m, &small, image.Pt(sw, sh), 0, 0, gocv.InterpolationArea)
-	return small
+	return small, nil
 }
 
 // byStripes reports whether reduceArea reduces a w×h frame to sw×sh by

@@ -264,7 +264,10 @@ func TestReduceAreaHalvings(t *testing.T) {
 			t.Fatal(err)
 		}
 		sw, sh := c.w/c.k, c.h/c.k
-		got := reduceArea(m, c.k, sw, sh)
+		got, err := reduceArea(m, c.k, sw, sh)
+		if err != nil {
+			t.Fatal(err)
+		}
 		want := gocv.NewMat()
 		gocv.Resize(m, &want, image.Pt(sw, sh), 0, 0, gocv.InterpolationArea)
 		if got.Cols() != sw || got.Rows() != sh {

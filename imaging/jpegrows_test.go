@@ -129,7 +129,10 @@ func TestDecodeAndReduce(t *testing.T) {
 		src, _ := writeJPEG(t, synth.Params{Width: size[0], Height: size[1], TiltDeg: 1, Seed: 6, Emissions: mercury}, 85)
 		whole := imread(src)
 		k, sw, sh := searchReduction(size[0], size[1])
-		want := reduceArea(whole, k, sw, sh)
+		want, err := reduceArea(whole, k, sw, sh)
+		if err != nil {
+			t.Fatal(err)
+		}
 		wb, _ := want.DataPtrUint8()
 		if byStripes(k, sw, sh, size[0], size[1]) {
 			fb, _ := whole.DataPtrUint8()
