@@ -1,18 +1,23 @@
 #!/usr/bin/env bash
-# Runs every fuzz target for a short while (FUZZTIME, default 3s each).
+# Runs every fuzz target briefly: a number of executions each, sized to
+# about 3 s on these machines (their rates differ 300-fold: a JPEG through
+# the whole extraction against an angle parser). FUZZTIME, when set (a
+# duration like 30s or a count like 5000x), replaces every target's budget.
 # Crashers that go test finds are written under the package's
 # testdata/fuzz/ and then replay in every ordinary 'go test' run.
+#
+# Why counts and not seconds: with a duration, Go's fuzzing coordinator
+# (Go 1.26) can report "context deadline exceeded" as a failure when the
+# time runs out while a worker is mid-input, with no failing input written
+# (golang/go#75804, fixed in Go 1.27). A count has no deadline to race. It
+# happened here to FuzzExtractBytes on two clean-clone CI runs of two on
+# 2026-12-02. A run that stops without a failing input is still shown and
+# tried again, up to three times, in case the engine stops for another
+# reason; one that writes a failing input fails at once.
 set -euo pipefail
 cd "$(dirname "$0")/.."
-t=${FUZZTIME:-3s}
-# A failing input is written under testdata/fuzz/ and fails the run. Once in
-# a long while the fuzzing engine itself stops a run without one (a worker
-# that did not answer in time on a loaded machine, or its first pass over the
-# corpus outlasting the fuzz time): that run is shown and tried again, up to
-# three times, so that it does not fail the whole test command. (Seen for
-# FuzzExtractBytes, whose workers each load OpenCV: in one test run of four
-# on 2026-12-02, passing on its second try.)
 run() {
+  local t=${FUZZTIME:-$3}
   echo "fuzz: $1 $2 ($t)"
   local out
   out=$(mktemp)
@@ -30,10 +35,10 @@ run() {
     tail -n 5 "$out"
   done
 }
-run ./calibrate/vernier FuzzParseAngle
-run ./calibrate/vernier FuzzReadCSV
-run ./cmd/lineshot FuzzParseProfileCSV
-run ./cmd/lineshot FuzzParseSettings
-run ./cmd/lineshot FuzzLineList
-run ./cmd/lineshot FuzzCalibrationJSON
-run ./imaging FuzzExtractBytes
+run ./calibrate/vernier FuzzParseAngle 100000x
+run ./calibrate/vernier FuzzReadCSV 100000x
+run ./cmd/lineshot FuzzParseProfileCSV 15000x
+run ./cmd/lineshot FuzzParseSettings 15000x
+run ./cmd/lineshot FuzzLineList 10000x
+run ./cmd/lineshot FuzzCalibrationJSON 1000x
+run ./imaging FuzzExtractBytes 300x
