@@ -38,8 +38,16 @@ int lineshot_malloc_arenas(void) {
     return n;
 }
 
-// Gives the whole pages inside [p, p+n) back to the system (their contents
-// read as zero afterwards): the rows of a decoded frame no step will read.
+// advise_inside gives advice to the whole pages of size page (a power of
+// two) that lie inside [p, p+n); none when no whole page does.
+static void advise_inside(void *p, size_t n, uintptr_t page, int advice) {
+    uintptr_t a = ((uintptr_t)p + page - 1) & ~(page - 1);
+    uintptr_t e = ((uintptr_t)p + n) & ~(page - 1);
+    if (e > a) {
+        madvise((void *)a, e - a, advice);
+    }
+}
+
 // Allocates m's data for rows x cols of type without setting it (gocv's
 // NewMatWithSize writes zeros over it first); 0 on success, -1 if OpenCV
 // could not allocate. With huge set, the whole 2 MiB pages inside the
@@ -53,12 +61,7 @@ int lineshot_mat_create(void *m, int rows, int cols, int type, int huge) {
         cv::Mat *mat = static_cast<cv::Mat *>(m);
         mat->create(rows, cols, type);
         if (huge) {
-            size_t n = mat->total() * mat->elemSize();
-            uintptr_t a = ((uintptr_t)mat->data + (2u << 20) - 1) & ~(uintptr_t)((2u << 20) - 1);
-            uintptr_t e = ((uintptr_t)mat->data + n) & ~(uintptr_t)((2u << 20) - 1);
-            if (e > a) {
-                madvise((void *)a, e - a, MADV_HUGEPAGE);
-            }
+            advise_inside(mat->data, mat->total() * mat->elemSize(), (uintptr_t)2 << 20, MADV_HUGEPAGE);
         }
         return 0;
     } catch (...) {
@@ -66,10 +69,8 @@ int lineshot_mat_create(void *m, int rows, int cols, int type, int huge) {
     }
 }
 
+// Gives the whole pages inside [p, p+n) back to the system (their contents
+// read as zero afterwards): the rows of a decoded frame no step will read.
 void lineshot_drop_pages(void *p, size_t n) {
-    uintptr_t a = ((uintptr_t)p + 4095) & ~(uintptr_t)4095;
-    uintptr_t e = ((uintptr_t)p + n) & ~(uintptr_t)4095;
-    if (e > a) {
-        madvise((void *)a, e - a, MADV_DONTNEED);
-    }
+    advise_inside(p, n, 4096, MADV_DONTNEED);
 }
