@@ -131,7 +131,10 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	imaging.SetOpenCVThreads(workers)
 	defer imaging.SetOpenCVThreads(0)
 	cfg := measureConfig{minSNR: *minSNR, tolNM: 1, imageOpts: imaging.Options{KeepImage: true, ImageMaxWidth: stripImageWidth, Workers: workers}}
-	benches, failures := discover(root, *out)
+	benches, failures, passed := discover(root, *out)
+	for _, p := range passed {
+		fmt.Fprintf(stderr, "lineshot: %s: passed over, the output folder of an earlier batch\n", displayName(p))
+	}
 	if sn > 1 {
 		var mine []bench
 		for _, b := range benches {
@@ -321,9 +324,7 @@ type photoJob struct {
 // discover finds the benches under root: every folder with image files.
 // It does not follow links to folders (so link loops cannot trap it),
 // skips the output folder, and reports what it cannot read.
-func discover(root, out string) ([]bench, []failure) {
-	var benches []bench
-	var fails []failure
+func discover(root, out string) (benches []bench, fails []failure, passed []string) {
 	absOut, _ := filepath.Abs(out)
 	byDir := map[string]*bench{}
 	var order []string
@@ -337,6 +338,10 @@ func discover(root, out string) ([]bench, []failure) {
 		}
 		if d.IsDir() {
 			if a, _ := filepath.Abs(p); a == absOut {
+				return fs.SkipDir
+			}
+			if p != root && isOutputFolder(p) {
+				passed = append(passed, p)
 				return fs.SkipDir
 			}
 			return nil
@@ -381,7 +386,34 @@ func discover(root, out string) ([]bench, []failure) {
 		sort.Strings(b.Photos)
 		benches = append(benches, *b)
 	}
-	return benches, fails
+	return benches, fails, passed
+}
+
+// isOutputFolder reports whether dir is where an earlier batch wrote its
+// outputs (its band images are not photos of a bench; a class's folder
+// often holds last week's results): it holds a results.json that names
+// this program first, or, from a run stopped before writing one, both
+// folders a batch makes before it measures.
+func isOutputFolder(dir string) bool {
+	if f, err := os.Open(filepath.Join(dir, "results.json")); err == nil {
+		defer f.Close()
+		dec := json.NewDecoder(io.LimitReader(f, 4096))
+		var tok [3]json.Token
+		for i := range tok {
+			if tok[i], err = dec.Token(); err != nil {
+				break
+			}
+		}
+		if tok[0] == json.Delim('{') && tok[1] == "tool" && tok[2] == "lineshot" {
+			return true
+		}
+	}
+	for _, sub := range []string{"cache", "calibrations"} {
+		if st, err := os.Stat(filepath.Join(dir, sub)); err != nil || !st.IsDir() {
+			return false
+		}
+	}
+	return true
 }
 
 // errText is an error's text without the path the caller prints anyway.

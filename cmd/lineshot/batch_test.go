@@ -387,3 +387,43 @@ func TestStripRecordRoundTrip(t *testing.T) {
 		t.Errorf("quality lost in the cache: %+v", back)
 	}
 }
+
+// Last week's output folder inside the class's folder is passed over (its
+// band images are not photos), whether it finished (results.json) or was
+// stopped before writing one; a folder holding someone else's
+// results.json is still searched.
+func TestDiscoverPassesOverOutputFolders(t *testing.T) {
+	root := filepath.Join(t.TempDir(), "class")
+	write := func(rel, text string) {
+		p := filepath.Join(root, rel)
+		if err := os.MkdirAll(filepath.Dir(p), 0o755); err != nil {
+			t.Fatal(err)
+		}
+		if err := os.WriteFile(p, []byte(text), 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	write("bench-1/hg.jpg", "x")
+	write("results-monday/results.json", "{\n  \"tool\": \"lineshot\",\n  \"schema\": 1\n}\n")
+	write("results-monday/images/0a1b.jpg", "x")
+	write("stopped/cache/0a1b.json", "{}")
+	write("stopped/calibrations/.keep", "")
+	write("stopped/images/0a1b.jpg", "x")
+	write("bench-2/results.json", `{"tool": "another program"}`)
+	write("bench-2/h.jpg", "x")
+	write("bench-3/cache/h.jpg", "x") // a folder named cache alone is a bench
+	benches, fails, passed := discover(root, filepath.Join(root, "results-tuesday"))
+	var names []string
+	for _, b := range benches {
+		names = append(names, b.Name)
+	}
+	if got, want := strings.Join(names, " "), "bench-1 bench-2 bench-3/cache"; got != want {
+		t.Errorf("benches %q, want %q", got, want)
+	}
+	if len(fails) != 0 {
+		t.Errorf("failures: %+v", fails)
+	}
+	if len(passed) != 2 || filepath.Base(passed[0]) != "results-monday" || filepath.Base(passed[1]) != "stopped" {
+		t.Errorf("passed over %q", passed)
+	}
+}
