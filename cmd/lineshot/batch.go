@@ -117,6 +117,9 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	} else if !st.IsDir() {
 		return fmt.Errorf("%s: not a folder", root)
 	}
+	if sameFolder(root, *out) {
+		return usagef("batch: --out %s is the photos' folder itself: give the outputs a folder of their own (one inside it will do)", *out)
+	}
 	if err := os.MkdirAll(filepath.Join(*out, "cache"), 0o755); err != nil {
 		return fmt.Errorf("%s: cannot write the output folder: %w", *out, err)
 	}
@@ -387,6 +390,19 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 		benches = append(benches, *b)
 	}
 	return benches, fails, passed
+}
+
+// sameFolder reports whether a and b name one folder (by path, or, both
+// existing, as the same folder reached two ways).
+func sameFolder(a, b string) bool {
+	if x, err1 := filepath.Abs(a); err1 == nil {
+		if y, err2 := filepath.Abs(b); err2 == nil && x == y {
+			return true
+		}
+	}
+	sa, err1 := os.Stat(a)
+	sb, err2 := os.Stat(b)
+	return err1 == nil && err2 == nil && os.SameFile(sa, sb)
 }
 
 // isOutputFolder reports whether dir is where an earlier batch wrote its

@@ -277,6 +277,19 @@ func TestBatchBadArguments(t *testing.T) {
 	if _, _, code := runCLI(t, "batch", "--shard", "3/2", "--out", filepath.Join(dir, "o"), dir); code != exitUsage {
 		t.Errorf("bad shard: exit %d", code)
 	}
+	// The photos' own folder as the output folder, by its path and by a
+	// link to it: refused before anything is written into it.
+	photos := filepath.Join(dir, "photos")
+	os.MkdirAll(photos, 0o755)
+	os.Symlink(photos, filepath.Join(dir, "link"))
+	for _, o := range []string{photos, filepath.Join(dir, "link"), photos + "/."} {
+		if _, stderr, code := runCLI(t, "batch", "--out", o, photos); code != exitUsage || !strings.Contains(stderr, "the photos' folder itself") {
+			t.Errorf("--out %s: exit %d %s", o, code, stderr)
+		}
+	}
+	if ents, _ := os.ReadDir(photos); len(ents) != 0 {
+		t.Errorf("the refused run wrote %d entries into the photos' folder", len(ents))
+	}
 	ro := filepath.Join(dir, "ro")
 	os.MkdirAll(ro, 0o555)
 	if os.Getuid() != 0 { // root writes anywhere
