@@ -1738,12 +1738,16 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 // values below the median read downwards and those above read upwards:
 // for the 24 samples of a strip column, half the time of two selections.
 func medMADFew(v []float64) (med, mad float64) {
-	for i := 1; i < len(v); i++ { // insertion sort: a few dozen values at most
-		x, j := v[i], i
-		for ; j > 0 && v[j-1] > x; j-- {
-			v[j] = v[j-1]
+	if len(v) == 24 {
+		sort24((*[24]float64)(v)) // a whole column's samples, the usual count
+	} else {
+		for i := 1; i < len(v); i++ { // insertion sort: a few dozen values at most
+			x, j := v[i], i
+			for ; j > 0 && v[j-1] > x; j-- {
+				v[j] = v[j-1]
+			}
+			v[j] = x
 		}
-		v[j] = x
 	}
 	n := len(v)
 	med = v[n/2]
