@@ -130,3 +130,39 @@ func TestNoiseShapeRejectsLocalNoise(t *testing.T) {
 		t.Error("a noise shape of the wrong length was accepted")
 	}
 }
+
+// selectK on long inputs (where it selects within a sample first): the
+// value a sort puts at k, everything before it ≤ and everything after ≥;
+// noisy, tied, sorted and reversed samples, k at the ends and the middle.
+func TestSelectKLong(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	for trial := 0; trial < 60; trial++ {
+		n := 601 + rng.IntN(40000)
+		v := make([]float64, n)
+		for i := range v {
+			switch trial % 4 {
+			case 0:
+				v[i] = rng.NormFloat64()
+			case 1:
+				v[i] = float64(rng.IntN(7))
+			case 2:
+				v[i] = float64(i)
+			default:
+				v[i] = float64(n - i)
+			}
+		}
+		sorted := append([]float64(nil), v...)
+		sort.Float64s(sorted)
+		for _, k := range []int{0, n / 2, n - 1, rng.IntN(n)} {
+			s := append([]float64(nil), v...)
+			if got := selectK(s, k); got != sorted[k] {
+				t.Fatalf("trial %d, n %d, k %d: %g, want %g", trial, n, k, got, sorted[k])
+			}
+			for i := range s {
+				if (i < k && s[i] > s[k]) || (i > k && s[i] < s[k]) {
+					t.Fatalf("trial %d, n %d, k %d: s[%d] = %g on the wrong side of %g", trial, n, k, i, s[i], s[k])
+				}
+			}
+		}
+	}
+}
