@@ -323,6 +323,10 @@ func checkFile(path string, opt Options) (string, image.Config, error) {
 	if st.IsDir() {
 		return "", image.Config{}, fmt.Errorf("%s: is a directory, not an image", path)
 	}
+	if !st.Mode().IsRegular() {
+		// (Opening a named pipe would wait for a writer.)
+		return "", image.Config{}, fmt.Errorf("%s: not a regular file (a named pipe, socket or device)", path)
+	}
 	if st.Size() == 0 {
 		return "", image.Config{}, fmt.Errorf("%s: empty file", path)
 	}

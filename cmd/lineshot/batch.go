@@ -411,7 +411,10 @@ func sameFolder(a, b string) bool {
 // this program first, or, from a run stopped before writing one, both
 // folders a batch makes before it measures.
 func isOutputFolder(dir string) bool {
-	if f, err := os.Open(filepath.Join(dir, "results.json")); err == nil {
+	res := filepath.Join(dir, "results.json")
+	if fi, err := os.Stat(res); err != nil || !fi.Mode().IsRegular() {
+		// (No file, or one not to open: a named pipe would wait for a writer.)
+	} else if f, err := os.Open(res); err == nil {
 		defer f.Close()
 		dec := json.NewDecoder(io.LimitReader(f, 4096))
 		var tok [3]json.Token
@@ -462,6 +465,9 @@ func (s benchSettings) isDark(name string) bool {
 // readSettings reads a bench settings file; a missing file is no error.
 func readSettings(path string) (benchSettings, error) {
 	st := benchSettings{Lamps: map[string]string{}, Exclude: map[string]bool{}}
+	if fi, err := os.Stat(path); err == nil && !fi.Mode().IsRegular() {
+		return st, errors.New("not a regular file") // (a named pipe would wait for a writer)
+	}
 	f, err := os.Open(path)
 	if errors.Is(err, fs.ErrNotExist) {
 		return st, nil

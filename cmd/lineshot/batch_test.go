@@ -12,6 +12,7 @@ import (
 	"os"
 	"path/filepath"
 	"strings"
+	"syscall"
 	"testing"
 
 	"lineshot/calibrate"
@@ -425,15 +426,23 @@ func TestDiscoverPassesOverOutputFolders(t *testing.T) {
 	write("bench-2/results.json", `{"tool": "another program"}`)
 	write("bench-2/h.jpg", "x")
 	write("bench-3/cache/h.jpg", "x") // a folder named cache alone is a bench
+	// Named pipes where files are read are not opened (that would wait).
+	write("bench-4/h.jpg", "x")
+	if err := syscall.Mkfifo(filepath.Join(root, "bench-4", "results.json"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if err := syscall.Mkfifo(filepath.Join(root, "bench-4", settingsFile), 0o644); err != nil {
+		t.Fatal(err)
+	}
 	benches, fails, passed := discover(root, filepath.Join(root, "results-tuesday"))
 	var names []string
 	for _, b := range benches {
 		names = append(names, b.Name)
 	}
-	if got, want := strings.Join(names, " "), "bench-1 bench-2 bench-3/cache"; got != want {
+	if got, want := strings.Join(names, " "), "bench-1 bench-2 bench-3/cache bench-4"; got != want {
 		t.Errorf("benches %q, want %q", got, want)
 	}
-	if len(fails) != 0 {
+	if len(fails) != 1 || !strings.Contains(fails[0].File, settingsFile) || fails[0].Reason != "not a regular file" {
 		t.Errorf("failures: %+v", fails)
 	}
 	if len(passed) != 2 || filepath.Base(passed[0]) != "results-monday" || filepath.Base(passed[1]) != "stopped" {

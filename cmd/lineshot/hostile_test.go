@@ -13,6 +13,7 @@ import (
 	"path/filepath"
 	"reflect"
 	"strings"
+	"syscall"
 	"testing"
 )
 
@@ -67,7 +68,11 @@ func hostileFiles(t *testing.T, dir string) map[string]string {
 	w("no-spectrum.png", enc(noise, "png"))
 	w("name-\xff\xfe.jpg", rnd[:100])
 	os.Mkdir(filepath.Join(dir, "folder.jpg"), 0o755)
+	if err := syscall.Mkfifo(filepath.Join(dir, "pipe.jpg"), 0o644); err != nil {
+		t.Fatal(err)
+	}
 	return map[string]string{
+		"pipe.jpg":       "not a regular file",
 		"zero-bytes.jpg": "empty file", "truncated.jpg": "", "truncated.png": "", "random.jpg": "not an image",
 		"bomb.png": "exceeds the limit", "one-pixel.png": "", "sliver.png": "", "all-black.jpg": "no spectrum band",
 		"all-white.png": "", "no-spectrum.png": "no spectrum band", `name-\xff\xfe.jpg`: "not an image",
