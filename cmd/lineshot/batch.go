@@ -164,7 +164,8 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	}
 	recs := make([]photoRecord, len(jobsList))
 	done := make([]bool, len(jobsList))
-	var finished, fromCache int
+	var finished, fromCache, notKept int
+	var firstNotKept error
 	var mu sync.Mutex
 	var g errgroup.Group
 	g.SetLimit(*jobs)
@@ -176,12 +177,18 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 			if ctx.Err() != nil {
 				return nil
 			}
-			rec, cached := run.process(j.path, benches[j.bench])
+			rec, cached, keepErr := run.process(j.path, benches[j.bench])
 			mu.Lock()
 			recs[i], done[i] = rec, true
 			finished++
 			if cached {
 				fromCache++
+			}
+			if keepErr != nil {
+				if notKept == 0 {
+					firstNotKept = keepErr
+				}
+				notKept++
 			}
 			n := finished
 			mu.Unlock()
@@ -197,6 +204,9 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	g.Wait()
 	if bar != nil {
 		bar.Finish()
+	}
+	if notKept > 0 {
+		fmt.Fprintf(stderr, "lineshot: %d photos' working files not kept (the first: %v): their results stand; the next run measures them again\n", notKept, firstNotKept)
 	}
 	interrupted := ctx.Err() != nil
 	doc := batchDoc{Tool: "lineshot", Schema: 1, Root: displayName(root), Failures: failures}
@@ -437,11 +447,7 @@ func isOutputFolder(dir string) bool {
 
 // errText is an error's text without the path the caller prints anyway.
 func errText(err error) string {
-	var pe *fs.PathError
-	if errors.As(err, &pe) {
-		return pe.Err.Error()
-	}
-	return err.Error()
+	return errNoPath(err).Error()
 }
 
 // benchSettings is what a bench's settings file can say.
@@ -620,9 +626,11 @@ func cacheName(path string) string {
 }
 
 // process measures one photo, or takes it from the cache when the file
-// is unchanged (and then reports true).
-func (b *batchRun) process(path string, bn bench) (photoRecord, bool) {
-	rec := photoRecord{File: path, Options: b.optionsKey()}
+// is unchanged (and then reports true). keepErr says that the photo's
+// working files (its cached record, its band image) could not be written,
+// a full disk say: the record returned stands all the same.
+func (b *batchRun) process(path string, bn bench) (rec photoRecord, cached bool, keepErr error) {
+	rec = photoRecord{File: path, Options: b.optionsKey()}
 	cfg := b.cfg
 	cfg.dark = bn.darkPaths()
 	for k, dp := range cfg.dark {
@@ -638,7 +646,7 @@ func (b *batchRun) process(path string, bn bench) (photoRecord, bool) {
 	st, err := os.Stat(path)
 	if err != nil {
 		rec.Error = fmt.Sprintf("%s: cannot read: %s", displayName(path), errText(err))
-		return rec, false
+		return rec, false, nil
 	}
 	rec.Size, rec.ModTime = st.Size(), st.ModTime().UnixNano()
 	key := cacheName(path)
@@ -646,7 +654,7 @@ func (b *batchRun) process(path string, bn bench) (photoRecord, bool) {
 	if old, err := os.ReadFile(cachePath); err == nil {
 		var c photoRecord
 		if json.Unmarshal(old, &c) == nil && c.File == path && c.Size == rec.Size && c.ModTime == rec.ModTime && c.Options == rec.Options && b.imageKept(c) {
-			return c, true
+			return c, true, nil
 		}
 	}
 	m, err := extractAndFind(path, cfg)
@@ -664,13 +672,17 @@ func (b *batchRun) process(path string, bn bench) (photoRecord, bool) {
 			name := filepath.Join("images", key+".jpg")
 			if err := writeStripImage(filepath.Join(b.out, name), m, true); err == nil {
 				rec.Image = name
+			} else {
+				// No record either: the photo is measured again next
+				// time, and then its band image made.
+				return rec, false, err
 			}
 		}
 	}
 	if err := writeDerivedAtomic(cachePath, func(w io.Writer) error { return encodeJSON(w, rec) }); err != nil {
-		rec.Error = err.Error()
+		return rec, false, err
 	}
-	return rec, false
+	return rec, false, nil
 }
 
 // imageKept reports whether a cached record's band image is still there

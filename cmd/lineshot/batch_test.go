@@ -206,6 +206,48 @@ func TestBatchRemeasuresDamagedCache(t *testing.T) {
 	}
 }
 
+// A photo whose working files cannot be written (a full disk; here its
+// cache record's name is taken by a folder, and its band image's by
+// another) keeps its result: measured as when alone, one line on stderr,
+// exit 0; and the next run measures it again.
+func TestBatchKeepsResultsWhenWorkingFilesFail(t *testing.T) {
+	root := filepath.Join(t.TempDir(), "lab")
+	bench := filepath.Join(root, "bench-z")
+	os.MkdirAll(bench, 0o755)
+	for _, f := range []struct {
+		lamp, name string
+		seed       uint64
+	}{{"mercury", "hg.jpg", 81}, {"hydrogen", "h.jpg", 82}} {
+		p, _ := setups[1].render(t, t.TempDir(), f.lamp, f.seed)
+		if err := os.Rename(p, filepath.Join(bench, f.name)); err != nil {
+			t.Fatal(err)
+		}
+	}
+	clean := filepath.Join(t.TempDir(), "clean")
+	if _, stderr, code := runCLI(t, "batch", "--quiet", "--out", clean, root); code != 0 {
+		t.Fatalf("clean run: exit %d %s", code, stderr)
+	}
+	out := filepath.Join(t.TempDir(), "out")
+	hgKey, hKey := cacheName(filepath.Join(bench, "hg.jpg")), cacheName(filepath.Join(bench, "h.jpg"))
+	os.MkdirAll(filepath.Join(out, "cache", hgKey+".json", "x"), 0o755)
+	os.MkdirAll(filepath.Join(out, "images", hKey+".jpg", "x"), 0o755)
+	stdout, stderr, code := runCLI(t, "batch", "--quiet", "--out", out, root)
+	if code != 0 || !strings.Contains(stderr, "2 photos' working files not kept") || strings.Count(stderr, "\n") != 1 {
+		t.Fatalf("exit %d, stderr %q", code, stderr)
+	}
+	got, want := readBatch(t, out), readBatch(t, clean)
+	if len(got.Benches) != 1 || got.Benches[0].Rydberg == nil || want.Benches[0].Rydberg == nil {
+		t.Fatalf("no bench R: %s", stdout)
+	}
+	if g, w := got.Benches[0].Rydberg.R, want.Benches[0].Rydberg.R; g != w {
+		t.Errorf("R %.1f, alone %.1f", g, w)
+	}
+	stdout, _, _ = runCLI(t, "batch", "--quiet", "--out", out, root)
+	if !strings.Contains(stdout, "(0 unchanged since the last run") {
+		t.Errorf("rerun: %s", stdout)
+	}
+}
+
 // Interrupted midway, a batch keeps what it finished and writes complete
 // outputs; the next run measures only the rest.
 func TestBatchInterruptedAndResumed(t *testing.T) {

@@ -2,8 +2,10 @@ package main
 
 import (
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"os"
 	"path/filepath"
 	"strings"
@@ -34,32 +36,45 @@ func writeAtomic(path string, durable bool, write func(w io.Writer) error) (err 
 	dir := filepath.Dir(path)
 	f, err := os.CreateTemp(dir, "."+filepath.Base(path)+".tmp-*")
 	if err != nil {
-		return fmt.Errorf("%s: cannot write: %w", path, err)
+		return fmt.Errorf("%s: cannot write: %w", path, errNoPath(err))
 	}
 	defer func() {
 		if err != nil {
 			f.Close()
 			os.Remove(f.Name())
+			err = fmt.Errorf("%s: %w", path, errNoPath(err))
 		}
 	}()
 	if err = write(f); err != nil {
-		return fmt.Errorf("%s: %w", path, err)
+		return err
 	}
 	if durable {
 		if err = f.Sync(); err != nil {
-			return fmt.Errorf("%s: %w", path, err)
+			return err
 		}
 	}
 	if err = f.Close(); err != nil {
-		return fmt.Errorf("%s: %w", path, err)
+		return err
 	}
 	if err = os.Chmod(f.Name(), 0o644); err != nil {
-		return fmt.Errorf("%s: %w", path, err)
+		return err
 	}
-	if err = os.Rename(f.Name(), path); err != nil {
-		return fmt.Errorf("%s: %w", path, err)
+	return os.Rename(f.Name(), path)
+}
+
+// errNoPath is err without the file path an *fs.PathError (or a rename's
+// *os.LinkError) carries: the atomic writer's temporary file, which the
+// user never sees; its callers name the file meant.
+func errNoPath(err error) error {
+	var pe *fs.PathError
+	if errors.As(err, &pe) {
+		return pe.Err
 	}
-	return nil
+	var le *os.LinkError
+	if errors.As(err, &le) {
+		return le.Err
+	}
+	return err
 }
 
 func writeJSONAtomic(path string, v any) error {
