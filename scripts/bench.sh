@@ -3,7 +3,8 @@
 # ratios (absolute times on shared machines are noise):
 #   - whole measurement / decode alone, 12 MP phone JPEG and 1080p JPEG;
 #   - batch throughput with 2 workers / with 1 (100 photos of 10 benches);
-#   - peak resident memory against one decoded frame per worker.
+#   - peak resident memory against one decoded frame per worker, and how it
+#     grows from a batch of 100 photos to one of 1000.
 # The photos are rendered by the simulator into the temp folder once.
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -57,3 +58,16 @@ bin/lineshot batch --quiet --out "$tmp/class-out" "$tmp/class" >/dev/null 2>&1 |
 t1=$(date +%s.%N)
 awk -v a="$t0" -v b="$t1" -v n="$(nproc)" 'BEGIN { printf "100 photos in %.1f s on %d CPUs: %.1f photos/s, 300 in about %.0f s\n", b - a, n, 100 / (b - a), 300 * (b - a) / 100 }'
 
+
+echo "== peak memory against the batch's size: 100 and 1000 1080p photos, -j 2"
+class="${TMPDIR:-/tmp}/lineshot-bench-class" # made by BenchmarkBatch above
+mkdir -p "$tmp/thousand"
+for k in $(seq 0 9); do
+  for b in "$class"/b*; do
+    mkdir -p "$tmp/thousand/r$k/$(basename "$b")"
+    for f in "$b"/*.jpg; do ln "$f" "$tmp/thousand/r$k/$(basename "$b")/" 2>/dev/null || cp "$f" "$tmp/thousand/r$k/$(basename "$b")/"; done
+  done
+done
+p100=$(bin/peakrss bin/lineshot batch -j 2 --quiet --out "$tmp/o100" "$class" 2>/dev/null | tail -1)
+p1000=$(bin/peakrss bin/lineshot batch -j 2 --quiet --out "$tmp/o1000" "$tmp/thousand" 2>/dev/null | tail -1)
+awk -v a="$p100" -v b="$p1000" 'BEGIN { printf "peak RSS, batch of 100 photos %.0f MiB, of 1000 photos %.0f MiB: %.2f times\n", a/1024, b/1024, b/a }'

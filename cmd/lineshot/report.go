@@ -1,6 +1,7 @@
 package main
 
 import (
+	"bufio"
 	"bytes"
 	"encoding/base64"
 	"fmt"
@@ -365,17 +366,69 @@ type reportBench struct {
 	Photos    []reportPhoto
 }
 
+// reportData is what the report's templates read.
+type reportData struct {
+	Doc      batchDoc
+	Benches  []reportBench // sorted by name
+	Summary  template.URL
+	RH       float64
+	Failures []failure
+}
+
+// reportWindow is about how many photos' plots are held at once while the
+// report is written: the plots of a 1000-photo batch were 75 MB of text,
+// and the process's peak rose from 171 to 452 MB when they were all made
+// before the page was written.
+const reportWindow = 48
+
+// writeReport writes the HTML report of doc (band images read from out):
+// the summary, then the benches a window of photos at a time, each window's
+// plots rendered on every core, written and let go.
 func writeReport(w io.Writer, out string, doc batchDoc) error {
-	data := struct {
-		Doc      batchDoc
-		Benches  []reportBench
-		Summary  template.URL
-		RH       float64
-		Failures []failure
-	}{Doc: doc, RH: calibrate.RHydrogen(), Failures: doc.Failures}
+	return writeReportWindowed(w, out, doc, reportWindow)
+}
+
+// writeReportWindowed is writeReport holding about window photos' plots
+// at a time.
+func writeReportWindowed(w io.Writer, out string, doc batchDoc, window int) error {
+	data, err := reportHead(doc)
+	if err != nil {
+		return err
+	}
+	bw := bufio.NewWriterSize(w, 1<<16)
+	if err := reportTmpl.ExecuteTemplate(bw, "head", data); err != nil {
+		return err
+	}
+	for lo := 0; lo < len(data.Benches); {
+		hi, n := lo, 0
+		for hi < len(data.Benches) && (hi == lo || n+len(data.Benches[hi].Photos) <= window) {
+			n += len(data.Benches[hi].Photos)
+			hi++
+		}
+		if err := renderPlots(out, data.Benches[lo:hi]); err != nil {
+			return err
+		}
+		for i := lo; i < hi; i++ {
+			if err := reportTmpl.ExecuteTemplate(bw, "bench", data.Benches[i]); err != nil {
+				return err
+			}
+			data.Benches[i] = reportBench{}
+		}
+		lo = hi
+	}
+	if err := reportTmpl.ExecuteTemplate(bw, "tail", data); err != nil {
+		return err
+	}
+	return bw.Flush()
+}
+
+// reportHead is the report's data without the plots of the benches: the
+// summary plot, and each bench's status.
+func reportHead(doc batchDoc) (reportData, error) {
+	data := reportData{Doc: doc, RH: calibrate.RHydrogen(), Failures: doc.Failures}
 	var err error
 	if data.Summary, err = summaryPlot(doc); err != nil {
-		return err
+		return reportData{}, err
 	}
 	for _, b := range doc.Benches {
 		rb := reportBench{B: b, Status: "ok"}
@@ -395,19 +448,6 @@ func writeReport(w io.Writer, out string, doc batchDoc) error {
 		if len(why) > 0 {
 			rb.Status, rb.Attention = joinWords(why), true
 		}
-		if b.Calibration != nil {
-			if rb.Residuals, err = residualPlot(b.Calibration); err != nil {
-				return err
-			}
-		}
-		if b.Rydberg != nil {
-			if rb.Rydberg, err = rydbergPlot(b.Rydberg); err != nil {
-				return err
-			}
-			if rb.Balmer, err = balmerPlot(b.Rydberg); err != nil {
-				return err
-			}
-		}
 		for _, set := range [][]imageResult{b.CalPhotos, b.Photos} {
 			for _, r := range set {
 				rb.Photos = append(rb.Photos, reportPhoto{R: r})
@@ -415,13 +455,37 @@ func writeReport(w io.Writer, out string, doc batchDoc) error {
 		}
 		data.Benches = append(data.Benches, rb)
 	}
-	// The plots are the slow part: render them on every core.
+	sort.SliceStable(data.Benches, func(i, j int) bool { return data.Benches[i].B.Name < data.Benches[j].B.Name })
+	return data, nil
+}
+
+// renderPlots fills in the plots and band images of the benches (out
+// holds the band images), on every core: the slow part of the report.
+func renderPlots(out string, benches []reportBench) error {
 	var g errgroup.Group
 	g.SetLimit(runtime.GOMAXPROCS(0))
-	for bi := range data.Benches {
-		b := data.Benches[bi].B
-		for pi := range data.Benches[bi].Photos {
-			ph := &data.Benches[bi].Photos[pi]
+	for bi := range benches {
+		rb := &benches[bi]
+		b := rb.B
+		g.Go(func() error {
+			var err error
+			if b.Calibration != nil {
+				if rb.Residuals, err = residualPlot(b.Calibration); err != nil {
+					return err
+				}
+			}
+			if b.Rydberg != nil {
+				if rb.Rydberg, err = rydbergPlot(b.Rydberg); err != nil {
+					return err
+				}
+				if rb.Balmer, err = balmerPlot(b.Rydberg); err != nil {
+					return err
+				}
+			}
+			return nil
+		})
+		for pi := range rb.Photos {
+			ph := &rb.Photos[pi]
 			g.Go(func() error {
 				if img, ok := b.Images[ph.R.File]; ok {
 					if raw, err := os.ReadFile(filepath.Join(out, img)); err == nil {
@@ -439,11 +503,7 @@ func writeReport(w io.Writer, out string, doc batchDoc) error {
 			})
 		}
 	}
-	if err := g.Wait(); err != nil {
-		return err
-	}
-	sort.SliceStable(data.Benches, func(i, j int) bool { return data.Benches[i].B.Name < data.Benches[j].B.Name })
-	return reportTmpl.Execute(w, data)
+	return g.Wait()
 }
 
 func joinWords(s []string) string {
@@ -457,13 +517,17 @@ func joinWords(s []string) string {
 	return out
 }
 
+// reportTmpl is the report page: "head" (the summary), "bench" (one
+// bench's section) and "tail" (the vernier check, the safety notes), in
+// the order the page has them; "report" is the whole page at once, as
+// writeReport's parts together must give it (TestReportStreamedAsWhole).
 var reportTmpl = template.Must(template.New("report").Funcs(template.FuncMap{
 	"f0": func(v float64) string { return fmt.Sprintf("%.0f", v) },
 	"f2": func(v float64) string { return fmt.Sprintf("%.2f", v) },
 	"f3": func(v float64) string { return fmt.Sprintf("%.3f", v) },
 	"f4": func(v float64) string { return fmt.Sprintf("%.4f", v) },
 	"g":  func(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }, // exact: tests compare it with results.json
-}).Parse(`<!DOCTYPE html>
+}).Parse(`{{template "head" .}}{{range .Benches}}{{template "bench" .}}{{end}}{{template "tail" .}}{{define "head"}}<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8">
 <title>lineshot report: {{.Doc.Root}}</title>
 <style>
@@ -499,7 +563,7 @@ footer{font-size:.85rem;color:#475569;padding:1rem 2rem 2rem;max-width:1200px}
 {{if .Summary}}<img alt="R per bench against CODATA R_H" src="{{.Summary}}">{{end}}
 {{if .Failures}}<h3>Photos that could not be measured</h3><ul class="warn">{{range .Failures}}<li>{{.File}}: {{.Reason}}</li>{{end}}</ul>{{end}}
 </section>
-{{range .Benches}}<section class="bench" id="bench-{{.B.Name}}"><h2>{{.B.Name}}</h2>
+{{end}}{{define "bench"}}<section class="bench" id="bench-{{.B.Name}}"><h2>{{.B.Name}}</h2>
 {{if .B.Warnings}}<ul class="warn">{{range .B.Warnings}}<li>{{.}}</li>{{end}}</ul>{{end}}
 {{with .B.Rydberg}}<p>R = <b>{{f0 .R}} ± {{f0 .Sigma}} m⁻¹</b> from {{len .LinesUsed}} Balmer lines, χ²/dof {{f2 .ChiSq}}/{{.DOF}};
 {{f4 .DevPercent}} % ({{f2 .DevSigma}}σ) from R<sub>H</sub>; ground-state energy {{f4 .EnergyEV}} eV.</p>{{end}}
@@ -509,7 +573,7 @@ footer{font-size:.85rem;color:#475569;padding:1rem 2rem 2rem;max-width:1200px}
 {{if .Profile}}<img alt="profile with lines labelled" src="{{.Profile}}">{{end}}
 {{if .R.Warnings}}<ul class="warn">{{range .R.Warnings}}<li>{{.}}</li>{{end}}</ul>{{end}}
 {{end}}</section>
-{{end}}
+{{end}}{{define "tail"}}
 {{if .Doc.Vernier}}<section id="vernier"><h2>Vernier readings checked</h2>
 <ul>{{range .Doc.VernierSummary}}<li>{{.}}</li>{{end}}</ul>
 {{range .Doc.Vernier}}<h3>{{.Bench}} / {{.Name}}: d = {{f2 .DNM}} ± {{f2 .DSigma}} nm{{with .Rydberg}}, R = {{f0 .R}} ± {{f0 .Sigma}} m⁻¹{{end}}</h3>
@@ -521,4 +585,4 @@ footer{font-size:.85rem;color:#475569;padding:1rem 2rem 2rem;max-width:1200px}
 <footer><p><b>Lamp safety.</b> Discharge lamps run from supplies of several kilovolts: switch off and unplug before touching a lamp or its holder. Tubes get hot enough to burn. Mercury lamps emit ultraviolet light: keep the shield in place and do not look into the lamp. A broken mercury lamp releases mercury: follow your institution's spill procedure. Follow your local lab safety rules; these notes do not replace them.</p>
 <p>Made by lineshot. Wavelengths are air wavelengths unless marked vacuum; references: NIST ASD and Handbook; constants: CODATA 2018.</p></footer>
 </body></html>
-`))
+{{end}}`))
