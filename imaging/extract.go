@@ -165,8 +165,10 @@ type Strip struct {
 	// ResidualTiltErrDeg is its standard error (from the scatter of the
 	// line centres it was measured on; +Inf with fewer than three lines).
 	ResidualTiltErrDeg float64
-	Image              *image.RGBA
-	Timing             Timing
+	// Image is the straightened band as an 8-bit picture (Options.KeepImage);
+	// ReleaseImage lends its pixels to the next strip's once done with.
+	Image  *image.RGBA
+	Timing Timing
 	// Frames and DarkFrames count the exposures ExtractStack averaged
 	// (0 from Extract).
 	Frames, DarkFrames int
@@ -1840,6 +1842,49 @@ func displayStrip(fr frame, lut []float32, ang, u0, v0 float64, L, H int, bow Bo
 	return nil, errors.New("straighten: unexpected display strip type")
 }
 
+// imagePix lends the pixel buffers of band images (Strip.Image): a 1080p
+// photo's is about 1.3 MB, a third of what each photo of a batch left for
+// Go's collector; the batch gives each back once it is written
+// (Strip.ReleaseImage). Go memory: a buffer never given back is collected
+// as usual. At most a few are kept.
+var imagePix pixPool
+
+type pixPool struct {
+	mu   sync.Mutex
+	free [][]uint8
+}
+
+// get returns a buffer of n bytes, its contents arbitrary.
+func (p *pixPool) get(n int) []uint8 {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	for i, b := range p.free {
+		if cap(b) >= n {
+			p.free = append(p.free[:i], p.free[i+1:]...)
+			return b[:n]
+		}
+	}
+	return make([]uint8, n)
+}
+
+func (p *pixPool) put(b []uint8) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	if len(p.free) < 4 {
+		p.free = append(p.free, b)
+	}
+}
+
+// ReleaseImage gives the band image's pixels back, to be reused by a later
+// strip's, and sets Image to nil: for a caller done with the image and
+// with every copy of it (a batch, once the image is written).
+func (s *Strip) ReleaseImage() {
+	if s.Image != nil {
+		imagePix.put(s.Image.Pix)
+		s.Image = nil
+	}
+}
+
 // encodeStrip turns an L×H strip of BGR codes into an sRGB image scaled in
 // linear light so that the brightest samples are white: the 99.99th
 // percentile of every sample, counted in a histogram of the codes (the
@@ -1862,7 +1907,8 @@ func encodeStrip[T uint8 | uint16](codes []T, lut []float32, L, H int) *image.RG
 		}
 	}
 	top := math.Max(float64(lut[code]), 1e-6)
-	img := image.NewRGBA(image.Rect(0, 0, L, H))
+	// Every pixel is written below: a lent buffer needs no clearing.
+	img := &image.RGBA{Pix: imagePix.get(4 * L * H), Stride: 4 * L, Rect: image.Rect(0, 0, L, H)}
 	tab := srgbTable()
 	scale := float64(len(tab)-1) / top
 	// Each code's output byte, worked out once per code (the codes of a

@@ -734,3 +734,41 @@ func TestEncodeStripBytes(t *testing.T) {
 	check("8-bit", i8, lut8, encodeStrip(c8, lut8, L, H), L, H)
 	check("16-bit", i16, lut16, encodeStrip(c16, lut16, L, H), L, H)
 }
+
+// A band image whose pixels were given back (Strip.ReleaseImage) lends them
+// to the next strip's: filled with garbage in between, the next image of
+// the same photo is the same picture, drawn into that same buffer; and
+// the pool keeps a few buffers at most.
+func TestReleasedImagePixels(t *testing.T) {
+	path, _ := writeJPEG(t, synth.Params{Width: 960, Height: 540, LinesPerMM: 600, TiltDeg: 2, Seed: 41, Emissions: mercury}, 92)
+	opt := Options{KeepImage: true}
+	first, err := Extract(path, opt)
+	if err != nil || first.Image == nil {
+		t.Fatalf("no band image: %v", err)
+	}
+	want := slices.Clone(first.Image.Pix)
+	buf := first.Image.Pix
+	for i := range buf {
+		buf[i] = 0xab
+	}
+	first.ReleaseImage()
+	if first.Image != nil {
+		t.Fatal("ReleaseImage left the image in place")
+	}
+	again, err := Extract(path, opt)
+	if err != nil || again.Image == nil {
+		t.Fatalf("no band image the second time: %v", err)
+	}
+	if &again.Image.Pix[0] != &buf[0] {
+		t.Error("the released pixels were not lent to the next image")
+	}
+	if !slices.Equal(again.Image.Pix, want) {
+		t.Error("the image drawn into released pixels differs")
+	}
+	for range 10 {
+		imagePix.put(make([]uint8, 16))
+	}
+	if n := len(imagePix.free); n > 4 {
+		t.Errorf("the pool keeps %d buffers", n)
+	}
+}

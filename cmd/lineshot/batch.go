@@ -671,7 +671,9 @@ func (b *batchRun) process(path string, bn bench) (rec photoRecord, cached bool,
 		rec.IDs = calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{Workers: b.cfg.imageOpts.Workers})
 		if m.strip.Image != nil {
 			name := filepath.Join("images", key+".jpg")
-			if err := writeStripImage(filepath.Join(b.out, name), m, true); err == nil {
+			err := writeStripImage(filepath.Join(b.out, name), m, true)
+			m.strip.ReleaseImage() // (m goes no further)
+			if err == nil {
 				rec.Image = name
 			} else {
 				// No record either: the photo is measured again next
