@@ -207,7 +207,11 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 		bar.Finish()
 	}
 	if notKept > 0 {
-		fmt.Fprintf(stderr, "lineshot: %d photos' working files not kept (the first: %v): their results stand; the next run measures them again\n", notKept, firstNotKept)
+		who := fmt.Sprintf("%d photos'", notKept)
+		if notKept == 1 {
+			who = "1 photo's"
+		}
+		fmt.Fprintf(stderr, "lineshot: %s working files not kept (the first: %v): their results stand; the next run measures them again\n", who, firstNotKept)
 	}
 	interrupted := ctx.Err() != nil
 	doc := batchDoc{Tool: "lineshot", Schema: 1, Root: displayName(root), Failures: failures}
