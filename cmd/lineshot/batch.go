@@ -347,6 +347,12 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 	byDir := map[string]*bench{}
 	var order []string
 	filepath.WalkDir(root, func(p string, d fs.DirEntry, err error) error {
+		if p != root && d != nil && notUsers(d.Name()) {
+			if d.IsDir() {
+				return fs.SkipDir
+			}
+			return nil
+		}
 		if err != nil {
 			fails = append(fails, failure{File: displayName(p), Reason: "cannot read: " + errText(err)})
 			if d != nil && d.IsDir() {
@@ -405,6 +411,22 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 		benches = append(benches, *b)
 	}
 	return benches, fails, passed
+}
+
+// notUsers reports whether a file or folder of this name is one that
+// systems, not people, put beside photos, to be passed over in silence:
+// hidden names (macOS's "._IMG_0001.jpg" resource files beside every photo
+// copied from a Mac, thumbnail folders such as ".thumbnails", ".Trashes"),
+// a Synology NAS's thumbnail folders ("@eaDir") and Windows's recycle bin
+// and volume folders on a USB stick ("$RECYCLE.BIN", whose deleted photos
+// keep their extension; "System Volume Information"). Common practice for
+// tools that walk folders, from memory; not from any one source.
+func notUsers(name string) bool {
+	switch name {
+	case "@eaDir", "$RECYCLE.BIN", "System Volume Information":
+		return true
+	}
+	return strings.HasPrefix(name, ".")
 }
 
 // sameFolder reports whether a and b name one folder (by path, or, both

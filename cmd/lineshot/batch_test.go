@@ -447,6 +447,31 @@ func TestStripRecordRoundTrip(t *testing.T) {
 	}
 }
 
+// What systems put beside photos is passed over in silence: macOS's
+// resource files and hidden folders, a NAS's thumbnail folders, a USB
+// stick's recycle bin. A photos' folder given by a hidden name is still
+// searched.
+func TestDiscoverPassesOverSystemFiles(t *testing.T) {
+	root := filepath.Join(t.TempDir(), ".class")
+	for _, rel := range []string{"bench-1/hg.jpg", "bench-1/._hg.jpg", "bench-1/.thumbnails/hg.jpg", ".Trashes/501/old.jpg",
+		"bench-1/@eaDir/hg.jpg/SYNOPHOTO_THUMB_XL.jpg", "$RECYCLE.BIN/S-1-5-21/$RABC123.jpg", "System Volume Information/x.jpg"} {
+		p := filepath.Join(root, rel)
+		if err := os.MkdirAll(filepath.Dir(p), 0o755); err != nil {
+			t.Fatal(err)
+		}
+		if err := os.WriteFile(p, []byte("x"), 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	benches, fails, passed := discover(root, filepath.Join(t.TempDir(), "out"))
+	if len(benches) != 1 || benches[0].Name != "bench-1" || len(benches[0].Photos) != 1 || filepath.Base(benches[0].Photos[0]) != "hg.jpg" {
+		t.Errorf("benches %+v", benches)
+	}
+	if len(fails) != 0 || len(passed) != 0 {
+		t.Errorf("failures %+v, passed over %q", fails, passed)
+	}
+}
+
 // Last week's output folder inside the class's folder is passed over (its
 // band images are not photos), whether it finished (results.json) or was
 // stopped before writing one; a folder holding someone else's
