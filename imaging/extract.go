@@ -332,11 +332,18 @@ func checkFile(path string, opt Options) (string, image.Config, error) {
 	if st.Size() == 0 {
 		return "", image.Config{}, fmt.Errorf("%s: empty file", path)
 	}
+	if why := Unreadable(path); why != "" {
+		return "", image.Config{}, fmt.Errorf("%s: %s", path, why)
+	}
 	f, err := os.Open(path)
 	if err != nil {
 		return "", image.Config{}, err
 	}
 	defer f.Close()
+	var head [12]byte
+	if n, _ := f.ReadAt(head[:], 0); isHEIF(head[:n]) {
+		return "", image.Config{}, fmt.Errorf("%s: %s", path, heifReason)
+	}
 	capPx := opt.MaxPixels
 	if capPx == 0 {
 		capPx = 120_000_000

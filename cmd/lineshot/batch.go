@@ -370,6 +370,14 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 			}
 			return nil
 		}
+		if why := imaging.Unreadable(p); why != "" {
+			// A raw or HEIC photo: said so, unless the camera saved a
+			// JPEG (or other photo lineshot reads) of it beside it.
+			if !hasReadableTwin(p) {
+				fails = append(fails, failure{File: displayName(p), Reason: why})
+			}
+			return nil
+		}
 		if !imageExts[strings.ToLower(filepath.Ext(p))] && !imaging.IsVideo(p) {
 			return nil
 		}
@@ -411,6 +419,24 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 		benches = append(benches, *b)
 	}
 	return benches, fails, passed
+}
+
+// hasReadableTwin reports whether the folder of path holds a photo
+// lineshot reads by the same name, up to its ending (IMG_0001.CR2 beside
+// IMG_0001.JPG, as a camera saving both writes them).
+func hasReadableTwin(path string) bool {
+	base := strings.TrimSuffix(filepath.Base(path), filepath.Ext(path))
+	ents, err := os.ReadDir(filepath.Dir(path))
+	if err != nil {
+		return false
+	}
+	for _, e := range ents {
+		n := e.Name()
+		if strings.EqualFold(strings.TrimSuffix(n, filepath.Ext(n)), base) && imageExts[strings.ToLower(filepath.Ext(n))] {
+			return true
+		}
+	}
+	return false
 }
 
 // notUsers reports whether a file or folder of this name is one that

@@ -472,6 +472,31 @@ func TestDiscoverPassesOverSystemFiles(t *testing.T) {
 	}
 }
 
+// HEIC photos and camera raw files are reported with what to do, not
+// passed over as non-photos; a raw file beside the camera's JPEG of the
+// same shot is passed over in silence (the JPEG is measured).
+func TestDiscoverReportsUnreadablePhotos(t *testing.T) {
+	root := filepath.Join(t.TempDir(), "class")
+	for _, rel := range []string{"bench-1/IMG_0001.HEIC", "bench-1/IMG_0002.JPG", "bench-1/IMG_0002.CR2", "bench-1/IMG_0003.nef", "bench-1/notes.txt"} {
+		p := filepath.Join(root, rel)
+		os.MkdirAll(filepath.Dir(p), 0o755)
+		if err := os.WriteFile(p, []byte("x"), 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	benches, fails, _ := discover(root, filepath.Join(t.TempDir(), "out"))
+	if len(benches) != 1 || len(benches[0].Photos) != 1 || filepath.Base(benches[0].Photos[0]) != "IMG_0002.JPG" {
+		t.Errorf("benches %+v", benches)
+	}
+	got := map[string]string{}
+	for _, f := range fails {
+		got[filepath.Base(f.File)] = f.Reason
+	}
+	if len(got) != 2 || !strings.Contains(got["IMG_0001.HEIC"], "Most Compatible") || !strings.Contains(got["IMG_0003.nef"], "raw file") {
+		t.Errorf("failures %+v", fails)
+	}
+}
+
 // Last week's output folder inside the class's folder is passed over (its
 // band images are not photos), whether it finished (results.json) or was
 // stopped before writing one; a folder holding someone else's
