@@ -30,10 +30,27 @@ func (e usageError) Error() string { return e.msg }
 func usagef(format string, a ...any) error { return usageError{fmt.Sprintf(format, a...)} }
 
 func main() {
-	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
+	ctx, stop := interruptible(os.Stderr)
 	err := run(ctx, os.Args[1:], os.Stdout, os.Stderr)
 	stop()
 	os.Exit(exitCode(err, os.Stderr))
+}
+
+// interruptible returns a context that the first Ctrl-C (SIGINT) cancels:
+// the work stops after what is in hand, and a batch still writes its
+// outputs. It says so on stderr, and a second Ctrl-C then ends the
+// process at once, as Ctrl-C usually does (every file is written
+// atomically: a file being written is left as it was, or not made).
+func interruptible(stderr io.Writer) (context.Context, context.CancelFunc) {
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
+	go func() {
+		<-ctx.Done()
+		if context.Cause(ctx) != context.Canceled { // a signal, not stop()
+			fmt.Fprintln(stderr, "lineshot: stopping after the work in hand (Ctrl-C again to stop at once)")
+		}
+		stop()
+	}()
+	return ctx, stop
 }
 
 // exitCode prints err in the tool's voice and returns the exit status.

@@ -63,3 +63,54 @@ func TestBatchSIGINT(t *testing.T) {
 		t.Errorf("after the rerun: %d benches", len(d.Benches))
 	}
 }
+
+// The first Ctrl-C cancels the work and says so; the second ends the
+// process at once. Run in a child process (this test binary again), which
+// waits far longer than the test does after the first signal.
+func TestSecondInterruptEndsAtOnce(t *testing.T) {
+	if os.Getenv("LINESHOT_INTERRUPT_CHILD") == "1" {
+		ctx, stop := interruptible(os.Stderr)
+		defer stop()
+		os.Stdout.WriteString("ready\n")
+		<-ctx.Done()
+		time.Sleep(50 * time.Millisecond) // (the handler has been given back by now)
+		os.Stdout.WriteString("cancelled\n")
+		time.Sleep(60 * time.Second) // a long piece of work after the first Ctrl-C
+		os.Exit(0)
+	}
+	cmd := exec.Command(os.Args[0], "-test.run", "^TestSecondInterruptEndsAtOnce$")
+	cmd.Env = append(os.Environ(), "LINESHOT_INTERRUPT_CHILD=1")
+	var stderr bytes.Buffer
+	cmd.Stderr = &stderr
+	out, err := cmd.StdoutPipe()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	line := make([]byte, 64)
+	readLine := func(want string) {
+		t.Helper()
+		n, err := out.Read(line)
+		if err != nil || !strings.Contains(string(line[:n]), want) {
+			cmd.Process.Kill()
+			t.Fatalf("child said %q (%v), want %q", line[:n], err, want)
+		}
+	}
+	readLine("ready")
+	cmd.Process.Signal(syscall.SIGINT)
+	readLine("cancelled")
+	cmd.Process.Signal(syscall.SIGINT)
+	err = cmd.Wait()
+	ee, ok := err.(*exec.ExitError)
+	if !ok {
+		t.Fatalf("the child outlived the second Ctrl-C: %v", err)
+	}
+	if ws, ok := ee.Sys().(syscall.WaitStatus); !ok || !ws.Signaled() || ws.Signal() != syscall.SIGINT {
+		t.Errorf("the child ended with %v, not by the second Ctrl-C", err)
+	}
+	if !strings.Contains(stderr.String(), "Ctrl-C again to stop at once") {
+		t.Errorf("stderr: %q", stderr.String())
+	}
+}
