@@ -31,9 +31,30 @@ func usagef(format string, a ...any) error { return usageError{fmt.Sprintf(forma
 
 func main() {
 	ctx, stop := interruptible(os.Stderr)
-	err := run(ctx, os.Args[1:], os.Stdout, os.Stderr)
+	out := &checkedWriter{w: os.Stdout}
+	err := run(ctx, os.Args[1:], out, os.Stderr)
 	stop()
+	if err == nil && out.err != nil {
+		// A table sent to a file on a full disk: not a silent success.
+		err = fmt.Errorf("the output could not be written: %v", errNoPath(out.err))
+	}
 	os.Exit(exitCode(err, os.Stderr))
+}
+
+// checkedWriter passes writes on to w until one fails, and keeps that
+// error: the commands print their tables without checking every write.
+type checkedWriter struct {
+	w   io.Writer
+	err error
+}
+
+func (c *checkedWriter) Write(p []byte) (int, error) {
+	if c.err != nil {
+		return 0, c.err
+	}
+	n, err := c.w.Write(p)
+	c.err = err
+	return n, err
 }
 
 // interruptible returns a context that the first Ctrl-C (SIGINT) cancels:

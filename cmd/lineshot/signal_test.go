@@ -114,3 +114,30 @@ func TestSecondInterruptEndsAtOnce(t *testing.T) {
 		t.Errorf("stderr: %q", stderr.String())
 	}
 }
+
+// Tables sent to a file on a full disk (here /dev/full) end in one line
+// saying so and exit status 1, not a silent success with the output lost.
+func TestOutputToFullDisk(t *testing.T) {
+	full, err := os.OpenFile("/dev/full", os.O_WRONLY, 0)
+	if err != nil {
+		t.Skip("no /dev/full here")
+	}
+	defer full.Close()
+	bin := filepath.Join(t.TempDir(), "lineshot")
+	if out, err := exec.Command("go", "build", "-o", bin, ".").CombinedOutput(); err != nil {
+		t.Fatalf("build: %v\n%s", err, out)
+	}
+	for _, args := range [][]string{{"lines", "mercury"}, {"measure", filepath.Join("..", "..", "testdata", "demo", "bench2", "mercury.jpg")}} {
+		cmd := exec.Command(bin, args...)
+		cmd.Stdout = full
+		var stderr bytes.Buffer
+		cmd.Stderr = &stderr
+		err := cmd.Run()
+		if ee, ok := err.(*exec.ExitError); !ok || ee.ExitCode() != exitFailed {
+			t.Errorf("%v: exit %v, want %d", args, err, exitFailed)
+		}
+		if !strings.Contains(stderr.String(), "no space left on device") || strings.Count(stderr.String(), "\n") != 1 {
+			t.Errorf("%v: stderr %q", args, stderr.String())
+		}
+	}
+}
