@@ -490,7 +490,9 @@ func newFrame(m gocv.Mat) (frame, error) {
 	case gocv.MatTypeCV16UC3:
 		f.words16, err = m.DataPtrUint16()
 	default:
-		return f, fmt.Errorf("unsupported pixel type %v", m.Type())
+		// (A floating-point or signed TIFF, say: OpenCV reads it, its
+		// values have no transfer curve lineshot knows.)
+		return f, fmt.Errorf("pixels of type %v, which lineshot does not read: save the photo with 8 or 16 bits a channel (unsigned integers)", m.Type())
 	}
 	return f, err
 }

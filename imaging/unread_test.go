@@ -6,6 +6,8 @@ import (
 	"strings"
 	"testing"
 
+	"gocv.io/x/gocv"
+
 	"lineshot/imaging/synth"
 )
 
@@ -48,5 +50,21 @@ func TestUnreadablePhotos(t *testing.T) {
 	}
 	if Unreadable("a.jpg") != "" || Unreadable("a.JPEG") != "" || Unreadable("a.Heic") == "" || Unreadable("a.NEF") == "" {
 		t.Error("Unreadable misjudges a name")
+	}
+}
+
+// A floating-point TIFF, which OpenCV reads, is refused with what to do:
+// its values have no transfer curve lineshot knows.
+func TestFloatTIFFRefused(t *testing.T) {
+	p := filepath.Join(t.TempDir(), "float.tiff")
+	m := gocv.NewMatWithSize(300, 400, gocv.MatTypeCV32FC3)
+	defer m.Close()
+	m.SetTo(gocv.NewScalar(0.5, 0.2, 0.1, 0))
+	if !gocv.IMWrite(p, m) {
+		t.Skip("this OpenCV writes no floating-point TIFF")
+	}
+	_, err := Extract(p, Options{})
+	if err == nil || !strings.Contains(err.Error(), "8 or 16 bits a channel") || !strings.HasPrefix(err.Error(), p+": ") {
+		t.Errorf("float TIFF: %v", err)
 	}
 }
