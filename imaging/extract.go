@@ -24,7 +24,7 @@ import (
 	// TIFF, BMP and WebP headers too, so that their declared size is
 	// checked against the pixel cap before OpenCV allocates for it.
 	_ "golang.org/x/image/bmp"
-	_ "golang.org/x/image/tiff"
+	"golang.org/x/image/tiff"
 	_ "golang.org/x/image/webp"
 
 	"lineshot/peaks"
@@ -349,6 +349,14 @@ func checkFile(path string, opt Options) (string, image.Config, error) {
 		capPx = 120_000_000
 	}
 	cfg, format, err := image.DecodeConfig(f)
+	var tu tiff.UnsupportedError
+	if errors.As(err, &tu) && (tu == "sample format" || tu == "BitsPerSample of 32" || tu == "BitsPerSample of 64") {
+		// A floating-point or signed TIFF, refused before OpenCV decodes
+		// it (newFrame would refuse the frame; OpenCV prints its own
+		// complaint about some of them). Other TIFFs Go does not read go on
+		// to OpenCV, which reads more of them.
+		return "", image.Config{}, fmt.Errorf("%s: a TIFF of floating-point, signed or 32- or 64-bit samples, %s", path, wideSampleReason)
+	}
 	if err == nil && cfg.Width*cfg.Height > capPx {
 		return "", image.Config{}, fmt.Errorf("%s: %dx%d pixels exceeds the limit of %d megapixels", path, cfg.Width, cfg.Height, capPx/1_000_000)
 	}
@@ -492,7 +500,7 @@ func newFrame(m gocv.Mat) (frame, error) {
 	default:
 		// (A floating-point or signed TIFF, say: OpenCV reads it, its
 		// values have no transfer curve lineshot knows.)
-		return f, fmt.Errorf("pixels of type %v, which lineshot does not read: save the photo with 8 or 16 bits a channel (unsigned integers)", m.Type())
+		return f, fmt.Errorf("pixels of type %v, %s", m.Type(), wideSampleReason)
 	}
 	return f, err
 }

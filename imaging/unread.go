@@ -9,8 +9,9 @@ import (
 // The kinds of photo lineshot does not read, each with what to do instead
 // (the iPhone setting's name is from memory).
 const (
-	heifReason = "a HEIF/HEIC photo (an iPhone's default), which lineshot does not read: set the camera to JPEG (on an iPhone: Settings > Camera > Formats > Most Compatible) or convert it to JPEG or PNG"
-	rawReason  = "a camera's raw file, which lineshot does not read: measure the JPEG the camera saves beside it, or convert it to a 16-bit TIFF or PNG"
+	heifReason       = "a HEIF/HEIC photo (an iPhone's default), which lineshot does not read: set the camera to JPEG (on an iPhone: Settings > Camera > Formats > Most Compatible) or convert it to JPEG or PNG"
+	wideSampleReason = "which lineshot does not read: save the photo with 8 or 16 bits a channel (unsigned integers)"
+	rawReason        = "a camera's raw file, which lineshot does not read: measure the JPEG the camera saves beside it, or convert it to a 16-bit TIFF or PNG"
 )
 
 // heifExts and rawExts are the file endings of those kinds (raw: the

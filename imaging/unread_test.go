@@ -53,18 +53,28 @@ func TestUnreadablePhotos(t *testing.T) {
 	}
 }
 
-// A floating-point TIFF, which OpenCV reads, is refused with what to do:
-// its values have no transfer curve lineshot knows.
-func TestFloatTIFFRefused(t *testing.T) {
-	p := filepath.Join(t.TempDir(), "float.tiff")
+// Floating-point, signed and 64-bit TIFFs (OpenCV reads the first two) are
+// refused from their header, before OpenCV decodes them, with what to do:
+// their values have no transfer curve lineshot knows. A frame of such
+// pixels from elsewhere is refused too (newFrame).
+func TestWideSampleTIFFRefused(t *testing.T) {
+	for _, typ := range []gocv.MatType{gocv.MatTypeCV32FC3, gocv.MatTypeCV64FC1, gocv.MatTypeCV16SC3} {
+		p := filepath.Join(t.TempDir(), "odd.tiff")
+		m := gocv.NewMatWithSize(300, 400, typ)
+		ok := gocv.IMWrite(p, m)
+		m.Close()
+		if !ok {
+			t.Logf("%v: this OpenCV writes no such TIFF", typ)
+			continue
+		}
+		_, err := Extract(p, Options{})
+		if err == nil || !strings.Contains(err.Error(), "a TIFF of floating-point") || !strings.HasPrefix(err.Error(), p+": ") {
+			t.Errorf("%v: %v", typ, err)
+		}
+	}
 	m := gocv.NewMatWithSize(300, 400, gocv.MatTypeCV32FC3)
 	defer m.Close()
-	m.SetTo(gocv.NewScalar(0.5, 0.2, 0.1, 0))
-	if !gocv.IMWrite(p, m) {
-		t.Skip("this OpenCV writes no floating-point TIFF")
-	}
-	_, err := Extract(p, Options{})
-	if err == nil || !strings.Contains(err.Error(), "8 or 16 bits a channel") || !strings.HasPrefix(err.Error(), p+": ") {
-		t.Errorf("float TIFF: %v", err)
+	if _, err := newFrame(m); err == nil || !strings.Contains(err.Error(), "8 or 16 bits a channel") {
+		t.Errorf("a float frame: %v", err)
 	}
 }
