@@ -11,6 +11,8 @@
 package vernier
 
 import (
+	"bufio"
+	"bytes"
 	"encoding/csv"
 	"errors"
 	"fmt"
@@ -109,8 +111,22 @@ func FormatAngle(deg float64) string {
 // ReadCSV reads readings with at least the columns
 // bench,observer,lamp,line,side,reading (any order, header row first) and
 // optionally vernier, order and note. Errors name the row and the reason.
+//
+// Fields are separated by commas or, when the header row holds more
+// semicolons than commas, by semicolons: what a spreadsheet saves as CSV
+// where the decimal mark is a comma (much of Europe); the readings of such
+// a file may then write the arc-minutes' decimals with a comma, 19°08,5′.
 func ReadCSV(r io.Reader) ([]Reading, error) {
-	cr := csv.NewReader(r)
+	br := bufio.NewReader(r)
+	head0, _ := br.Peek(4096)
+	if i := bytes.IndexByte(head0, '\n'); i >= 0 {
+		head0 = head0[:i]
+	}
+	semi := bytes.Count(head0, []byte(";")) > bytes.Count(head0, []byte(","))
+	cr := csv.NewReader(br)
+	if semi {
+		cr.Comma = ';'
+	}
 	cr.Comment = '#'
 	cr.FieldsPerRecord = -1
 	cr.TrimLeadingSpace = true
@@ -149,6 +165,10 @@ func ReadCSV(r io.Reader) ([]Reading, error) {
 		}
 		rd := Reading{Row: line, Bench: get("bench"), Observer: get("observer"), Lamp: get("lamp"), Line: get("line"),
 			Side: strings.ToLower(get("side")), Text: get("reading"), Vernier: strings.ToUpper(get("vernier")), Note: get("note"), Order: 1}
+		text := rd.Text
+		if semi {
+			text = strings.ReplaceAll(text, ",", ".") // a decimal comma
+		}
 		switch rd.Side {
 		case SideZero, SideLeft, SideRight:
 		case "l":
@@ -176,7 +196,7 @@ func ReadCSV(r io.Reader) ([]Reading, error) {
 			}
 			rd.Order = n
 		}
-		rd.Deg, err = ParseAngle(rd.Text)
+		rd.Deg, err = ParseAngle(text)
 		if err != nil {
 			return nil, fmt.Errorf("row %d: %v", line, err)
 		}

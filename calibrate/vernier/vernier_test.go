@@ -1,8 +1,12 @@
 package vernier
 
 import (
+	"bytes"
 	"fmt"
 	"math"
+	"os"
+	"path/filepath"
+	"reflect"
 	"strings"
 	"testing"
 
@@ -342,5 +346,37 @@ func TestMisreadCalibrationLineFound(t *testing.T) {
 			}
 		}
 		t.Errorf("the misread green reading (row %d) was not named", want)
+	}
+}
+
+// A spreadsheet's CSV where the decimal mark is a comma separates fields
+// with semicolons and may write decimals with a comma: read as the same
+// readings as the comma-separated file (the example class), the text of
+// each reading kept as written; a comma file with semicolons in its notes
+// stays a comma file.
+func TestReadCSVSemicolons(t *testing.T) {
+	raw, err := os.ReadFile(filepath.Join("..", "..", "testdata", "vernier", "class-b12.csv"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	want, err := ReadCSV(bytes.NewReader(raw))
+	if err != nil {
+		t.Fatal(err)
+	}
+	semi := bytes.ReplaceAll(raw, []byte(","), []byte(";"))
+	got, err := ReadCSV(bytes.NewReader(semi))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !reflect.DeepEqual(got, want) {
+		t.Errorf("semicolon file: %d readings, differ from the comma file's %d", len(got), len(want))
+	}
+	dec, err := ReadCSV(strings.NewReader("bench;observer;lamp;line;side;reading\nb;Ana;mercury;;zero;180°02'\nb;Ana;mercury;green;right;199°10,5'\nb;Ana;mercury;green;left;160°54'\n"))
+	if err != nil || len(dec) != 3 || math.Abs(dec[1].Deg-(199+10.5/60)) > 1e-9 || dec[1].Text != "199°10,5'" {
+		t.Errorf("decimal comma: %+v, %v", dec, err)
+	}
+	notes, err := ReadCSV(strings.NewReader("bench,observer,lamp,line,side,reading,note\nb,Ana,mercury,,zero,180°02',lamp warm; bench 3 noisy; redo\n"))
+	if err != nil || len(notes) != 1 || notes[0].Note != "lamp warm; bench 3 noisy; redo" {
+		t.Errorf("notes with semicolons: %+v, %v", notes, err)
 	}
 }
