@@ -1,7 +1,6 @@
 package calibrate
 
 import (
-	"encoding/csv"
 	"fmt"
 	"io"
 	"math"
@@ -176,12 +175,11 @@ func (l Lamp) sorted() []Line {
 // ReadLines reads a user's reference line list: CSV with a header naming
 // at least the columns "nm" (air wavelength) and optionally "name",
 // "strength" (relative, default 1), "sigma_nm" and "source". Lines starting
-// with # are comments. The lamp takes the given name. Errors name the row.
+// with # are comments. A spreadsheet's CSV is read as SpreadsheetCSV says
+// (semicolons and decimal commas too). The lamp takes the given name.
+// Errors name the row.
 func ReadLines(r io.Reader, lampName string) (Lamp, error) {
-	cr := csv.NewReader(r)
-	cr.Comment = '#'
-	cr.FieldsPerRecord = -1
-	cr.TrimLeadingSpace = true
+	cr, semi := SpreadsheetCSV(r)
 	head, err := cr.Read()
 	if err != nil {
 		return Lamp{}, fmt.Errorf("calibrate: line list: no header row: %v", err)
@@ -213,7 +211,7 @@ func ReadLines(r io.Reader, lampName string) (Lamp, error) {
 		if nmCol >= len(rec) {
 			return Lamp{}, fmt.Errorf("calibrate: line list row %d: no nm value", row)
 		}
-		nm, err := strconv.ParseFloat(strings.TrimSpace(rec[nmCol]), 64)
+		nm, err := strconv.ParseFloat(Number(strings.TrimSpace(rec[nmCol]), semi), 64)
 		if err != nil || !(nm >= 100 && nm <= 3000) {
 			return Lamp{}, fmt.Errorf("calibrate: line list row %d: wavelength %q is not a number of nm between 100 and 3000", row, rec[nmCol])
 		}
@@ -229,7 +227,7 @@ func ReadLines(r io.Reader, lampName string) (Lamp, error) {
 			dst  *float64
 		}{{"strength", &l.Strength}, {"sigma_nm", &l.SigmaNM}} {
 			if v, ok := get(rec, f.name); ok && v != "" {
-				x, err := strconv.ParseFloat(v, 64)
+				x, err := strconv.ParseFloat(Number(v, semi), 64)
 				if err != nil || x < 0 || math.IsInf(x, 0) {
 					return Lamp{}, fmt.Errorf("calibrate: line list row %d: %s %q is not a non-negative number", row, f.name, v)
 				}

@@ -11,8 +11,6 @@
 package vernier
 
 import (
-	"bufio"
-	"bytes"
 	"encoding/csv"
 	"errors"
 	"fmt"
@@ -21,6 +19,8 @@ import (
 	"regexp"
 	"strconv"
 	"strings"
+
+	"lineshot/calibrate"
 )
 
 // Side of the straight-through position a reading was taken on.
@@ -117,26 +117,14 @@ func FormatAngle(deg float64) string {
 // where the decimal mark is a comma (much of Europe); the readings of such
 // a file may then write the arc-minutes' decimals with a comma, 19°08,5′.
 func ReadCSV(r io.Reader) ([]Reading, error) {
-	br := bufio.NewReader(r)
-	head0, _ := br.Peek(4096)
-	if i := bytes.IndexByte(head0, '\n'); i >= 0 {
-		head0 = head0[:i]
-	}
-	semi := bytes.Count(head0, []byte(";")) > bytes.Count(head0, []byte(","))
-	cr := csv.NewReader(br)
-	if semi {
-		cr.Comma = ';'
-	}
-	cr.Comment = '#'
-	cr.FieldsPerRecord = -1
-	cr.TrimLeadingSpace = true
+	cr, semi := calibrate.SpreadsheetCSV(r)
 	head, err := cr.Read()
 	if err != nil {
 		return nil, fmt.Errorf("no header row: %v", err)
 	}
 	col := map[string]int{}
 	for i, h := range head {
-		col[strings.ToLower(strings.TrimSpace(strings.TrimPrefix(h, "\ufeff")))] = i
+		col[strings.ToLower(strings.TrimSpace(h))] = i
 	}
 	for _, need := range []string{"bench", "observer", "lamp", "line", "side", "reading"} {
 		if _, ok := col[need]; !ok {
@@ -165,10 +153,7 @@ func ReadCSV(r io.Reader) ([]Reading, error) {
 		}
 		rd := Reading{Row: line, Bench: get("bench"), Observer: get("observer"), Lamp: get("lamp"), Line: get("line"),
 			Side: strings.ToLower(get("side")), Text: get("reading"), Vernier: strings.ToUpper(get("vernier")), Note: get("note"), Order: 1}
-		text := rd.Text
-		if semi {
-			text = strings.ReplaceAll(text, ",", ".") // a decimal comma
-		}
+		text := calibrate.Number(rd.Text, semi)
 		switch rd.Side {
 		case SideZero, SideLeft, SideRight:
 		case "l":
