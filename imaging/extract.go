@@ -33,10 +33,14 @@ import (
 // ErrNoBand is returned when no spectrum band stands out of the frame.
 var ErrNoBand = errors.New("no spectrum band found")
 
+// DefaultMaxPixels is the largest frame Extract decodes unless told
+// otherwise: 120 megapixels, above any phone or camera of the day.
+const DefaultMaxPixels = 120_000_000
+
 // Options tunes Extract. The zero value is usable.
 type Options struct {
 	// MaxPixels caps the decoded frame size (a guard against decompression
-	// bombs); 0 means 120 megapixels.
+	// bombs); 0 means DefaultMaxPixels.
 	MaxPixels int
 	// Linear says the pixel values are already linear in intensity (raw
 	// conversions, scientific cameras); otherwise the sRGB curve is undone.
@@ -346,7 +350,7 @@ func checkFile(path string, opt Options) (string, image.Config, error) {
 	}
 	capPx := opt.MaxPixels
 	if capPx == 0 {
-		capPx = 120_000_000
+		capPx = DefaultMaxPixels
 	}
 	cfg, format, err := image.DecodeConfig(f)
 	var tu tiff.UnsupportedError

@@ -185,6 +185,11 @@ func TestMeasureBadInput(t *testing.T) {
 	if _, _, code := runCLI(t, "frobnicate"); code != exitUsage {
 		t.Errorf("unknown command: exit %d, want %d", code, exitUsage)
 	}
+	// A simulated frame larger than lineshot measures (it would take some
+	// 16 bytes a pixel to render) is refused before any is made.
+	if _, stderr, code := runCLI(t, "simulate", "--size", "12000x12000", "-o", filepath.Join(t.TempDir(), "x.jpg")); code != exitUsage || !strings.Contains(stderr, "up to 120") {
+		t.Errorf("144 MP simulation: exit %d, %s", code, stderr)
+	}
 }
 
 // A saved calibration applies like the photo it came from; one edited

@@ -185,5 +185,9 @@ func parseSize(s string) (int, int, error) {
 	if err1 != nil || err2 != nil || w < 16 || h < 16 || w > 20000 || h > 20000 {
 		return 0, 0, fmt.Errorf("want two whole numbers from 16 to 20000")
 	}
+	if w*h > imaging.DefaultMaxPixels {
+		// (Rendering takes about 16 bytes a pixel: 6.3 GB at 20000x20000.)
+		return 0, 0, fmt.Errorf("%d megapixels; lineshot measures photos of up to %d", w*h/1_000_000, imaging.DefaultMaxPixels/1_000_000)
+	}
 	return w, h, nil
 }
