@@ -1021,14 +1021,11 @@ func runMerge(args []string, stdout, stderr io.Writer) error {
 		fsf.Usage()
 		return usagef("merge: give --out OUTDIR and the batch output folders to join")
 	}
-	for _, d := range []string{"images", "calibrations"} {
-		if err := os.MkdirAll(filepath.Join(*out, d), 0o755); err != nil {
-			return fmt.Errorf("%s: cannot write the output folder: %w", *out, err)
-		}
-	}
+	// Every part is read and checked before anything is written.
 	merged := batchDoc{Tool: "lineshot", Schema: 1}
 	seen := map[string]string{}
 	var roots []string
+	from := map[string]string{} // bench → its part folder
 	for _, part := range fsf.Args() {
 		path := filepath.Join(part, "results.json")
 		raw, err := os.ReadFile(path)
@@ -1044,19 +1041,27 @@ func runMerge(args []string, stdout, stderr io.Writer) error {
 			if prev, dup := seen[b.Name]; dup {
 				return fmt.Errorf("%s: bench %q is also in %s: the parts overlap", path, b.Name, prev)
 			}
-			seen[b.Name] = part
-			for _, img := range b.Images {
-				src, err := os.ReadFile(filepath.Join(part, img))
-				if err != nil {
-					continue // the report then shows no band for that photo
-				}
-				if err := writeFileAtomic(filepath.Join(*out, img), func(w io.Writer) error { _, err := w.Write(src); return err }); err != nil {
-					return err
-				}
-			}
+			seen[b.Name], from[b.Name] = part, part
 			merged.Benches = append(merged.Benches, b)
 		}
 		merged.Failures = append(merged.Failures, d.Failures...)
+	}
+	for _, d := range []string{"images", "calibrations"} {
+		if err := os.MkdirAll(filepath.Join(*out, d), 0o755); err != nil {
+			return fmt.Errorf("%s: cannot write the output folder: %w", *out, err)
+		}
+	}
+	for _, b := range merged.Benches {
+		for _, img := range b.Images {
+			src, err := os.ReadFile(filepath.Join(from[b.Name], img))
+			if err != nil {
+				continue // the report then shows no band for that photo
+			}
+			// (Band images are derived files, as in the batch: no flush.)
+			if err := writeDerivedAtomic(filepath.Join(*out, img), func(w io.Writer) error { _, err := w.Write(src); return err }); err != nil {
+				return err
+			}
+		}
 	}
 	merged.Root = strings.Join(dedupe(roots), ", ")
 	sort.SliceStable(merged.Benches, func(i, j int) bool { return merged.Benches[i].Name < merged.Benches[j].Name })

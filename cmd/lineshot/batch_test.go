@@ -310,6 +310,23 @@ func TestBatchShardsMerge(t *testing.T) {
 	if _, _, code := runCLI(t, "merge", "--out", filepath.Join(dir, "again"), parts[0], parts[0]); code == 0 {
 		t.Error("merging a part with itself should be refused")
 	}
+	// Refused parts leave no output folder behind.
+	if _, err := os.Stat(filepath.Join(dir, "again")); !os.IsNotExist(err) {
+		t.Errorf("a refused merge made its output folder (%v)", err)
+	}
+	// Every band image of the parts is in the merged folder.
+	n := 0
+	for _, b := range readBatch(t, all).Benches {
+		for _, img := range b.Images {
+			if st, err := os.Stat(filepath.Join(all, img)); err != nil || st.Size() == 0 {
+				t.Errorf("%s: band image %s missing from the merge", b.Name, img)
+			}
+			n++
+		}
+	}
+	if n == 0 {
+		t.Error("no band images in the merged results")
+	}
 }
 
 func TestBatchBadArguments(t *testing.T) {
