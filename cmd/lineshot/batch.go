@@ -474,21 +474,8 @@ func sameFolder(a, b string) bool {
 // this program first, or, from a run stopped before writing one, both
 // folders a batch makes before it measures.
 func isOutputFolder(dir string) bool {
-	res := filepath.Join(dir, "results.json")
-	if fi, err := os.Stat(res); err != nil || !fi.Mode().IsRegular() {
-		// (No file, or one not to open: a named pipe would wait for a writer.)
-	} else if f, err := os.Open(res); err == nil {
-		defer f.Close()
-		dec := json.NewDecoder(io.LimitReader(f, 4096))
-		var tok [3]json.Token
-		for i := range tok {
-			if tok[i], err = dec.Token(); err != nil {
-				break
-			}
-		}
-		if tok[0] == json.Delim('{') && tok[1] == "tool" && tok[2] == "lineshot" {
-			return true
-		}
+	if namesLineshot(filepath.Join(dir, "results.json")) {
+		return true
 	}
 	for _, sub := range []string{"cache", "calibrations"} {
 		if st, err := os.Stat(filepath.Join(dir, sub)); err != nil || !st.IsDir() {
@@ -496,6 +483,28 @@ func isOutputFolder(dir string) bool {
 		}
 	}
 	return true
+}
+
+// namesLineshot reports whether path is a regular file (a named pipe
+// would wait for a writer) of JSON whose first field says "tool":
+// "lineshot", as a batch's results.json begins.
+func namesLineshot(path string) bool {
+	if fi, err := os.Stat(path); err != nil || !fi.Mode().IsRegular() {
+		return false
+	}
+	f, err := os.Open(path)
+	if err != nil {
+		return false
+	}
+	defer f.Close()
+	dec := json.NewDecoder(io.LimitReader(f, 4096))
+	var tok [3]json.Token
+	for i := range tok {
+		if tok[i], err = dec.Token(); err != nil {
+			return false
+		}
+	}
+	return tok[0] == json.Delim('{') && tok[1] == "tool" && tok[2] == "lineshot"
 }
 
 // errText is an error's text without the path the caller prints anyway.
