@@ -14,10 +14,12 @@ import (
 	"hash/fnv"
 	"io"
 	"io/fs"
+	"maps"
 	"math"
 	"os"
 	"path/filepath"
 	"runtime"
+	"slices"
 	"sort"
 	"strconv"
 	"strings"
@@ -400,6 +402,9 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 			}
 			b = &bench{Name: displayName(filepath.ToSlash(name)), Dir: dir}
 			st, err := readSettings(filepath.Join(dir, settingsFile))
+			if err == nil {
+				err = st.missing(dir)
+			}
 			if err != nil {
 				fails = append(fails, failure{File: displayName(filepath.Join(dir, settingsFile)), Reason: err.Error()})
 			}
@@ -519,6 +524,33 @@ type benchSettings struct {
 	Lamps       map[string]string `json:"lamps,omitempty"`
 	Exclude     map[string]bool   `json:"exclude,omitempty"`
 	Dark        []string          `json:"dark,omitempty"` // dark frames, subtracted from the bench's other photos
+}
+
+// missing says which of the files the settings name for a role (a
+// calibration photo, a lamp, a dark frame) are not in the bench's folder
+// dir: a misspelt name would otherwise leave the bench uncalibrated, its
+// real calibration photo unused, without a word. nil when all are there.
+// (Excluded names may be gone: nothing to do with them.)
+func (s benchSettings) missing(dir string) error {
+	var gone []string
+	check := func(role, name string) {
+		if st, err := os.Stat(filepath.Join(dir, name)); err != nil || st.IsDir() {
+			gone = append(gone, role+" "+name)
+		}
+	}
+	for _, n := range s.Calibration {
+		check("calibration:", n)
+	}
+	for _, n := range slices.Sorted(maps.Keys(s.Lamps)) {
+		check("lamp:", n)
+	}
+	for _, n := range s.Dark {
+		check("dark:", n)
+	}
+	if len(gone) == 0 {
+		return nil
+	}
+	return fmt.Errorf("names files not in the folder: %s", strings.Join(gone, "; "))
 }
 
 func (s benchSettings) isDark(name string) bool {

@@ -514,6 +514,39 @@ func TestDiscoverReportsUnreadablePhotos(t *testing.T) {
 	}
 }
 
+// A bench settings file naming a file that is not in the folder (a
+// misspelt calibration photo, lamp or dark frame) is reported, one line
+// naming each; excluded names may be gone; a correct file is no failure.
+func TestDiscoverChecksSettingsNames(t *testing.T) {
+	root := filepath.Join(t.TempDir(), "class")
+	write := func(rel, text string) {
+		p := filepath.Join(root, rel)
+		os.MkdirAll(filepath.Dir(p), 0o755)
+		if err := os.WriteFile(p, []byte(text), 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	for _, b := range []string{"bench-1", "bench-2"} {
+		write(b+"/hg.jpg", "x")
+		write(b+"/h.jpg", "x")
+		write(b+"/off.jpg", "x")
+	}
+	write("bench-1/"+settingsFile, "calibration: hg-a.jpg\nlamp: h2.jpg hydrogen\ndark: off.jpg off2.jpg\nexclude: gone.jpg\n")
+	write("bench-2/"+settingsFile, "calibration: hg.jpg\nlamp: h.jpg hydrogen\ndark: off.jpg\nexclude: gone.jpg\n")
+	_, fails, _ := discover(root, filepath.Join(t.TempDir(), "out"))
+	if len(fails) != 1 || !strings.Contains(fails[0].File, filepath.Join("bench-1", settingsFile)) {
+		t.Fatalf("failures %+v", fails)
+	}
+	for _, want := range []string{"calibration: hg-a.jpg", "lamp: h2.jpg", "dark: off2.jpg"} {
+		if !strings.Contains(fails[0].Reason, want) {
+			t.Errorf("%q lacks %q", fails[0].Reason, want)
+		}
+	}
+	if strings.Contains(fails[0].Reason, "gone.jpg") || strings.Contains(fails[0].Reason, "dark: off.jpg") {
+		t.Errorf("%q names a file it should not", fails[0].Reason)
+	}
+}
+
 // Last week's output folder inside the class's folder is passed over (its
 // band images are not photos), whether it finished (results.json) or was
 // stopped before writing one; a folder holding someone else's
