@@ -139,7 +139,7 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	cfg := measureConfig{minSNR: *minSNR, tolNM: 1, imageOpts: imaging.Options{KeepImage: true, ImageMaxWidth: stripImageWidth, Workers: workers}}
 	benches, failures, passed := discover(root, *out)
 	for _, p := range passed {
-		fmt.Fprintf(stderr, "lineshot: %s: passed over, the output folder of an earlier batch\n", displayName(p))
+		say(stderr, "lineshot: %s: passed over, the output folder of an earlier batch", displayName(p))
 	}
 	if sn > 1 {
 		var mine []bench
@@ -213,7 +213,7 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 		if notKept == 1 {
 			who = "1 photo's"
 		}
-		fmt.Fprintf(stderr, "lineshot: %s working files not kept (the first: %v): their results stand; the next run measures them again\n", who, firstNotKept)
+		say(stderr, "lineshot: %s working files not kept (the first: %v): their results stand; the next run measures them again", who, firstNotKept)
 	}
 	interrupted := ctx.Err() != nil
 	doc := batchDoc{Tool: "lineshot", Schema: 1, Root: displayName(root), Failures: failures}
@@ -252,7 +252,7 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 		return err
 	}
 	for _, f := range doc.Failures {
-		fmt.Fprintf(stderr, "lineshot: %s: %s\n", f.File, f.Reason)
+		say(stderr, "lineshot: %s: %s", f.File, f.Reason)
 	}
 	nPhotos := 0
 	for _, d := range done {

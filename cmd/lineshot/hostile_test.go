@@ -67,6 +67,7 @@ func hostileFiles(t *testing.T, dir string) map[string]string {
 	}
 	w("no-spectrum.png", enc(noise, "png"))
 	w("name-\xff\xfe.jpg", rnd[:100])
+	w("new\nline.jpg", rnd[:200]) // its reason must stay one line
 	os.Mkdir(filepath.Join(dir, "folder.jpg"), 0o755)
 	if err := syscall.Mkfifo(filepath.Join(dir, "pipe.jpg"), 0o644); err != nil {
 		t.Fatal(err)
@@ -76,6 +77,7 @@ func hostileFiles(t *testing.T, dir string) map[string]string {
 		"zero-bytes.jpg": "empty file", "truncated.jpg": "", "truncated.png": "", "random.jpg": "not an image",
 		"bomb.png": "exceeds the limit", "one-pixel.png": "", "sliver.png": "", "all-black.jpg": "no spectrum band",
 		"all-white.png": "", "no-spectrum.png": "no spectrum band", `name-\xff\xfe.jpg`: "not an image",
+		`new\nline.jpg`: "not an image",
 	}
 }
 

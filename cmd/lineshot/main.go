@@ -11,6 +11,9 @@ import (
 	"io"
 	"os"
 	"os/signal"
+	"strconv"
+	"strings"
+	"unicode"
 
 	"github.com/spf13/pflag"
 )
@@ -81,15 +84,33 @@ func exitCode(err error, stderr io.Writer) int {
 	case err == nil, errors.Is(err, pflag.ErrHelp):
 		return exitOK
 	case errors.As(err, &ue):
-		fmt.Fprintln(stderr, "lineshot:", err)
+		say(stderr, "lineshot: %v", err)
 		fmt.Fprintln(stderr, "lineshot: hint: run 'lineshot help' for the commands and their options")
 		return exitUsage
 	case errors.Is(err, errReported):
 		return exitFailed
 	default:
-		fmt.Fprintln(stderr, "lineshot:", err)
+		say(stderr, "lineshot: %v", err)
 		return exitFailed
 	}
+}
+
+// say writes one line to w, as fmt.Fprintf formats it, with any control
+// character in it (a newline in a file's name, say) written as an escape:
+// a reason on stderr stays one line however its file is named.
+func say(w io.Writer, format string, a ...any) {
+	line := fmt.Sprintf(format, a...)
+	var b strings.Builder
+	for _, r := range line {
+		if unicode.IsControl(r) {
+			q := strconv.QuoteRune(r)
+			b.WriteString(q[1 : len(q)-1])
+			continue
+		}
+		b.WriteRune(r)
+	}
+	b.WriteByte('\n')
+	io.WriteString(w, b.String())
 }
 
 // errReported means the failures were already printed, one line each.

@@ -217,7 +217,7 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		for _, r := range results {
 			if r.Error != "" {
 				failed++
-				fmt.Fprintf(stderr, "lineshot: %s\n", r.Error)
+				say(stderr, "lineshot: %s", r.Error)
 			}
 			doc.Images = append(doc.Images, r)
 		}
