@@ -104,6 +104,12 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 		fsf.Usage()
 		return usagef("batch: give --out OUTDIR and one input folder")
 	}
+	if err := outside("batch", "min-snr", *minSNR, 1, 1000, " (noise σ)"); err != nil {
+		return err
+	}
+	if err := outside("batch", "least-count", *lc, 0.01, 30, " arc-minutes"); err != nil {
+		return err
+	}
 	if *jobs < 1 || *jobs > 256 {
 		return usagef("batch: --jobs %d outside 1-256", *jobs)
 	}

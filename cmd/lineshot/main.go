@@ -9,6 +9,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"os/signal"
 	"strconv"
@@ -93,6 +94,17 @@ func exitCode(err error, stderr io.Writer) int {
 		say(stderr, "lineshot: %v", err)
 		return exitFailed
 	}
+}
+
+// outside is a usage error of command cmd for its option --name when v
+// lies outside [lo, hi] (unit names its unit), else nil: a threshold below
+// 1σ flooded a 2-million-sample profile with noise peaks for minutes, and
+// a negative one made a mercury photo "cfl".
+func outside(cmd, name string, v, lo, hi float64, unit string) error {
+	if v >= lo && v <= hi {
+		return nil
+	}
+	return usagef("%s: --%s %g outside %g-%g%s", cmd, name, v, lo, hi, unit)
 }
 
 // say writes one line to w, as fmt.Fprintf formats it, with any control
@@ -197,5 +209,16 @@ func parse(fs *pflag.FlagSet, args []string) error {
 		}
 		return usagef("%s: %v", fs.Name(), err)
 	}
-	return nil
+	// pflag takes "NaN" and "Inf" for numbers; no option here means either,
+	// and the range checks after this, comparisons all, would let NaN by.
+	var bad error
+	fs.Visit(func(f *pflag.Flag) {
+		if f.Value.Type() != "float64" || bad != nil {
+			return
+		}
+		if v, err := strconv.ParseFloat(f.Value.String(), 64); err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
+			bad = usagef("%s: --%s %s: want a finite number", fs.Name(), f.Name, f.Value.String())
+		}
+	})
+	return bad
 }

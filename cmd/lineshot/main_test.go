@@ -185,6 +185,24 @@ func TestMeasureBadInput(t *testing.T) {
 	if _, _, code := runCLI(t, "frobnicate"); code != exitUsage {
 		t.Errorf("unknown command: exit %d, want %d", code, exitUsage)
 	}
+	// Numbers no option means (NaN, infinities, negative thresholds) are
+	// usage errors, never a crash: --angle NaN panicked, --lines-per-mm NaN
+	// was taken, --min-snr -3 made the mercury photo "cfl".
+	prof := filepath.Join(t.TempDir(), "p.csv")
+	os.WriteFile(prof, []byte("intensity\n1\n5\n1\n"), 0o644)
+	readings := filepath.Join("..", "..", "testdata", "vernier", "class-b12.csv")
+	for _, args := range [][]string{
+		{"measure", "--angle", "NaN", good}, {"measure", "--min-snr", "NaN", good}, {"measure", "--min-snr", "-3", good},
+		{"measure", "--lines-per-mm", "NaN", good}, {"measure", "--lines-per-mm", "Inf", good}, {"measure", "--match-tolerance", "-1", good},
+		{"peaks", "--min-snr", "-2", "--profile", prof}, {"peaks", "--gain", "-1", "--profile", prof},
+		{"vernier", "--d-um", "-1", readings}, {"vernier", "--least-count", "NaN", readings},
+		{"batch", "--min-snr", "-1", "--out", filepath.Join(t.TempDir(), "o"), t.TempDir()},
+	} {
+		_, stderr, code := runCLI(t, args...)
+		if code != exitUsage || strings.Contains(stderr, "panic") || !strings.Contains(stderr, "--"+strings.TrimPrefix(args[1], "--")) {
+			t.Errorf("%v: exit %d, %s", args, code, stderr)
+		}
+	}
 	// A simulated frame larger than lineshot measures (it would take some
 	// 16 bytes a pixel to render) is refused before any is made.
 	if _, stderr, code := runCLI(t, "simulate", "--size", "12000x12000", "-o", filepath.Join(t.TempDir(), "x.jpg")); code != exitUsage || !strings.Contains(stderr, "up to 120") {

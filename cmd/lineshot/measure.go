@@ -131,6 +131,12 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	if *floor < 0 || *floor > 5 {
 		return usagef("measure: --position-floor %g outside 0-5 px", *floor)
 	}
+	if err := outside("measure", "min-snr", *minSNR, 1, 1000, " (noise σ)"); err != nil {
+		return err
+	}
+	if err := outside("measure", "match-tolerance", *tol, 0.01, 50, " nm"); err != nil {
+		return err
+	}
 	if *lpm < 0 || *lpm > 10000 {
 		return usagef("measure: --lines-per-mm %g outside 0-10000", *lpm)
 	}
@@ -149,7 +155,7 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	}
 	if *angle != "" {
 		a, err := strconv.ParseFloat(*angle, 64)
-		if err != nil || math.Abs(a) > 90 {
+		if err != nil || !(math.Abs(a) <= 90) { // (NaN too)
 			return usagef("measure: --angle %q: want degrees between -90 and 90", *angle)
 		}
 		cfg.imageOpts.FixAngle, cfg.imageOpts.AngleDeg = true, a

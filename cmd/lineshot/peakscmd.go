@@ -38,6 +38,12 @@ func runPeaks(args []string, stdout, stderr io.Writer) error {
 		fs.Usage()
 		return usagef("peaks: --profile FILE is required")
 	}
+	if err := outside("peaks", "min-snr", *minSNR, 1, 1000, " (noise σ)"); err != nil {
+		return err
+	}
+	if err := outside("peaks", "gain", *gain, 0, 1e9, " units per photoelectron"); err != nil {
+		return err
+	}
 	f, err := os.Open(*path)
 	if err != nil {
 		return err

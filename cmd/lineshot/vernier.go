@@ -47,6 +47,12 @@ func runVernier(args []string, stdout, stderr io.Writer) error {
 		fs.Usage()
 		return usagef("vernier: give one readings file")
 	}
+	if err := outside("vernier", "d-um", *dUM, 0, 1000, " µm"); err != nil {
+		return err
+	}
+	if err := outside("vernier", "lines-per-mm", *lpm, 0, 10000, ""); err != nil {
+		return err
+	}
 	if *dUM > 0 {
 		if *lpm > 0 {
 			return usagef("vernier: give --lines-per-mm or --d-um, not both")
