@@ -82,7 +82,7 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	photoThreads := fsf.Int("photo-threads", 0, "goroutines sharing the work on one photo (default: the CPUs left over by --jobs, at least 1)")
 	quiet := fsf.BoolP("quiet", "q", false, "no progress bar")
 	shard := fsf.String("shard", "", "measure only part i of n of the benches (i/n, 1-based), for spreading a large archive over machines")
-	minSNR := fsf.Float64("min-snr", 5, "least line height and prominence, in units of the profile noise")
+	minSNR := fsf.Float64("min-snr", 5, "least line height and prominence, in units of the profile noise (1-1000)")
 	readings := fsf.String("readings", "", "a class's vernier readings (CSV, see 'lineshot help vernier'), checked against the photos of the same benches and added to the report")
 	lc := fsf.Float64("least-count", 1, "with --readings: the vernier least count, arc-minutes")
 	if err := parse(fsf, args); err != nil {

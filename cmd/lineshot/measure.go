@@ -110,7 +110,7 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	model := fs.String("model", "", "dispersion model: poly1, poly2, poly3, grating or grating-lens (with radial lens distortion); default: chosen by AICc")
 	lpm := fs.Float64("lines-per-mm", 0, "nominal grating ruling; the grating model then treats it as a measurement (±3 %)")
 	lineFiles := fs.StringArray("lines", nil, "extra reference lamp from a CSV line list (header with nm[,name,strength,sigma_nm,source]); the lamp is named after the file; repeatable")
-	minSNR := fs.Float64("min-snr", 5, "least line height and prominence, in units of the profile noise")
+	minSNR := fs.Float64("min-snr", 5, "least line height and prominence, in units of the profile noise (1-1000)")
 	tol := fs.Float64("match-tolerance", 1.0, "largest distance in nm between a calibrated line and its reference line")
 	floor := fs.Float64("position-floor", 0, "least systematic centroid uncertainty, px, added in quadrature; the calibration estimates its own from its residuals")
 	linear := fs.Bool("linear", false, "pixel values are linear in intensity (do not undo the sRGB curve)")

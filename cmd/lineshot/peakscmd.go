@@ -28,7 +28,7 @@ Examples:
 func runPeaks(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("peaks", peaksUsage, stderr)
 	path := fs.String("profile", "", "profile CSV to read")
-	minSNR := fs.Float64("min-snr", 5, "least line height and prominence, in units of the profile noise")
+	minSNR := fs.Float64("min-snr", 5, "least line height and prominence, in units of the profile noise (1-1000)")
 	gain := fs.Float64("gain", 0, "profile units per detected photoelectron, to weight by shot noise; 0: unknown")
 	asJSON := fs.Bool("json", false, "print JSON instead of a table")
 	if err := parse(fs, args); err != nil {
