@@ -91,8 +91,14 @@ const decodeStripe = 512
 // own bit depth). On failure there is no Mat to close and the error names
 // the file and the reason.
 func decodeFrame(path, format string) (gocv.Mat, error) {
+	return decodeFramePlanned(path, format, nil)
+}
+
+// decodeFramePlanned is decodeFrame with decodeRows's plan for a JPEG the
+// row decoder takes (plan is not called for any other photo).
+func decodeFramePlanned(path, format string, plan func(m gocv.Mat) (each func(y0, y1 int), wait func())) (gocv.Mat, error) {
 	if format == "jpeg" {
-		m, ok, err := decodeRows(path, nil)
+		m, ok, err := decodeRows(path, plan)
 		if err != nil {
 			return gocv.Mat{}, jpegError(path, err)
 		}
@@ -162,20 +168,16 @@ func decodeAndReduce(path, format string, workers int) (m gocv.Mat, small *gocv.
 		}
 		return func(y0, y1 int) { todo <- [2]int{y0, y1} }, wait
 	}
-	m, ok, err := decodeRows(path, plan)
+	m, err = decodeFramePlanned(path, format, plan)
 	if t1.IsZero() {
-		t1 = time.Now()
+		t1 = time.Now() // (no plan was made, or the photo went to imread)
 	}
 	decoded, waited = t1.Sub(t0), time.Since(t1)
 	if err != nil {
 		if made {
 			out.Close()
 		}
-		return gocv.Mat{}, nil, decoded, 0, jpegError(path, err)
-	}
-	if !ok { // (plan was not called: nothing made)
-		m, err = imreadOK(path)
-		return m, nil, time.Since(t0), 0, err
+		return gocv.Mat{}, nil, decoded, 0, err
 	}
 	if !made {
 		return m, nil, decoded, 0, nil
