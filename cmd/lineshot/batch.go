@@ -1070,9 +1070,8 @@ func runMerge(args []string, stdout, stderr io.Writer) error {
 	}
 	// Every part is read and checked before anything is written.
 	merged := batchDoc{Tool: "lineshot", Schema: 1}
-	seen := map[string]string{}
-	var roots []string
 	from := map[string]string{} // bench → its part folder
+	var roots []string
 	for _, part := range fsf.Args() {
 		path := filepath.Join(part, "results.json")
 		raw, err := os.ReadFile(path)
@@ -1085,10 +1084,10 @@ func runMerge(args []string, stdout, stderr io.Writer) error {
 		}
 		roots = append(roots, d.Root)
 		for _, b := range d.Benches {
-			if prev, dup := seen[b.Name]; dup {
+			if prev, dup := from[b.Name]; dup {
 				return fmt.Errorf("%s: bench %q is also in %s: the parts overlap", path, b.Name, prev)
 			}
-			seen[b.Name], from[b.Name] = part, part
+			from[b.Name] = part
 			merged.Benches = append(merged.Benches, b)
 		}
 		merged.Failures = append(merged.Failures, d.Failures...)
