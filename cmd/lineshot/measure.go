@@ -1,6 +1,7 @@
 package main
 
 import (
+	"cmp"
 	"context"
 	"encoding/json"
 	"errors"
@@ -128,17 +129,13 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		fs.Usage()
 		return usagef("measure: no photo given")
 	}
-	if *floor < 0 || *floor > 5 {
-		return usagef("measure: --position-floor %g outside 0-5 px", *floor)
-	}
-	if err := outside("measure", "min-snr", *minSNR, 1, 1000, " (noise σ)"); err != nil {
+	if err := cmp.Or(
+		outside("measure", "position-floor", *floor, 0, 5, " px"),
+		outside("measure", "min-snr", *minSNR, 1, 1000, " (noise σ)"),
+		outside("measure", "match-tolerance", *tol, 0.01, 50, " nm"),
+		outside("measure", "lines-per-mm", *lpm, 0, 10000, ""),
+	); err != nil {
 		return err
-	}
-	if err := outside("measure", "match-tolerance", *tol, 0.01, 50, " nm"); err != nil {
-		return err
-	}
-	if *lpm < 0 || *lpm > 10000 {
-		return usagef("measure: --lines-per-mm %g outside 0-10000", *lpm)
 	}
 	cfg := measureConfig{lamp: *lamp, calLamp: *calLamp, model: *model, minSNR: *minSNR, linear: *linear, tolNM: *tol, floorPX: *floor,
 		linesPerMM: *lpm, imageOpts: imaging.Options{Linear: *linear}, dark: *dark, bands: *bands}
