@@ -500,10 +500,7 @@ func isOutputFolder(dir string) bool {
 // would wait for a writer) of JSON whose first field says "tool":
 // "lineshot", as a batch's results.json begins.
 func namesLineshot(path string) bool {
-	if fi, err := os.Stat(path); err != nil || !fi.Mode().IsRegular() {
-		return false
-	}
-	f, err := os.Open(path)
+	f, err := openRegular(path)
 	if err != nil {
 		return false
 	}
@@ -516,6 +513,23 @@ func namesLineshot(path string) bool {
 		}
 	}
 	return tok[0] == json.Delim('{') && tok[1] == "tool" && tok[2] == "lineshot"
+}
+
+// errNotRegular is openRegular's refusal.
+var errNotRegular = errors.New("not a regular file")
+
+// openRegular opens path for reading when it is a regular file, and
+// refuses with errNotRegular a named pipe (opening one waits for a
+// writer), socket or device; a file not found is os.Stat's error.
+func openRegular(path string) (*os.File, error) {
+	fi, err := os.Stat(path)
+	if err != nil {
+		return nil, err
+	}
+	if !fi.Mode().IsRegular() {
+		return nil, errNotRegular
+	}
+	return os.Open(path)
 }
 
 // errText is an error's text without the path the caller prints anyway.
@@ -571,12 +585,12 @@ func (s benchSettings) isDark(name string) bool {
 // readSettings reads a bench settings file; a missing file is no error.
 func readSettings(path string) (benchSettings, error) {
 	st := benchSettings{Lamps: map[string]string{}, Exclude: map[string]bool{}}
-	if fi, err := os.Stat(path); err == nil && !fi.Mode().IsRegular() {
-		return st, errors.New("not a regular file") // (a named pipe would wait for a writer)
-	}
-	f, err := os.Open(path)
+	f, err := openRegular(path)
 	if errors.Is(err, fs.ErrNotExist) {
 		return st, nil
+	}
+	if errors.Is(err, errNotRegular) {
+		return st, err
 	}
 	if err != nil {
 		return st, errors.New("cannot read: " + errText(err))
