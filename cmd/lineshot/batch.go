@@ -353,6 +353,7 @@ type photoJob struct {
 func discover(root, out string) (benches []bench, fails []failure, passed []string) {
 	absOut, _ := filepath.Abs(out)
 	byDir := map[string]*bench{}
+	readable := map[string][]string{} // folder → its photos' names without ending, read once (readableBases)
 	var order []string
 	filepath.WalkDir(root, func(p string, d fs.DirEntry, err error) error {
 		if p != root && d != nil && notUsers(d.Name()) {
@@ -381,7 +382,11 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 		if why := imaging.Unreadable(p); why != "" {
 			// A raw or HEIC photo: said so, unless the camera saved a
 			// JPEG (or other photo lineshot reads) of it beside it.
-			if !hasReadableTwin(p) {
+			dir := filepath.Dir(p)
+			if _, ok := readable[dir]; !ok {
+				readable[dir] = readableBases(dir)
+			}
+			if !hasTwin(readable[dir], p) {
 				fails = append(fails, failure{File: displayName(p), Reason: why})
 			}
 			return nil
@@ -432,18 +437,30 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 	return benches, fails, passed
 }
 
-// hasReadableTwin reports whether the folder of path holds a photo
-// lineshot reads by the same name, up to its ending (IMG_0001.CR2 beside
-// IMG_0001.JPG, as a camera saving both writes them).
-func hasReadableTwin(path string) bool {
-	base := strings.TrimSuffix(filepath.Base(path), filepath.Ext(path))
-	ents, err := os.ReadDir(filepath.Dir(path))
+// readableBases lists the names, without their endings, of the photos
+// lineshot reads in folder dir (none when it cannot be read).
+func readableBases(dir string) []string {
+	bases := []string{} // (not nil: a folder read and empty is known too)
+	ents, err := os.ReadDir(dir)
 	if err != nil {
-		return false
+		return bases
 	}
 	for _, e := range ents {
 		n := e.Name()
-		if strings.EqualFold(strings.TrimSuffix(n, filepath.Ext(n)), base) && imageExts[strings.ToLower(filepath.Ext(n))] {
+		if imageExts[strings.ToLower(filepath.Ext(n))] {
+			bases = append(bases, strings.TrimSuffix(n, filepath.Ext(n)))
+		}
+	}
+	return bases
+}
+
+// hasTwin reports whether bases (readableBases of path's folder) holds
+// path's name up to its ending, in any case: IMG_0001.CR2 beside
+// IMG_0001.JPG, as a camera saving both writes them.
+func hasTwin(bases []string, path string) bool {
+	base := strings.TrimSuffix(filepath.Base(path), filepath.Ext(path))
+	for _, b := range bases {
+		if strings.EqualFold(b, base) {
 			return true
 		}
 	}
