@@ -11,14 +11,22 @@ import (
 	"time"
 )
 
-// A real SIGINT to a running batch (the built binary, as a user's Ctrl-C):
-// it stops after the photo in hand, writes complete outputs, leaves no
-// half-written file, and the next run finishes the rest without redoing it.
-func TestBatchSIGINT(t *testing.T) {
+// buildLineshot builds the command into the test's temp folder, for the
+// tests that need a process of its own (signals, its standard output).
+func buildLineshot(t *testing.T) string {
+	t.Helper()
 	bin := filepath.Join(t.TempDir(), "lineshot")
 	if out, err := exec.Command("go", "build", "-o", bin, ".").CombinedOutput(); err != nil {
 		t.Fatalf("build: %v\n%s", err, out)
 	}
+	return bin
+}
+
+// A real SIGINT to a running batch (the built binary, as a user's Ctrl-C):
+// it stops after the photo in hand, writes complete outputs, leaves no
+// half-written file, and the next run finishes the rest without redoing it.
+func TestBatchSIGINT(t *testing.T) {
+	bin := buildLineshot(t)
 	root := makeLab(t)
 	// More photos, so that the signal lands midway.
 	for i := 0; i < 6; i++ {
@@ -123,10 +131,7 @@ func TestOutputToFullDisk(t *testing.T) {
 		t.Skip("no /dev/full here")
 	}
 	defer full.Close()
-	bin := filepath.Join(t.TempDir(), "lineshot")
-	if out, err := exec.Command("go", "build", "-o", bin, ".").CombinedOutput(); err != nil {
-		t.Fatalf("build: %v\n%s", err, out)
-	}
+	bin := buildLineshot(t)
 	for _, args := range [][]string{{"lines", "mercury"}, {"measure", filepath.Join("..", "..", "testdata", "demo", "bench2", "mercury.jpg")}} {
 		cmd := exec.Command(bin, args...)
 		cmd.Stdout = full
