@@ -68,6 +68,12 @@ for k in $(seq 0 9); do
     for f in "$b"/*.jpg; do ln "$f" "$tmp/thousand/r$k/$(basename "$b")/" 2>/dev/null || cp "$f" "$tmp/thousand/r$k/$(basename "$b")/"; done
   done
 done
+# Page faults a photo with one worker and with two (less the idle
+# program's): memory handed back and faulted in again shows here.
+f0=$(bin/peakrss -faults bin/lineshot help 2>/dev/null | tail -1)
+f1=$(bin/peakrss -faults bin/lineshot batch -j 1 --photo-threads 1 --quiet --out "$tmp/of1" "$class" 2>/dev/null | tail -1)
+f2=$(bin/peakrss -faults bin/lineshot batch -j 2 --quiet --out "$tmp/of2" "$class" 2>/dev/null | tail -1)
+awk -v a="$f0" -v b="$f1" -v c="$f2" 'BEGIN { printf "page faults a photo, batch of 100 1080p photos: %.0f with 1 worker, %.0f with 2\n", (b - a) / 100, (c - a) / 100 }'
 p100=$(bin/peakrss bin/lineshot batch -j 2 --quiet --out "$tmp/o100" "$class" 2>/dev/null | tail -1)
 p1000=$(bin/peakrss bin/lineshot batch -j 2 --quiet --out "$tmp/o1000" "$tmp/thousand" 2>/dev/null | tail -1)
 awk -v a="$p100" -v b="$p1000" 'BEGIN { printf "peak RSS, batch of 100 photos %.0f MiB, of 1000 photos %.0f MiB: %.2f times\n", a/1024, b/1024, b/a }'

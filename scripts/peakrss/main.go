@@ -1,5 +1,6 @@
 // Command peakrss runs a command and prints its peak resident memory
-// (getrusage ru_maxrss of the child), for scripts/bench.sh.
+// (getrusage ru_maxrss of the child), for scripts/bench.sh; with -faults
+// first, the child's minor page faults instead (ru_minflt).
 package main
 
 import (
@@ -11,10 +12,18 @@ import (
 
 func main() {
 	if len(os.Args) < 2 {
-		fmt.Fprintln(os.Stderr, "usage: peakrss COMMAND [ARG...]")
+		fmt.Fprintln(os.Stderr, "usage: peakrss [-faults] COMMAND [ARG...]")
 		os.Exit(2)
 	}
-	cmd := exec.Command(os.Args[1], os.Args[2:]...)
+	args, faults := os.Args[1:], false
+	if args[0] == "-faults" {
+		args, faults = args[1:], true
+	}
+	if len(args) == 0 {
+		fmt.Fprintln(os.Stderr, "usage: peakrss [-faults] COMMAND [ARG...]")
+		os.Exit(2)
+	}
+	cmd := exec.Command(args[0], args[1:]...)
 	cmd.Stdout, cmd.Stderr = os.Stderr, os.Stderr
 	err := cmd.Run()
 	ru, ok := cmd.ProcessState.SysUsage().(*syscall.Rusage)
@@ -22,7 +31,11 @@ func main() {
 		fmt.Fprintln(os.Stderr, "peakrss: no resource usage on this system")
 		os.Exit(1)
 	}
-	fmt.Println(ru.Maxrss) // KiB on Linux
+	if faults {
+		fmt.Println(ru.Minflt)
+	} else {
+		fmt.Println(ru.Maxrss) // KiB on Linux
+	}
 	if err != nil {
 		os.Exit(1)
 	}
