@@ -11,6 +11,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"runtime"
 	"strings"
 	"syscall"
 	"testing"
@@ -592,5 +593,25 @@ func TestDiscoverPassesOverOutputFolders(t *testing.T) {
 	}
 	if len(passed) != 2 || filepath.Base(passed[0]) != "results-monday" || filepath.Base(passed[1]) != "stopped" {
 		t.Errorf("passed over %q", passed)
+	}
+}
+
+// spareProc adds a P only while every P is busy measuring, and puts the
+// number back; the batch's results do not depend on it (the workers are
+// counted before it, TestBatchOverALab checks the results).
+func TestSpareProc(t *testing.T) {
+	n := runtime.GOMAXPROCS(0)
+	restore := spareProc(n - 1)
+	if got := runtime.GOMAXPROCS(0); got != n {
+		t.Errorf("with a P idle: GOMAXPROCS %d, want %d unchanged", got, n)
+	}
+	restore()
+	restore = spareProc(n)
+	if got := runtime.GOMAXPROCS(0); got != n+1 {
+		t.Errorf("with every P busy: GOMAXPROCS %d, want %d", got, n+1)
+	}
+	restore()
+	if got := runtime.GOMAXPROCS(0); got != n {
+		t.Errorf("after the batch: GOMAXPROCS %d, want %d back", got, n)
 	}
 }
