@@ -107,7 +107,7 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	if err := outside("batch", "min-snr", *minSNR, 1, 1000, " (noise σ)"); err != nil {
 		return err
 	}
-	if err := outside("batch", "least-count", *lc, 0.01, 30, " arc-minutes"); err != nil {
+	if err := outside("batch", "least-count", *lc, minLeastCount, 30, " arc-minutes"); err != nil {
 		return err
 	}
 	if *jobs < 1 || *jobs > 256 {

@@ -96,6 +96,11 @@ func exitCode(err error, stderr io.Writer) int {
 	}
 }
 
+// minLeastCount is the smallest vernier least count the vernier and batch
+// commands take, in arc-minutes (0.6″: the finest verniers of teaching
+// spectrometers read to about 0.1′, from memory); 30′ is their largest.
+const minLeastCount = 0.01
+
 // outside is a usage error of command cmd for its option --name when v
 // lies outside [lo, hi] (unit names its unit), else nil: a threshold below
 // 1σ flooded a 2-million-sample profile with noise peaks for minutes, and

@@ -196,6 +196,8 @@ func TestMeasureBadInput(t *testing.T) {
 		{"measure", "--lines-per-mm", "NaN", good}, {"measure", "--lines-per-mm", "Inf", good}, {"measure", "--match-tolerance", "-1", good},
 		{"peaks", "--min-snr", "-2", "--profile", prof}, {"peaks", "--gain", "-1", "--profile", prof},
 		{"vernier", "--d-um", "-1", readings}, {"vernier", "--least-count", "NaN", readings},
+		{"vernier", "--least-count", "0.001", readings}, {"vernier", "--least-count", "31", readings},
+		{"batch", "--least-count", "0.001", "--out", filepath.Join(t.TempDir(), "o"), t.TempDir()},
 		{"batch", "--min-snr", "-1", "--out", filepath.Join(t.TempDir(), "o"), t.TempDir()},
 	} {
 		_, stderr, code := runCLI(t, args...)

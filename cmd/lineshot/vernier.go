@@ -59,8 +59,9 @@ func runVernier(args []string, stdout, stderr io.Writer) error {
 		}
 		*lpm = 1e3 / *dUM
 	}
-	if *lc <= 0 || *lc > 30 {
-		return usagef("vernier: --least-count %g outside (0, 30] arc-minutes", *lc)
+	// The batch's range (its --readings): below 0.6″ is no vernier's.
+	if err := outside("vernier", "least-count", *lc, minLeastCount, 30, " arc-minutes"); err != nil {
+		return err
 	}
 	path := fs.Arg(0)
 	f, err := os.Open(path)
