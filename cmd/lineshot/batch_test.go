@@ -596,19 +596,21 @@ func TestDiscoverPassesOverOutputFolders(t *testing.T) {
 	}
 }
 
-// spareProc adds a P only while every P is busy measuring, and puts the
-// number back; the batch's results do not depend on it (the workers are
-// counted before it, TestBatchOverALab checks the results).
+// spareProc adds a P only while every P measures a photo on one goroutine,
+// and puts the number back; the batch's results do not depend on it (the
+// workers are counted before it, TestBatchOverALab checks the results).
 func TestSpareProc(t *testing.T) {
 	n := runtime.GOMAXPROCS(0)
-	restore := spareProc(n - 1)
-	if got := runtime.GOMAXPROCS(0); got != n {
-		t.Errorf("with a P idle: GOMAXPROCS %d, want %d unchanged", got, n)
+	for _, c := range []struct{ jobs, perPhoto int }{{n - 1, 1}, {1, n}, {n, 2}} {
+		restore := spareProc(c.jobs, c.perPhoto)
+		if got := runtime.GOMAXPROCS(0); got != n {
+			t.Errorf("%d jobs of %d goroutines: GOMAXPROCS %d, want %d unchanged", c.jobs, c.perPhoto, got, n)
+		}
+		restore()
 	}
-	restore()
-	restore = spareProc(n)
+	restore := spareProc(n, 1)
 	if got := runtime.GOMAXPROCS(0); got != n+1 {
-		t.Errorf("with every P busy: GOMAXPROCS %d, want %d", got, n+1)
+		t.Errorf("with every P measuring a photo: GOMAXPROCS %d, want %d", got, n+1)
 	}
 	restore()
 	if got := runtime.GOMAXPROCS(0); got != n {
