@@ -14,6 +14,7 @@ import (
 	"os/signal"
 	"strconv"
 	"strings"
+	"syscall"
 	"unicode"
 
 	"github.com/spf13/pflag"
@@ -66,12 +67,22 @@ func (c *checkedWriter) Write(p []byte) (int, error) {
 // outputs. It says so on stderr, and a second Ctrl-C then ends the
 // process at once, as Ctrl-C usually does (every file is written
 // atomically: a file being written is left as it was, or not made).
+// SIGTERM (kill, timeout, a machine shutting down) and SIGHUP (the
+// terminal or the SSH session gone) are taken the same way: by default they
+// ended the process at once, leaving the photos in hand unmeasured, this
+// run's outputs unwritten and any file being written as a hidden
+// temporary beside it.
 func interruptible(stderr io.Writer) (context.Context, context.CancelFunc) {
-	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM, syscall.SIGHUP)
 	go func() {
 		<-ctx.Done()
-		if context.Cause(ctx) != context.Canceled { // a signal, not stop()
+		cause := context.Cause(ctx)
+		switch {
+		case cause == context.Canceled: // stop(), not a signal
+		case strings.HasPrefix(cause.Error(), "interrupt"):
 			fmt.Fprintln(stderr, "lineshot: stopping after the work in hand (Ctrl-C again to stop at once)")
+		default:
+			fmt.Fprintf(stderr, "lineshot: %v: stopping after the work in hand (a second signal stops at once)\n", cause)
 		}
 		stop()
 	}()

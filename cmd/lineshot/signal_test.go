@@ -22,11 +22,19 @@ func buildLineshot(t *testing.T) string {
 	return bin
 }
 
-// A real SIGINT to a running batch (the built binary, as a user's Ctrl-C):
-// it stops after the photo in hand, writes complete outputs, leaves no
-// half-written file, and the next run finishes the rest without redoing it.
+// A real SIGINT to a running batch (the built binary, as a user's Ctrl-C),
+// a SIGTERM (kill, a shutdown) and a SIGHUP (the terminal closed): each
+// stops it after the photo in hand; it writes complete outputs, leaves no
+// half-written file, and the next run finishes the rest without redoing
+// it. (SIGTERM and SIGHUP used to end it at once.)
 func TestBatchSIGINT(t *testing.T) {
 	bin := buildLineshot(t)
+	for _, sig := range []syscall.Signal{syscall.SIGINT, syscall.SIGTERM, syscall.SIGHUP} {
+		t.Run(sig.String(), func(t *testing.T) { batchStoppedBy(t, bin, sig) })
+	}
+}
+
+func batchStoppedBy(t *testing.T, bin string, sig syscall.Signal) {
 	root := makeLab(t)
 	// More photos, so that the signal lands midway.
 	for i := 0; i < 6; i++ {
@@ -47,12 +55,12 @@ func TestBatchSIGINT(t *testing.T) {
 		}
 		time.Sleep(20 * time.Millisecond)
 	}
-	cmd.Process.Signal(syscall.SIGINT)
+	cmd.Process.Signal(sig)
 	err := cmd.Wait()
 	if ee, ok := err.(*exec.ExitError); !ok || ee.ExitCode() != exitFailed {
 		t.Fatalf("exit: %v\n%s", err, stderr.String())
 	}
-	if !strings.Contains(stderr.String(), "interrupted") {
+	if !strings.Contains(stderr.String(), "interrupted") || !strings.Contains(stderr.String(), "stopping after the work in hand") {
 		t.Errorf("stderr: %s", stderr.String())
 	}
 	readBatch(t, out) // complete and parseable
