@@ -206,11 +206,15 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 			}
 		}
 	}
-	failed := 0
+	failed, measured := 0, 0
 	for _, path := range photos {
-		if err := ctx.Err(); err != nil {
-			return err
+		if ctx.Err() != nil {
+			// Interrupted (Ctrl-C, SIGTERM): the photos measured so far
+			// are printed (a complete JSON document of them with --json),
+			// not thrown away.
+			break
 		}
+		measured++
 		results := []imageResult{}
 		if cfg.bands {
 			results = measureBands(path, cal, cfg)
@@ -233,6 +237,10 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		}
 	} else {
 		printResults(stdout, doc)
+	}
+	if measured < len(photos) {
+		say(stderr, "lineshot: interrupted: %d of %d photos measured, their results given; run again for the rest", measured, len(photos))
+		return errReported
 	}
 	if failed > 0 {
 		return errReported

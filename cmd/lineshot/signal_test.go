@@ -2,6 +2,9 @@ package main
 
 import (
 	"bytes"
+	"context"
+	"encoding/json"
+	"fmt"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -152,5 +155,46 @@ func TestOutputToFullDisk(t *testing.T) {
 		if !strings.Contains(stderr.String(), "no space left on device") || strings.Count(stderr.String(), "\n") != 1 {
 			t.Errorf("%v: stderr %q", args, stderr.String())
 		}
+	}
+}
+
+// cancelAfter is a context whose Err reports nil n times and then
+// context.Canceled: an interruption that lands after n photos, with no
+// timing involved.
+type cancelAfter struct {
+	context.Context
+	n int
+}
+
+func (c *cancelAfter) Err() error {
+	if c.n > 0 {
+		c.n--
+		return nil
+	}
+	return context.Canceled
+}
+
+// measure interrupted after the first of three photos gives that photo's
+// result (a complete JSON document), says how far it got, and exits 1;
+// it used to print nothing and "context canceled".
+func TestMeasureInterruptedKeepsWhatWasMeasured(t *testing.T) {
+	dir := t.TempDir()
+	var photos []string
+	for i := range 3 {
+		p, _ := simulate(t, dir, fmt.Sprintf("hg%d.jpg", i), "--lamp", "mercury", "--seed", fmt.Sprint(20+i))
+		photos = append(photos, p)
+	}
+	var out, errb bytes.Buffer
+	err := run(&cancelAfter{Context: context.Background(), n: 1}, append([]string{"measure", "--json"}, photos...), &out, &errb)
+	code := exitCode(err, &errb)
+	var doc document
+	if jerr := json.Unmarshal(out.Bytes(), &doc); jerr != nil {
+		t.Fatalf("stdout is not a JSON document: %v\n%s", jerr, out.String())
+	}
+	if code != exitFailed || len(doc.Images) != 1 || doc.Images[0].File != photos[0] || doc.Images[0].Lamp != "mercury" {
+		t.Errorf("exit %d, %d images (%+v)", code, len(doc.Images), doc.Images)
+	}
+	if !strings.Contains(errb.String(), "interrupted: 1 of 3 photos measured") || strings.Contains(errb.String(), "context canceled") {
+		t.Errorf("stderr: %s", errb.String())
 	}
 }
