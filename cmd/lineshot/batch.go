@@ -88,6 +88,14 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	if err := parse(fsf, args); err != nil {
 		return err
 	}
+	for _, name := range []string{"results.json", "results.csv", "report.html"} {
+		if *out == "" {
+			break
+		}
+		if err := clobbers("batch", "--out", filepath.Join(*out, name), *readings); err != nil {
+			return err
+		}
+	}
 	var class []vernier.Reading
 	if *readings != "" {
 		f, err := os.Open(*readings)

@@ -212,6 +212,52 @@ func TestMeasureBadInput(t *testing.T) {
 	}
 }
 
+// An output option naming a file the command reads (by its name or
+// through a link) is a usage error, and the file stays as it was: a
+// typo'd --save-calibration turned the calibration photo into JSON, and
+// vernier --csv would have replaced a class's readings with its table.
+func TestOutputsNeverReplaceInputs(t *testing.T) {
+	dir := t.TempDir()
+	copyIn := func(src string) string {
+		b, err := os.ReadFile(src)
+		if err != nil {
+			t.Fatal(err)
+		}
+		p := filepath.Join(dir, filepath.Base(src))
+		os.WriteFile(p, b, 0o644)
+		return p
+	}
+	hg := copyIn(filepath.Join("..", "..", "testdata", "demo", "bench2", "mercury.jpg"))
+	h := copyIn(filepath.Join("..", "..", "testdata", "demo", "bench2", "hydrogen.jpg"))
+	readings := copyIn(filepath.Join("..", "..", "testdata", "vernier", "class-b12.csv"))
+	link := filepath.Join(dir, "link.jpg")
+	if err := os.Symlink(h, link); err != nil {
+		t.Fatal(err)
+	}
+	out := filepath.Join(dir, "out")
+	os.MkdirAll(out, 0o755)
+	inOut := filepath.Join(out, "results.csv")
+	os.WriteFile(inOut, []byte("bench,observer,line,deg,arcmin\n"), 0o644)
+	for _, c := range []struct {
+		args []string
+		kept string
+	}{
+		{[]string{"measure", "--calibration-from", hg, "--save-calibration", hg}, hg},
+		{[]string{"measure", "--calibration-from", hg, "--save-strip", link, h}, h},
+		{[]string{"vernier", "--csv", readings, readings}, readings},
+		{[]string{"batch", "--readings", inOut, "--out", out, dir}, inOut},
+	} {
+		before := digest(t, c.kept)
+		_, stderr, code := runCLI(t, c.args...)
+		if code != exitUsage || !strings.Contains(stderr, "a file this command reads") {
+			t.Errorf("%v: exit %d, %s", c.args, code, stderr)
+		}
+		if digest(t, c.kept) != before {
+			t.Errorf("%v: %s was changed", c.args, c.kept)
+		}
+	}
+}
+
 // A saved calibration applies like the photo it came from; one edited
 // into nonsense is refused with a message naming it.
 func TestCalibrationFileRoundTrip(t *testing.T) {

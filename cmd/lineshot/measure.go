@@ -11,6 +11,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"strconv"
 	"strings"
 
@@ -129,7 +130,10 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		fs.Usage()
 		return usagef("measure: no photo given")
 	}
+	inputs := slices.Concat(fs.Args(), *calFrom, *lineFiles, *dark)
 	if err := cmp.Or(
+		clobbers("measure", "--save-calibration", *saveCal, inputs...),
+		clobbers("measure", "--save-strip", *saveStrip, inputs...),
 		outside("measure", "position-floor", *floor, 0, 5, " px"),
 		outside("measure", "min-snr", *minSNR, 1, 1000, " (noise σ)"),
 		outside("measure", "match-tolerance", *tol, 0.01, 50, " nm"),

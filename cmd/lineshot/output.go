@@ -77,6 +77,28 @@ func errNoPath(err error) error {
 	return err
 }
 
+// clobbers is a usage error of command cmd when the file its option
+// would write, out, is already one of the files it reads (inputs), by
+// any name (os.SameFile: a link or another path to it too): writing it
+// would replace the user's photo or readings. `measure --calibration-from
+// hg.jpg --save-calibration hg.jpg` turned the photo into JSON. Nil when
+// out is not given or not there yet.
+func clobbers(cmd, option, out string, inputs ...string) error {
+	if out == "" {
+		return nil
+	}
+	oi, err := os.Stat(out)
+	if err != nil {
+		return nil
+	}
+	for _, in := range inputs {
+		if ii, err := os.Stat(in); err == nil && os.SameFile(oi, ii) {
+			return usagef("%s: %s %s is a file this command reads (%s): give the output a name of its own", cmd, option, out, in)
+		}
+	}
+	return nil
+}
+
 func writeJSONAtomic(path string, v any) error {
 	return writeFileAtomic(path, func(w io.Writer) error { return encodeJSON(w, v) })
 }

@@ -64,6 +64,9 @@ func runVernier(args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	path := fs.Arg(0)
+	if err := clobbers("vernier", "--csv", *csvOut, path, *against); err != nil {
+		return err
+	}
 	f, err := os.Open(path)
 	if err != nil {
 		return err
