@@ -1109,6 +1109,13 @@ func runMerge(args []string, stdout, stderr io.Writer) error {
 		fsf.Usage()
 		return usagef("merge: give --out OUTDIR and the batch output folders to join")
 	}
+	for _, part := range fsf.Args() {
+		// Merged into a part, the part's own results would be replaced
+		// by the whole, and it could not be merged again.
+		if sameFolder(part, *out) {
+			return usagef("merge: --out %s is one of the parts: give the merged results a folder of their own", *out)
+		}
+	}
 	// Every part is read and checked before anything is written.
 	merged := batchDoc{Tool: "lineshot", Schema: 1}
 	from := map[string]string{} // bench → its part folder

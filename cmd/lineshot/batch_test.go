@@ -311,6 +311,15 @@ func TestBatchShardsMerge(t *testing.T) {
 	if _, _, code := runCLI(t, "merge", "--out", filepath.Join(dir, "again"), parts[0], parts[0]); code == 0 {
 		t.Error("merging a part with itself should be refused")
 	}
+	// Merged into one of its parts, the part's results would be replaced
+	// by the whole: refused, the part as it was.
+	before := digest(t, filepath.Join(parts[0], "results.json"))
+	if _, stderr, code := runCLI(t, append([]string{"merge", "--out", parts[0] + "/."}, parts...)...); code != exitUsage || !strings.Contains(stderr, "one of the parts") {
+		t.Errorf("merge into a part: exit %d, %s", code, stderr)
+	}
+	if digest(t, filepath.Join(parts[0], "results.json")) != before {
+		t.Error("merging into a part changed its results.json")
+	}
 	// Refused parts leave no output folder behind.
 	if _, err := os.Stat(filepath.Join(dir, "again")); !os.IsNotExist(err) {
 		t.Errorf("a refused merge made its output folder (%v)", err)
