@@ -863,7 +863,11 @@ type benchResult struct {
 }
 
 func (b benchResult) summaryLine() string {
-	s := fmt.Sprintf("%s: %d calibration, %d other photos", b.Name, len(b.CalPhotos), len(b.Photos))
+	other := "photos"
+	if len(b.Photos) == 1 {
+		other = "photo"
+	}
+	s := fmt.Sprintf("%s: %d calibration, %d other %s", b.Name, len(b.CalPhotos), len(b.Photos), other)
 	if b.Rydberg != nil {
 		s += fmt.Sprintf("; R = %.0f ± %.0f m⁻¹ (%+.4f %% from R_H)", b.Rydberg.R, b.Rydberg.Sigma, b.Rydberg.DevPercent)
 	}

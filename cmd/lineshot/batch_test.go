@@ -626,3 +626,13 @@ func TestSpareProc(t *testing.T) {
 		t.Errorf("after the batch: GOMAXPROCS %d, want %d back", got, n)
 	}
 }
+
+// A bench's summary line counts its photos in words that agree.
+func TestSummaryLinePlural(t *testing.T) {
+	for n, want := range map[int]string{0: "0 other photos", 1: "1 other photo;", 2: "2 other photos"} {
+		b := benchResult{Name: "b", Photos: make([]imageResult, n), Warnings: []string{"w"}}
+		if got := b.summaryLine(); !strings.Contains(got, want) {
+			t.Errorf("%d photos: %q, want %q in it", n, got, want)
+		}
+	}
+}
