@@ -192,6 +192,7 @@ func TestMeasureBadInput(t *testing.T) {
 	os.WriteFile(prof, []byte("intensity\n1\n5\n1\n"), 0o644)
 	readings := filepath.Join("..", "..", "testdata", "vernier", "class-b12.csv")
 	for _, args := range [][]string{
+		{"measure", "--dark", good, good},
 		{"measure", "--angle", "NaN", good}, {"measure", "--min-snr", "NaN", good}, {"measure", "--min-snr", "-3", good},
 		{"measure", "--lines-per-mm", "NaN", good}, {"measure", "--lines-per-mm", "Inf", good}, {"measure", "--match-tolerance", "-1", good},
 		{"peaks", "--min-snr", "-2", "--profile", prof}, {"peaks", "--gain", "-1", "--profile", prof},

@@ -130,6 +130,17 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		fs.Usage()
 		return usagef("measure: no photo given")
 	}
+	for _, d := range *dark {
+		// Subtracted from itself, a photo has no band left ("no spectrum
+		// band found" said nothing of why).
+		if st, err := os.Stat(d); err == nil {
+			for _, p := range fs.Args() {
+				if sp, err := os.Stat(p); err == nil && os.SameFile(st, sp) {
+					return usagef("measure: --dark %s is also a photo to measure (%s): a dark frame is a photo taken with the lamp off", d, p)
+				}
+			}
+		}
+	}
 	inputs := slices.Concat(fs.Args(), *calFrom, *lineFiles, *dark)
 	if err := cmp.Or(
 		clobbers("measure", "--save-calibration", *saveCal, inputs...),
