@@ -280,8 +280,8 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 		fmt.Fprintf(stderr, "lineshot: interrupted: %d of %d photos measured and kept; run the same command again to finish\n", nPhotos, len(jobsList))
 		return errReported
 	}
-	fmt.Fprintf(stdout, "measured %d photos (%d unchanged since the last run, taken from the cache) on %d benches into %s (report: %s)\n",
-		nPhotos, fromCache, len(doc.Benches), *out, filepath.Join(*out, "report.html"))
+	fmt.Fprintf(stdout, "measured %s (%d unchanged since the last run, taken from the cache) on %s into %s (report: %s)\n",
+		count(nPhotos, "photo"), fromCache, count(len(doc.Benches), "bench"), *out, filepath.Join(*out, "report.html"))
 	for _, b := range doc.Benches {
 		fmt.Fprintf(stdout, "  %s\n", b.summaryLine())
 	}
@@ -862,12 +862,25 @@ type benchResult struct {
 	Profiles    map[string][]float32 `json:"profiles,omitempty"`    // file → profile, for the report's plots
 }
 
-func (b benchResult) summaryLine() string {
-	other := "photos"
-	if len(b.Photos) == 1 {
-		other = "photo"
+// plural is noun for one of it, else its plural (an s, or es after ch).
+func plural(n int, noun string) string {
+	switch {
+	case n == 1:
+		return noun
+	case strings.HasSuffix(noun, "ch"):
+		return noun + "es"
+	default:
+		return noun + "s"
 	}
-	s := fmt.Sprintf("%s: %d calibration, %d other %s", b.Name, len(b.CalPhotos), len(b.Photos), other)
+}
+
+// count is n and its noun, "1 photo", "3 benches".
+func count(n int, noun string) string {
+	return fmt.Sprintf("%d %s", n, plural(n, noun))
+}
+
+func (b benchResult) summaryLine() string {
+	s := fmt.Sprintf("%s: %d calibration, %d other %s", b.Name, len(b.CalPhotos), len(b.Photos), plural(len(b.Photos), "photo"))
 	if b.Rydberg != nil {
 		s += fmt.Sprintf("; R = %.0f ± %.0f m⁻¹ (%+.4f %% from R_H)", b.Rydberg.R, b.Rydberg.Sigma, b.Rydberg.DevPercent)
 	}

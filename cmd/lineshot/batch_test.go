@@ -627,8 +627,14 @@ func TestSpareProc(t *testing.T) {
 	}
 }
 
-// A bench's summary line counts its photos in words that agree.
+// A bench's summary line counts its photos in words that agree, as does
+// the batch's first line.
 func TestSummaryLinePlural(t *testing.T) {
+	for want, got := range map[string]string{"1 photo": count(1, "photo"), "0 photos": count(0, "photo"), "1 bench": count(1, "bench"), "3 benches": count(3, "bench")} {
+		if got != want {
+			t.Errorf("got %q, want %q", got, want)
+		}
+	}
 	for n, want := range map[int]string{0: "0 other photos", 1: "1 other photo;", 2: "2 other photos"} {
 		b := benchResult{Name: "b", Photos: make([]imageResult, n), Warnings: []string{"w"}}
 		if got := b.summaryLine(); !strings.Contains(got, want) {
