@@ -9,6 +9,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"math"
 	"os"
 	"os/signal"
@@ -102,9 +103,25 @@ func exitCode(err error, stderr io.Writer) int {
 	case errors.Is(err, errReported):
 		return exitFailed
 	default:
-		say(stderr, "lineshot: %v", err)
+		say(stderr, "lineshot: %s", userText(err))
 		return exitFailed
 	}
+}
+
+// userText is err as the user reads it: a bare file-system error from
+// the os package ("open /x/results.json: no such file or directory",
+// "stat : no such file or directory") is given as the file and the reason,
+// an empty name shown as "".
+func userText(err error) string {
+	var pe *fs.PathError
+	if errors.As(err, &pe) && error(pe) == err {
+		name := pe.Path
+		if name == "" {
+			name = `""`
+		}
+		return fmt.Sprintf("%s: %v", name, pe.Err)
+	}
+	return err.Error()
 }
 
 // minLeastCount is the smallest vernier least count the vernier and batch

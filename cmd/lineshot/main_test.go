@@ -5,6 +5,7 @@ import (
 	"context"
 	"crypto/sha256"
 	"encoding/json"
+	"fmt"
 	"math"
 	"os"
 	"path/filepath"
@@ -206,6 +207,11 @@ func TestMeasureBadInput(t *testing.T) {
 			t.Errorf("%v: exit %d, %s", args, code, stderr)
 		}
 	}
+	// A pinned line far outside the profile held the last peak, and the
+	// mercury photo came out as another lamp: now that photo fails.
+	if _, stderr, code := runCLI(t, "measure", "--line", "546.07@99999999", good); code != exitFailed || !strings.Contains(stderr, "outside the profile") {
+		t.Errorf("a pin outside the profile: exit %d, %s", code, stderr)
+	}
 	// A simulated frame larger than lineshot measures (it would take some
 	// 16 bytes a pixel to render) is refused before any is made.
 	if _, stderr, code := runCLI(t, "simulate", "--size", "12000x12000", "-o", filepath.Join(t.TempDir(), "x.jpg")); code != exitUsage || !strings.Contains(stderr, "up to 120") {
@@ -304,5 +310,24 @@ func TestHelpShowsExamples(t *testing.T) {
 	_, errOut, code := runCLI(t, "measure", "--help")
 	if code != 0 || !strings.Contains(errOut, "Examples:") || !strings.Contains(errOut, "--calibration-from") {
 		t.Errorf("measure --help: exit %d\n%s", code, errOut)
+	}
+}
+
+// A bare file-system error reads as the file and the reason, an empty
+// name as ""; an error with its own context is left as it is.
+func TestUserText(t *testing.T) {
+	_, errOpen := os.Open("/no/such/results.json")
+	_, errEmpty := os.Stat("")
+	for _, c := range []struct {
+		err  error
+		want string
+	}{
+		{errOpen, "/no/such/results.json: no such file or directory"},
+		{errEmpty, `"": no such file or directory`},
+		{fmt.Errorf("reading the class: %w", errOpen), "reading the class: open /no/such/results.json: no such file or directory"},
+	} {
+		if got := userText(c.err); got != c.want {
+			t.Errorf("got %q, want %q", got, c.want)
+		}
 	}
 }

@@ -706,6 +706,15 @@ func identify(m measured, path string, cfg measureConfig, lamps []calibrate.Lamp
 	// A "band" a few pixels across is one line image seen lengthwise: the
 	// photo holds a single line, whose profile is no spectrum to match.
 	single := m.strip.BandHalfHeight < 6 && len(cfg.pins) == 0
+	for _, p := range cfg.pins {
+		// A pin holds the peak nearest its position: one far outside the
+		// profile held the last peak, and a mercury photo pinned at
+		// 546@99999999999 came out as a compact fluorescent lamp.
+		if n := len(m.strip.Profile); p.PX < 0 || p.PX > float64(n-1) {
+			r.Error = fmt.Sprintf("%s: --line %g@%g: the position lies outside the profile (0-%d px)", path, p.NM, p.PX, n-1)
+			return selfID{}, r
+		}
+	}
 	var ids []calibrate.Identification
 	if !single {
 		ids = calibrate.Classify(m.calPeaks(), lamps, calibrate.IdentifyOptions{Pins: cfg.pins, Workers: cfg.imageOpts.Workers})
