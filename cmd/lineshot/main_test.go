@@ -212,6 +212,16 @@ func TestMeasureBadInput(t *testing.T) {
 	if _, stderr, code := runCLI(t, "measure", "--line", "546.07@99999999", good); code != exitFailed || !strings.Contains(stderr, "outside the profile") {
 		t.Errorf("a pin outside the profile: exit %d, %s", code, stderr)
 	}
+	// A hydrogen photo given as the calibration was taken for neon and the
+	// Balmer lines "measured" against it: now it is recognised and refused,
+	// unless the user names hydrogen as the calibration lamp.
+	hPhoto := filepath.Join("..", "..", "testdata", "demo", "bench2", "hydrogen.jpg")
+	if _, stderr, code := runCLI(t, "measure", "-c", hPhoto, hPhoto); code != exitFailed || !strings.Contains(stderr, "this is a hydrogen lamp") {
+		t.Errorf("hydrogen as the calibration: exit %d, %s", code, stderr)
+	}
+	if _, stderr, code := runCLI(t, "measure", "--calibration-lamp", "hydrogen", "-c", hPhoto, hPhoto); code != 0 {
+		t.Errorf("hydrogen named as the calibration lamp: exit %d, %s", code, stderr)
+	}
 	// A simulated frame larger than lineshot measures (it would take some
 	// 16 bytes a pixel to render) is refused before any is made.
 	if _, stderr, code := runCLI(t, "simulate", "--size", "12000x12000", "-o", filepath.Join(t.TempDir(), "x.jpg")); code != exitUsage || !strings.Contains(stderr, "up to 120") {

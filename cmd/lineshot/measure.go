@@ -330,7 +330,18 @@ func buildCalibration(paths []string, cfg measureConfig) (calibration, []imageRe
 		ccfg := cfg
 		ccfg.lamp = cfg.calLamp
 		ccfg.dark, ccfg.frames = nil, nil
-		id, r := identifySelf(p, ccfg, cfg.calibrationLamps())
+		// Hydrogen is tried too, to be recognised: a hydrogen photo given
+		// as the calibration was taken for neon (its three Balmer lines fit
+		// somewhere in neon's many, confidence 0.75), and the hydrogen
+		// lines were then "measured" against it without a word.
+		lamps := cfg.calibrationLamps()
+		if cfg.calLamp == "" {
+			lamps = append(lamps, calibrate.Hydrogen())
+		}
+		id, r := identifySelf(p, ccfg, lamps)
+		if r.Error == "" && cfg.calLamp == "" && id.id.Lamp == "hydrogen" {
+			r.Error = fmt.Sprintf("%s: this is a hydrogen lamp (its Balmer lines, confidence %.2f), not a calibration lamp: calibrate with a mercury (or helium, neon) photo of the same setup, or give --calibration-lamp hydrogen to calibrate on the Balmer lines themselves", p, r.LampScore)
+		}
 		if r.Error != "" {
 			results = append(results, r)
 			return calibration{}, results, fmt.Errorf("calibration %s", r.Error)
