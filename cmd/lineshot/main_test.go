@@ -222,6 +222,16 @@ func TestMeasureBadInput(t *testing.T) {
 	if _, stderr, code := runCLI(t, "measure", "--calibration-lamp", "hydrogen", "-c", hPhoto, hPhoto); code != 0 {
 		t.Errorf("hydrogen named as the calibration lamp: exit %d, %s", code, stderr)
 	}
+	// A wrong lamp named is taken (the user may know better) with a
+	// warning naming the lamp the photo is recognised as; the right one
+	// named, no warning.
+	hgPhoto := filepath.Join("..", "..", "testdata", "demo", "bench2", "mercury.jpg")
+	if stdout, _, code := runCLI(t, "measure", "--lamp", "neon", hgPhoto); code != 0 || !strings.Contains(stdout, "poorly") || !strings.Contains(stdout, "recognised as mercury") {
+		t.Errorf("neon named for the mercury photo: exit %d, %s", code, stdout)
+	}
+	if stdout, _, _ := runCLI(t, "measure", "--lamp", "mercury", hgPhoto); strings.Contains(stdout, "poorly") {
+		t.Errorf("mercury named for the mercury photo: %s", stdout)
+	}
 	// A simulated frame larger than lineshot measures (it would take some
 	// 16 bytes a pixel to render) is refused before any is made.
 	if _, stderr, code := runCLI(t, "simulate", "--size", "12000x12000", "-o", filepath.Join(t.TempDir(), "x.jpg")); code != exitUsage || !strings.Contains(stderr, "up to 120") {
