@@ -14,7 +14,10 @@ import (
 // semicolons, which is how they are saved where the decimal mark is a
 // comma (much of Europe; semi reports it, and Number then reads a decimal
 // comma); rows of any length; '#' starting a comment row; leading spaces
-// trimmed. (Common practice of spreadsheet programs, from memory.)
+// trimmed. (Common practice of spreadsheet programs, from memory.) A
+// double quote inside an unquoted field is taken as written: a reading
+// typed in a text editor as 199°10'30" (seconds) was refused with
+// encoding/csv's `bare " in non-quoted-field`.
 func SpreadsheetCSV(r io.Reader) (cr *csv.Reader, semi bool) {
 	br := bufio.NewReader(r)
 	if b, _ := br.Peek(3); bytes.Equal(b, []byte("\xef\xbb\xbf")) {
@@ -32,6 +35,7 @@ func SpreadsheetCSV(r io.Reader) (cr *csv.Reader, semi bool) {
 	cr.Comment = '#'
 	cr.FieldsPerRecord = -1
 	cr.TrimLeadingSpace = true
+	cr.LazyQuotes = true
 	return cr, semi
 }
 

@@ -375,6 +375,13 @@ func TestReadCSVSemicolons(t *testing.T) {
 	if err != nil || len(dec) != 3 || math.Abs(dec[1].Deg-(199+10.5/60)) > 1e-9 || dec[1].Text != "199°10,5'" {
 		t.Errorf("decimal comma: %+v, %v", dec, err)
 	}
+	// Seconds written with a double quote, as typed in a text editor
+	// (unquoted), and as a spreadsheet saves them (quoted, the quote
+	// doubled).
+	secs, err := ReadCSV(strings.NewReader("bench,observer,lamp,line,side,reading\nb,Ana,mercury,,zero,180°02'\nb,Ana,mercury,green,right,199°10'30\"\nb,Ana,mercury,green,left,\"160°54'15\"\"\"\n"))
+	if err != nil || len(secs) != 3 || math.Abs(secs[1].Deg-(199+10.5/60)) > 1e-9 || math.Abs(secs[2].Deg-(160+54.25/60)) > 1e-9 {
+		t.Errorf("seconds with a double quote: %+v, %v", secs, err)
+	}
 	notes, err := ReadCSV(strings.NewReader("bench,observer,lamp,line,side,reading,note\nb,Ana,mercury,,zero,180°02',lamp warm; bench 3 noisy; redo\n"))
 	if err != nil || len(notes) != 1 || notes[0].Note != "lamp warm; bench 3 noisy; redo" {
 		t.Errorf("notes with semicolons: %+v, %v", notes, err)
