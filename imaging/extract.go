@@ -638,7 +638,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool, reload func() (gocv.Mat,
 	// A lit bench: the band is looked for on the lines' contrast, and
 	// measured with the background beside it taken as a slope.
 	lit := false
-	if glow := glowRange(sp, opt.workers()); glow > 0 {
+	if glow := glowRange(sp, 0.01*(peak-bg), opt.workers()); glow > 0 {
 		if c, err := lineContrast(sp, 11); err == nil {
 			gradient, lit = math.Max(gradient, glow), true
 			sp = c

@@ -488,8 +488,11 @@ func crossBands(p plane, ang, bg, sx, sy float64, all bool, workers int) []bandG
 // square in one direction at least) and leaves what is broader. It
 // returns the opened map's range away from the edges when that exceeds 8σ
 // of the pixel-to-pixel noise of sp (the frame's spread is no measure
-// here: a glow widens it), else 0.
-func glowRange(sp plane, workers int) float64 {
+// here: a glow widens it) and floor, else 0. The caller's floor is a
+// hundredth of the brightest pixel above the background: without it, an
+// averaged video of a dark bench, whose noise is all but gone, was taken
+// for a lit one for a background range of 0.01 % of full scale.
+func glowRange(sp plane, floor float64, workers int) float64 {
 	// The noise (about a third of the time) is taken beside the opening on
 	// a spare core; it is waited for on every return, as the caller
 	// changes sp afterwards.
@@ -531,7 +534,7 @@ func glowRange(sp plane, workers int) float64 {
 	if workers <= 1 {
 		noise = pixelNoise(sp)
 	}
-	if !(hi-lo >= 8*noise) {
+	if !(hi-lo >= 8*noise) || !(hi-lo >= floor) {
 		return 0
 	}
 	return hi - lo

@@ -206,6 +206,11 @@ func TestStackReadsVideo(t *testing.T) {
 	if len(stray) > 0 {
 		t.Errorf("lines where the truth has none: %v", stray)
 	}
+	// A dark bench averaged: its noise all but gone, yet no lit bench
+	// (the scene has no stray light).
+	if s.StrayLight {
+		t.Errorf("the averaged video was taken for a lit bench (background range %.5f, noise %.5f)", s.BackgroundRange, s.Noise)
+	}
 
 	// Frames of another size, and a file that is no video, are refused
 	// with the file named.
