@@ -88,12 +88,11 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	if err := parse(fsf, args); err != nil {
 		return err
 	}
-	for _, name := range []string{"results.json", "results.csv", "report.html"} {
-		if *out == "" {
-			break
-		}
-		if err := clobbers("batch", "--out", filepath.Join(*out, name), *readings); err != nil {
-			return err
+	if *out != "" {
+		for _, name := range []string{"results.json", "results.csv", "report.html"} {
+			if err := clobbers("batch", "--out", filepath.Join(*out, name), *readings); err != nil {
+				return err
+			}
 		}
 	}
 	var class []vernier.Reading
@@ -501,9 +500,7 @@ func sameFolder(a, b string) bool {
 			return true
 		}
 	}
-	sa, err1 := os.Stat(a)
-	sb, err2 := os.Stat(b)
-	return err1 == nil && err2 == nil && os.SameFile(sa, sb)
+	return sameFile(a, b)
 }
 
 // isOutputFolder reports whether dir is where an earlier batch wrote its
@@ -1198,10 +1195,10 @@ func dedupe(s []string) []string {
 // spareProc gives Go's scheduler one P (a slot for running Go code) more
 // than it has while jobs photos, as many as the Ps or more, are measured
 // at once on one goroutine each (perPhoto 1), and returns what puts the
-// number back. A goroutine in a long C
-// call (decoding stripes of rows, OpenCV's warps and reductions) holds its
-// P; when no P is idle the runtime's monitor thread takes it away after
-// 20 µs, hands it on and wakes every 20 µs while it does so. With every P
+// number back. A goroutine in a long C call (decoding stripes of rows,
+// OpenCV's warps and reductions) holds its P; when no P is idle the
+// runtime's monitor thread takes it away after 20 µs, hands it on and
+// wakes every 20 µs while it does so. With every P
 // measuring a photo that happened several times a photo: a two-worker
 // batch of 100 1080p photos made 26 500-28 500 context switches against
 // 13 700-14 600 with the spare P, and took 2.2 s against 2.0 (five

@@ -133,11 +133,9 @@ func runMeasure(ctx context.Context, args []string, stdout, stderr io.Writer) er
 	for _, d := range *dark {
 		// Subtracted from itself, a photo has no band left ("no spectrum
 		// band found" said nothing of why).
-		if st, err := os.Stat(d); err == nil {
-			for _, p := range fs.Args() {
-				if sp, err := os.Stat(p); err == nil && os.SameFile(st, sp) {
-					return usagef("measure: --dark %s is also a photo to measure (%s): a dark frame is a photo taken with the lamp off", d, p)
-				}
+		for _, p := range fs.Args() {
+			if sameFile(d, p) {
+				return usagef("measure: --dark %s is also a photo to measure (%s): a dark frame is a photo taken with the lamp off", d, p)
 			}
 		}
 	}

@@ -84,19 +84,20 @@ func errNoPath(err error) error {
 // hg.jpg --save-calibration hg.jpg` turned the photo into JSON. Nil when
 // out is not given or not there yet.
 func clobbers(cmd, option, out string, inputs ...string) error {
-	if out == "" {
-		return nil
-	}
-	oi, err := os.Stat(out)
-	if err != nil {
-		return nil
-	}
 	for _, in := range inputs {
-		if ii, err := os.Stat(in); err == nil && os.SameFile(oi, ii) {
+		if sameFile(out, in) {
 			return usagef("%s: %s %s is a file this command reads (%s): give the output a name of its own", cmd, option, out, in)
 		}
 	}
 	return nil
+}
+
+// sameFile reports whether a and b both exist and are one file (or
+// folder), by whatever names or links (os.SameFile).
+func sameFile(a, b string) bool {
+	sa, err1 := os.Stat(a)
+	sb, err2 := os.Stat(b)
+	return err1 == nil && err2 == nil && os.SameFile(sa, sb)
 }
 
 func writeJSONAtomic(path string, v any) error {
