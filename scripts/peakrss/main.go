@@ -11,13 +11,10 @@ import (
 )
 
 func main() {
-	if len(os.Args) < 2 {
-		fmt.Fprintln(os.Stderr, "usage: peakrss [-faults] COMMAND [ARG...]")
-		os.Exit(2)
-	}
-	args, faults := os.Args[1:], false
-	if args[0] == "-faults" {
-		args, faults = args[1:], true
+	args := os.Args[1:]
+	faults := len(args) > 0 && args[0] == "-faults"
+	if faults {
+		args = args[1:]
 	}
 	if len(args) == 0 {
 		fmt.Fprintln(os.Stderr, "usage: peakrss [-faults] COMMAND [ARG...]")
