@@ -91,7 +91,7 @@ static int upright(struct jpeg_decompress_struct *c) {
     return 1;
 }
 
-struct lineshot_jpeg *lineshot_jpeg_open(const char *path, int *w, int *h, int *rows_ok, char *msg, size_t msglen) {
+struct lineshot_jpeg *lineshot_jpeg_open(const char *path, int eighths, int *w, int *h, int *rows_ok, char *msg, size_t msglen) {
     *rows_ok = 0;
     struct lineshot_jpeg *j = calloc(1, sizeof *j);
     if (j == NULL) {
@@ -125,8 +125,15 @@ struct lineshot_jpeg *lineshot_jpeg_open(const char *path, int *w, int *h, int *
         return j; // rows_ok stays 0: the caller closes it and uses imread
     }
     j->cinfo.out_color_space = JCS_EXT_BGR;
+    // libjpeg's DCT scaling: each 8x8 block becomes eighths x eighths
+    // pixels, the size the band search reduces to at a fraction of the
+    // full decode's work (no full-size inverse DCT, upsampling or colour
+    // conversion).
+    j->cinfo.scale_num = (unsigned)eighths;
+    j->cinfo.scale_denom = 8;
     jpeg_start_decompress(&j->cinfo);
-    if (j->cinfo.output_components != 3 || (int)j->cinfo.output_width != *w || (int)j->cinfo.output_height != *h) {
+    long ow = ((long)*w * eighths + 7) / 8, oh = ((long)*h * eighths + 7) / 8;
+    if (j->cinfo.output_components != 3 || (long)j->cinfo.output_width != ow || (long)j->cinfo.output_height != oh) {
         return j;
     }
     *rows_ok = 1;
@@ -149,6 +156,14 @@ int lineshot_jpeg_rows(struct lineshot_jpeg *j, unsigned char *dst, size_t strid
         got += (int)k;
     }
     return got;
+}
+
+int lineshot_jpeg_skip(struct lineshot_jpeg *j, int n, char *msg, size_t msglen) {
+    if (setjmp(j->jump)) {
+        snprintf(msg, msglen, "%s", j->msg);
+        return -1;
+    }
+    return (int)jpeg_skip_scanlines(&j->cinfo, (JDIMENSION)n);
 }
 
 void lineshot_jpeg_close(struct lineshot_jpeg *j) {

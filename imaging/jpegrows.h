@@ -11,12 +11,18 @@ struct lineshot_jpeg;
 // with the reason in msg. *rows_ok says whether the photo decodes here as
 // imread would (YCbCr or grey, 8 bits, upright); when not, the caller
 // closes the decoder and uses imread.
-struct lineshot_jpeg *lineshot_jpeg_open(const char *path, int *w, int *h, int *rows_ok, char *msg, size_t msglen);
+// The rows come at eighths/8 of the full size (8: full size; 1, 2 or 4:
+// libjpeg's DCT scaling), each side rounded up; w and h stay the full size.
+struct lineshot_jpeg *lineshot_jpeg_open(const char *path, int eighths, int *w, int *h, int *rows_ok, char *msg, size_t msglen);
 
 // Decodes the next n rows (fewer at the end of the frame) into dst, B, G, R
 // a pixel, rows stride bytes apart; returns the rows decoded, or -1 with
 // the reason in msg.
 int lineshot_jpeg_rows(struct lineshot_jpeg *j, unsigned char *dst, size_t stride, int n, char *msg, size_t msglen);
+
+// Passes over the next n rows without making their pixels (libjpeg still
+// reads their data); returns the rows passed, or -1 with the reason in msg.
+int lineshot_jpeg_skip(struct lineshot_jpeg *j, int n, char *msg, size_t msglen);
 
 void lineshot_jpeg_close(struct lineshot_jpeg *j);
 

@@ -16,12 +16,13 @@ import (
 // gocv v0.32 has no name for it): 0x221111 is 4:2:0, 0x111111 4:4:4.
 const jpegSamplingFactor = 7
 
-// TestDecodeRowsAsImread: the row decoder gives imread's frame byte for
-// byte (baseline, progressive, grey, odd sizes, 4:4:4 and 4:2:0 chroma),
-// and leaves what it does not take (a photo to be turned) to imread.
-func TestDecodeRowsAsImread(t *testing.T) {
+// jpegKinds writes the same w×h photo as the kinds of JPEG the row decoder
+// takes (qualities, 4:2:0, 4:2:2 and 4:4:4 chroma, progressive, restart
+// markers, grey, an upright Exif block) into a fresh folder.
+func jpegKinds(t *testing.T, w, h int) []string {
+	t.Helper()
 	dir := t.TempDir()
-	src, _ := writeJPEG(t, synth.Params{Width: 1001, Height: 1283, TiltDeg: 2, Seed: 3, Emissions: mercury}, 90)
+	src, _ := writeJPEG(t, synth.Params{Width: w, Height: h, TiltDeg: 2, Seed: 3, Emissions: mercury}, 90)
 	img := gocv.IMRead(src, gocv.IMReadColor)
 	defer img.Close()
 	cases := map[string][]int{
@@ -56,7 +57,14 @@ func TestDecodeRowsAsImread(t *testing.T) {
 	if len(names) != len(cases)+2 {
 		t.Fatalf("%d test photos", len(names))
 	}
-	for _, p := range names {
+	return names
+}
+
+// TestDecodeRowsAsImread: the row decoder gives imread's frame byte for
+// byte (baseline, progressive, grey, odd sizes, 4:4:4 and 4:2:0 chroma),
+// and leaves what it does not take (a photo to be turned) to imread.
+func TestDecodeRowsAsImread(t *testing.T) {
+	for _, p := range jpegKinds(t, 1001, 1283) {
 		want := imread(p)
 		var stripes [][2]int
 		got, ok, err := decodeRows(p, func(m gocv.Mat) (func(y0, y1 int), func()) {
@@ -230,6 +238,176 @@ func TestDecodeRowsDamagedExif(t *testing.T) {
 		}
 		if w, h, err := Decode(p); err != nil || w*h != 64*48 {
 			t.Errorf("%v: Decode %dx%d, %v", ch, w, h, err)
+		}
+	}
+}
+
+// sentinelFrame is a w×h 8-bit BGR Mat filled with a byte no test photo's
+// rows are made of throughout, to tell rows written from rows left alone.
+func sentinelFrame(t *testing.T, w, h int) (gocv.Mat, []uint8) {
+	t.Helper()
+	m, err := newMatUnset(h, w, gocv.MatTypeCV8UC3, true)
+	if err != nil {
+		t.Fatal(err)
+	}
+	px, _ := m.DataPtrUint8()
+	for i := range px {
+		px[i] = 0xA5
+	}
+	return m, px
+}
+
+// untouchedRow reports whether row y of px (rows of stride bytes) still
+// holds only the sentinel.
+func untouchedRow(px []uint8, stride, y int) bool {
+	for _, b := range px[y*stride : (y+1)*stride] {
+		if b != 0xA5 {
+			return false
+		}
+	}
+	return true
+}
+
+// TestRowsIntoAsWhole: rows decoded alone (libjpeg passing over the rows
+// above, decodeRowsInto) and rows decoded ahead (rowsAhead, steered by its
+// first request) are imread's rows byte for byte, for every kind of JPEG
+// the row decoder takes, at row ranges that start and end inside a block
+// row; no other row is written by decodeRowsInto, and rowsAhead writes a
+// row only as imread's.
+func TestRowsIntoAsWhole(t *testing.T) {
+	const w, h = 1001, 1283
+	for _, p := range jpegKinds(t, w, h) {
+		name := filepath.Base(p)
+		want := imread(p)
+		wb, _ := want.DataPtrUint8()
+		stride := 3 * w
+		for _, r := range [][2]int{{0, 1}, {0, 40}, {15, 17}, {301, 777}, {1000, h}, {h - 1, h}} {
+			m, px := sentinelFrame(t, w, h)
+			if err := decodeRowsInto(p, m, r[0], r[1]); err != nil {
+				t.Fatalf("%s rows %v: %v", name, r, err)
+			}
+			for y := 0; y < h; y++ {
+				inside := y >= r[0] && y < r[1]
+				if inside && !bytes.Equal(px[y*stride:(y+1)*stride], wb[y*stride:(y+1)*stride]) {
+					t.Fatalf("%s rows %v: row %d differs from imread's", name, r, y)
+				}
+				if !inside && !untouchedRow(px, stride, y) {
+					t.Fatalf("%s rows %v: row %d was written", name, r, y)
+				}
+			}
+			m.Close()
+		}
+		for _, r := range [][2]int{{1100, 1200}, {3, 90}, {700, h}} {
+			m, px := sentinelFrame(t, w, h)
+			a := decodeAhead(p, m)
+			if !a.get(r[0], r[1]) {
+				t.Fatalf("%s: rows %v not decoded ahead", name, r)
+			}
+			a.stop()
+			for y := 0; y < h; y++ {
+				same := bytes.Equal(px[y*stride:(y+1)*stride], wb[y*stride:(y+1)*stride])
+				if y >= r[0] && y < r[1] && !same || !same && !untouchedRow(px, stride, y) {
+					t.Fatalf("%s ahead, rows %v: row %d neither imread's nor left alone", name, r, y)
+				}
+			}
+			m.Close()
+		}
+		want.Close()
+	}
+	// Stopped before any request: it ends (a 12 MP frame takes longer to
+	// decode than the test to stop it), a request after does not wait,
+	// and what was written is imread's.
+	p, _ := writeJPEG(t, synth.Params{Width: 4032, Height: 3024, Seed: 8, Emissions: mercury}, 90)
+	want := imread(p)
+	defer want.Close()
+	wb, _ := want.DataPtrUint8()
+	m, px := sentinelFrame(t, 4032, 3024)
+	defer m.Close()
+	a := decodeAhead(p, m)
+	a.stop()
+	got := a.get(2900, 3024)
+	for y := 0; y < 3024; y++ {
+		row := px[y*3*4032 : (y+1)*3*4032]
+		if !bytes.Equal(row, wb[y*3*4032:(y+1)*3*4032]) && (!untouchedRow(px, 3*4032, y) || got && y >= 2900) {
+			t.Fatalf("stopped decoder: row %d neither imread's nor left alone (rows claimed %v)", y, got)
+		}
+	}
+}
+
+// TestDecodeReduced: libjpeg's DCT scaling gives the band search a frame
+// close to the block averages reduceArea takes of the whole decode (the
+// mean difference under 0.6 codes for every kind of JPEG; at most a code
+// for a grey one, whose pixels no chroma upsampling touches; colour
+// differs more at sharp coloured edges), at exactly w/k × h/k; and
+// declines sizes k does not divide, and factors DCT scaling does not make.
+func TestDecodeReduced(t *testing.T) {
+	const w, h = 1024, 768
+	for _, p := range jpegKinds(t, w, h) {
+		name := filepath.Base(p)
+		whole := imread(p)
+		fb, _ := whole.DataPtrUint8()
+		for _, k := range []int{2, 4, 8} {
+			small, gw, gh, ok, err := decodeReduced(p, k)
+			if err != nil || !ok || gw != w || gh != h || small.Cols() != w/k || small.Rows() != h/k {
+				t.Fatalf("%s, k %d: ok %v, %v, frame %dx%d, reduced %dx%d", name, k, ok, err, gw, gh, small.Cols(), small.Rows())
+			}
+			sb, _ := small.DataPtrUint8()
+			sw := w / k
+			worst, sum := 0.0, 0.0
+			for y := 0; y < h/k; y++ {
+				for x := 0; x < sw; x++ {
+					for c := 0; c < 3; c++ {
+						s := 0
+						for dy := 0; dy < k; dy++ {
+							for dx := 0; dx < k; dx++ {
+								s += int(fb[3*((y*k+dy)*w+x*k+dx)+c])
+							}
+						}
+						d := math.Abs(float64(sb[3*(y*sw+x)+c]) - float64(s)/float64(k*k))
+						worst, sum = math.Max(worst, d), sum+d
+					}
+				}
+			}
+			mean := sum / float64(3*sw*(h/k))
+			if mean > 0.6 || name == "grey.jpg" && worst > 1 {
+				t.Errorf("%s, k %d: %.3f codes from the block averages on average, %.2f at worst", name, k, mean, worst)
+			}
+			small.Close()
+		}
+		whole.Close()
+	}
+	p := jpegKinds(t, 1001, 1283)[0]
+	for _, k := range []int{2, 3, 4} {
+		if small, _, _, ok, err := decodeReduced(p, k); ok || err != nil {
+			small.Close()
+			t.Errorf("1001x1283, k %d: ok %v, %v; want declined", k, ok, err)
+		}
+	}
+}
+
+// fillParts splits rows so that each part's cost (its start·r for the
+// rows passed over, plus its length) is the same, within a row or so, and
+// the parts cover the rows in order.
+func TestFillParts(t *testing.T) {
+	for _, c := range []struct {
+		y0, y1, n int
+		r         float64
+	}{{1065, 1960, 2, 0.4}, {0, 3024, 2, 0.4}, {0, 100, 3, 0.5}, {2000, 3000, 4, 0.3}, {10, 11, 2, 0.4}, {5, 50, 0, 0.4}} {
+		b := fillParts(c.y0, c.y1, c.n, c.r)
+		want := max(1, min(c.n, c.y1-c.y0))
+		if len(b) != want+1 || b[0] != c.y0 || b[len(b)-1] != c.y1 {
+			t.Fatalf("%+v: bounds %v", c, b)
+		}
+		lo, hi := math.Inf(1), math.Inf(-1)
+		for i := 0; i+1 < len(b); i++ {
+			if b[i+1] <= b[i] {
+				t.Fatalf("%+v: bounds %v not increasing", c, b)
+			}
+			cost := float64(b[i])*c.r + float64(b[i+1]-b[i])
+			lo, hi = math.Min(lo, cost), math.Max(hi, cost)
+		}
+		if hi-lo > 1.5 {
+			t.Errorf("%+v: bounds %v, costs from %.1f to %.1f", c, b, lo, hi)
 		}
 	}
 }

@@ -222,9 +222,10 @@ func chord(w, h int, deg, v float64) (u0, u1 float64, ok bool) {
 // It returns the surface's range over the frame, in p's units; and, with
 // unchanged when it left p as it was, p's median and robust σ as
 // background gives them, measured on the way (levels need not again).
-func flatten(p plane, workers int) (rng, med, sigma float64, unchanged bool) {
+// surf is the surface fitted (subtracted or not; zero when none could be).
+func flatten(p plane, workers int) (rng, med, sigma float64, unchanged bool, surf roomLight) {
 	if p.w < 8 || p.h < 8 {
-		return 0, 0, 0, false
+		return 0, 0, 0, false, roomLight{}
 	}
 	// About 10 000 samples on a grid are plenty for six coefficients.
 	step := max(1, int(math.Sqrt(float64(p.w*p.h)/10000)))
@@ -238,7 +239,7 @@ func flatten(p plane, workers int) (rng, med, sigma float64, unchanged bool) {
 			xs, ys, vs = append(xs, float64(x)*sx-1), append(ys, float64(y)*sy-1), append(vs, float64(p.at(x, y)))
 		}
 	}
-	surf := func(c [6]float64, u, v float64) float64 {
+	surface := func(c [6]float64, u, v float64) float64 {
 		return c[0] + u*(c[1]+c[3]*u+c[4]*v) + v*(c[2]+c[5]*v)
 	}
 	med, sigma = background(p)
@@ -250,7 +251,7 @@ func flatten(p plane, workers int) (rng, med, sigma float64, unchanged bool) {
 		var ata [6][6]float64
 		var atb [6]float64
 		for i, v := range vs {
-			r := v - surf(c, xs[i], ys[i])
+			r := v - surface(c, xs[i], ys[i])
 			res[i] = math.Abs(r)
 			if cut > 0 && res[i] > cut {
 				continue
@@ -299,7 +300,7 @@ func flatten(p plane, workers int) (rng, med, sigma float64, unchanged bool) {
 		}
 		nc, ok := solveSmall(rows, atb[:])
 		if !ok {
-			return 0, med, sigma, true
+			return 0, med, sigma, true, roomLight{}
 		}
 		copy(c[:], nc)
 		if iter > 0 {
@@ -309,19 +310,38 @@ func flatten(p plane, workers int) (rng, med, sigma float64, unchanged bool) {
 	// The surface's range and median level over the grid.
 	lo, hi := math.Inf(1), math.Inf(-1)
 	for i := range vs {
-		res[i] = surf(c, xs[i], ys[i])
+		res[i] = surface(c, xs[i], ys[i])
 		lo, hi = min(lo, res[i]), max(hi, res[i])
 	}
-	level := peaks.MedianInPlace(res)
+	surf = roomLight{c: c, level: peaks.MedianInPlace(res), w: p.w, h: p.h}
 	if rng = hi - lo; rng < sigma {
-		return rng, med, sigma, true
+		return rng, med, sigma, true, surf
 	}
-	// Subtract it row by row (rows side by side): along a row the surface
-	// is a quadratic in u.
+	surf.sub(p, 0, workers)
+	return rng, 0, 0, false, surf
+}
+
+// roomLight is a smooth background surface flatten fitted to a w×h plane:
+// a quadratic in u, v ∈ [−1, 1] across the plane, less its median level.
+type roomLight struct {
+	c     [6]float64
+	level float64
+	w, h  int
+}
+
+// sub subtracts the surface from p, which holds rows [r0, r0+p.h) of the
+// plane it was fitted to (as wide), row by row (rows side by side): along
+// a row the surface is a quadratic in u.
+func (l roomLight) sub(p plane, r0, workers int) {
+	if l.w < 2 || l.h < 2 || p.w != l.w {
+		return
+	}
+	c := l.c
+	sx, sy := 2/float64(l.w-1), 2/float64(l.h-1)
 	inParts(p.h, workers, 64, func(y0, y1 int) {
 		for y := y0; y < y1; y++ {
-			v := float64(y)*sy - 1
-			a0 := c[0] + c[2]*v + c[5]*v*v - level
+			v := float64(y+r0)*sy - 1
+			a0 := c[0] + c[2]*v + c[5]*v*v - l.level
 			a1 := c[1] + c[4]*v
 			row := p.pix[y*p.w : (y+1)*p.w]
 			for x := range row {
@@ -330,7 +350,6 @@ func flatten(p plane, workers int) (rng, med, sigma float64, unchanged bool) {
 			}
 		}
 	})
-	return rng, 0, 0, false
 }
 
 // solveSmall solves the small square system a·x = b (normal equations of

@@ -18,13 +18,13 @@ go test -count=1 ./...
 # split over CPUs (imaging), groups of lines fitted side by side (peaks)
 # and the lamps tried side by side (calibrate).
 go test -count=1 -race -run 'TestBatch(OverALab|InterruptedAndResumed)' ./cmd/lineshot
-go test -count=1 -race -run 'TestExtractBandsTwoLamps|TestLitBench$|TestRowsGivenBackChangeNothing|TestDecodeAndReduce' ./imaging
+go test -count=1 -race -run 'TestExtractBandsTwoLamps|TestLitBench$|TestRowsGivenBackChangeNothing|TestDecodeAndReduce|TestRowsIntoAsWhole|TestBandFirst' ./imaging
 go test -count=1 -race -run 'TestWorkersDoNotChangeTheResult' ./peaks
 go test -count=1 -race -run 'TestBothOrdersClassifiedRight|TestClassif' ./calibrate
 # The row decoder's C code (imaging/jpegrows.c) under AddressSanitizer: a
 # read past an Exif block or a row buffer fails the run (about a minute to
 # build the first time).
-go test -count=1 -asan -run 'TestDecodeRows|TestDecodeAndReduce' ./imaging
+go test -count=1 -asan -run 'TestDecodeRows|TestDecodeAndReduce|TestRowsIntoAsWhole|TestDecodeReduced' ./imaging
 # Every fuzz target briefly (a count of executions each; FUZZTIME, if set,
 # replaces it); found crashers land in testdata/fuzz/.
 scripts/fuzz.sh
