@@ -860,8 +860,9 @@ func TestBandFirstAsWholeFrame(t *testing.T) {
 
 // A large photo with no band fails band first as it does whole, naming the
 // file, with the decoder ahead stopped (the race detector in test.sh
-// watches the frame's rows), with one worker and with two; and a photo
-// whose rows cannot be decoded where the band lies says so.
+// watches the frame's rows), with one worker and with two; a photo to be
+// turned is left to imread; and rows of a photo that changed size since
+// its reduced decode are refused.
 func TestBandFirstFailures(t *testing.T) {
 	dark := writeImageFile(t, "dark.jpg", func(w io.Writer) error {
 		return jpeg.Encode(w, image.NewGray(image.Rect(0, 0, 4032, 3024)), &jpeg.Options{Quality: 90})
@@ -877,6 +878,24 @@ func TestBandFirstFailures(t *testing.T) {
 	_, ok, err := extractBandFirst(path, cfg, Options{Workers: 1}.withProfile(true))
 	if err != nil || !ok {
 		t.Fatalf("band first: ok %v, %v", ok, err)
+	}
+	// A photo whose Exif block asks for turning goes to imread, turned, as
+	// when decoded whole.
+	raw, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	turned := filepath.Join(t.TempDir(), "turned.jpg")
+	if err := os.WriteFile(turned, withOrientation(raw, 3), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if _, ok, err := extractBandFirst(turned, cfg, Options{Workers: 2}.withProfile(true)); ok || err != nil {
+		t.Errorf("turned photo taken band first: ok %v, %v", ok, err)
+	}
+	a, errA := Extract(turned, Options{})
+	b, errB := Extract(turned, Options{wholeFrame: true})
+	if errA != nil || errB != nil || !slices.Equal(a.Profile, b.Profile) || math.Abs(a.AngleDeg-2) > 0.05 {
+		t.Errorf("turned photo: %v, %v; %.3f° (the band turned by 180° lies at 2°)", errA, errB, a.AngleDeg)
 	}
 	// The photo swapped for a smaller one between the reduced decode and
 	// the band's rows: the rows' decoder notices.
