@@ -18,7 +18,7 @@ go test -count=1 ./...
 # split over CPUs (imaging), groups of lines fitted side by side (peaks)
 # and the lamps tried side by side (calibrate).
 go test -count=1 -race -run 'TestBatch(OverALab|InterruptedAndResumed)' ./cmd/lineshot
-go test -count=1 -race -run 'TestExtractBandsTwoLamps|TestLitBench$|TestRowsGivenBackChangeNothing|TestDecodeAndReduce|TestRowsIntoAsWhole|TestBandFirst' ./imaging
+go test -count=1 -race -run 'TestExtractBandsTwoLamps|TestLitBench$|TestRowsGivenBackChangeNothing|TestDecodeAndReduce|TestRowsIntoAsWhole|TestBandFirstFailures' ./imaging
 go test -count=1 -race -run 'TestWorkersDoNotChangeTheResult' ./peaks
 go test -count=1 -race -run 'TestBothOrdersClassifiedRight|TestClassif' ./calibrate
 # The row decoder's C code (imaging/jpegrows.c) under AddressSanitizer: a
