@@ -861,8 +861,8 @@ func TestBandFirstAsWholeFrame(t *testing.T) {
 // A large photo with no band fails band first as it does whole, naming the
 // file, with the decoder ahead stopped (the race detector in test.sh
 // watches the frame's rows), with one worker and with two; a photo to be
-// turned is left to imread; and rows of a photo that changed size since
-// its reduced decode are refused.
+// turned is left to imread, a progressive one decoded whole; and rows of
+// a photo that changed size since its reduced decode are refused.
 func TestBandFirstFailures(t *testing.T) {
 	dark := writeImageFile(t, "dark.jpg", func(w io.Writer) error {
 		return jpeg.Encode(w, image.NewGray(image.Rect(0, 0, 4032, 3024)), &jpeg.Options{Quality: 90})
@@ -898,6 +898,20 @@ func TestBandFirstFailures(t *testing.T) {
 	b, errB := Extract(turned, Options{wholeFrame: true})
 	if errA != nil || errB != nil || !slices.Equal(a.Profile, b.Profile) || math.Abs(a.AngleDeg-2) > 0.05 {
 		t.Errorf("turned photo: %v, %v; %.3f° (the band turned by 180° lies at 2°)", errA, errB, a.AngleDeg)
+	}
+	// A progressive JPEG is decoded whole (each decoder of one would read
+	// and hold every scan first).
+	img := gocv.IMRead(path, gocv.IMReadColor)
+	prog := filepath.Join(t.TempDir(), "progressive.jpg")
+	if !gocv.IMWriteWithParams(prog, img, []int{gocv.IMWriteJpegQuality, 90, gocv.IMWriteJpegProgressive, 1}) {
+		t.Fatal("cannot write the progressive JPEG")
+	}
+	img.Close()
+	if _, ok, err := extractBandFirst(prog, cfg, Options{Workers: 2}.withProfile(true)); ok || err != nil {
+		t.Errorf("progressive photo taken band first: ok %v, %v", ok, err)
+	}
+	if _, err := Extract(prog, Options{}); err != nil {
+		t.Errorf("progressive photo: %v", err)
 	}
 	// The photo swapped for a smaller one between the reduced decode and
 	// the band's rows: the rows' decoder notices.

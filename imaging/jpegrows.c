@@ -91,7 +91,7 @@ static int upright(struct jpeg_decompress_struct *c) {
     return 1;
 }
 
-struct lineshot_jpeg *lineshot_jpeg_open(const char *path, int eighths, int *w, int *h, int *rows_ok, char *msg, size_t msglen) {
+struct lineshot_jpeg *lineshot_jpeg_open(const char *path, int eighths, int sequential_only, int *w, int *h, int *rows_ok, char *msg, size_t msglen) {
     *rows_ok = 0;
     struct lineshot_jpeg *j = calloc(1, sizeof *j);
     if (j == NULL) {
@@ -123,6 +123,9 @@ struct lineshot_jpeg *lineshot_jpeg_open(const char *path, int eighths, int *w, 
                  (j->cinfo.jpeg_color_space == JCS_GRAYSCALE && j->cinfo.num_components == 1);
     if (!colour || j->cinfo.data_precision != 8 || !upright(&j->cinfo)) {
         return j; // rows_ok stays 0: the caller closes it and uses imread
+    }
+    if (sequential_only && jpeg_has_multiple_scans(&j->cinfo)) {
+        return j; // (before jpeg_start_decompress reads every scan)
     }
     j->cinfo.out_color_space = JCS_EXT_BGR;
     // libjpeg's DCT scaling: each 8x8 block becomes eighths x eighths

@@ -33,7 +33,7 @@ import (
 // Why hand-written: imread returns nothing until the whole frame is
 // decoded, and gocv has no way in between.
 func decodeRows(path string, plan func(m gocv.Mat) (each func(y0, y1 int), wait func())) (m gocv.Mat, ok bool, err error) {
-	d, ok, err := openRows(path, 8)
+	d, ok, err := openRows(path, 8, false)
 	if !ok || err != nil {
 		return gocv.Mat{}, false, err
 	}
@@ -81,13 +81,18 @@ type rowDecoder struct {
 
 // openRows opens the JPEG at path for rows at eighths/8 of the full size
 // (8, or 1, 2, 4 for libjpeg's DCT scaling). ok is false, with nothing to
-// close, when the photo is not one the row decoder takes (decodeRows).
-func openRows(path string, eighths int) (d rowDecoder, ok bool, err error) {
+// close, when the photo is not one the row decoder takes (decodeRows), or
+// with sequentialOnly a progressive one.
+func openRows(path string, eighths int, sequentialOnly bool) (d rowDecoder, ok bool, err error) {
 	cpath := C.CString(path)
 	defer C.free(unsafe.Pointer(cpath))
 	var msg [256]C.char
 	var w, h, rowsOK C.int
-	j := C.lineshot_jpeg_open(cpath, C.int(eighths), &w, &h, &rowsOK, &msg[0], C.size_t(len(msg)))
+	seq := C.int(0)
+	if sequentialOnly {
+		seq = 1
+	}
+	j := C.lineshot_jpeg_open(cpath, C.int(eighths), seq, &w, &h, &rowsOK, &msg[0], C.size_t(len(msg)))
 	if j == nil {
 		return rowDecoder{}, false, errors.New(C.GoString(&msg[0]))
 	}
@@ -150,12 +155,14 @@ func (d rowDecoder) close() { C.lineshot_jpeg_close(d.j) }
 // block, close to the block's average (not equal to it: the band search's
 // thresholds are several noise σ). ok is false, with no Mat, when the
 // row decoder does not take the photo or k does not fit it; w and h are
-// the full frame's size.
+// the full frame's size. A progressive JPEG is not taken: every decoder
+// of one reads and holds all its scans (36 MB of coefficients for 12 MP)
+// before its first row, so the band's rows would cost a whole decode each.
 func decodeReduced(path string, k int) (small gocv.Mat, w, h int, ok bool, err error) {
 	if k != 2 && k != 4 && k != 8 {
 		return gocv.Mat{}, 0, 0, false, nil
 	}
-	d, ok, err := openRows(path, 8/k)
+	d, ok, err := openRows(path, 8/k, true)
 	if !ok || err != nil {
 		return gocv.Mat{}, 0, 0, false, err
 	}
@@ -185,7 +192,7 @@ func decodeReduced(path string, k int) (small gocv.Mat, w, h int, ok bool, err e
 // of a band, for about the cost of the entropy decoding up to them.
 // libjpeg makes the rows as a whole decode does (TestRowsIntoAsWhole).
 func decodeRowsInto(path string, m gocv.Mat, y0, y1 int) error {
-	d, ok, err := openRows(path, 8)
+	d, ok, err := openRows(path, 8, false)
 	if err != nil {
 		return err
 	}
@@ -350,7 +357,7 @@ func (a *rowsAhead) run(path string, m gocv.Mat) {
 		a.cond.Broadcast()
 		a.mu.Unlock()
 	}
-	d, ok, err := openRows(path, 8)
+	d, ok, err := openRows(path, 8, true)
 	if err != nil || !ok {
 		finish(err)
 		return

@@ -13,7 +13,9 @@ struct lineshot_jpeg;
 // closes the decoder and uses imread.
 // The rows come at eighths/8 of the full size (8: full size; 1, 2 or 4:
 // libjpeg's DCT scaling), each side rounded up; w and h stay the full size.
-struct lineshot_jpeg *lineshot_jpeg_open(const char *path, int eighths, int *w, int *h, int *rows_ok, char *msg, size_t msglen);
+// With sequential_only, a progressive JPEG (every scan read and held
+// before the first row) is not taken either.
+struct lineshot_jpeg *lineshot_jpeg_open(const char *path, int eighths, int sequential_only, int *w, int *h, int *rows_ok, char *msg, size_t msglen);
 
 // Decodes the next n rows (fewer at the end of the frame) into dst, B, G, R
 // a pixel, rows stride bytes apart; returns the rows decoded, or -1 with
