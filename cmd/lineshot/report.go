@@ -14,6 +14,7 @@ import (
 	"runtime"
 	"sort"
 	"strconv"
+	"strings"
 
 	"golang.org/x/sync/errgroup"
 
@@ -86,9 +87,10 @@ func writeStripImage(path string, m measured, derived bool) error {
 	return writeFileAtomic(path, enc)
 }
 
-// pngData renders a plot to a data: URI. SVG, not PNG: vector text renders
-// several times faster than rasterising, and stays sharp when zoomed.
-func pngData(p *plot.Plot, w, h vg.Length) (template.URL, error) {
+// pngData renders a plot to an img element's src attribute holding a
+// data: URI (srcAttr). SVG, not PNG: vector text renders several times
+// faster than rasterising, and stays sharp when zoomed.
+func pngData(p *plot.Plot, w, h vg.Length) (template.HTMLAttr, error) {
 	wt, err := p.WriterTo(w, h, "svg")
 	if err != nil {
 		return "", err
@@ -97,7 +99,19 @@ func pngData(p *plot.Plot, w, h vg.Length) (template.URL, error) {
 	if _, err := wt.WriteTo(&buf); err != nil {
 		return "", err
 	}
-	return template.URL("data:image/svg+xml;base64," + base64.StdEncoding.EncodeToString(buf.Bytes())), nil
+	return srcAttr("image/svg+xml", buf.Bytes()), nil
+}
+
+// srcAttr is the attribute src="data:…" for an image of the given media
+// type, as html/template writes a data: URL into an attribute (a + as
+// &#43;, the only character of a media type or of base64 it escapes).
+// Handed over as an attribute, html/template leaves it as it is instead
+// of going over every byte of it twice (its URL normaliser and its
+// attribute escaper: 60 ms a 100-photo report, on one core at the end of
+// a batch).
+func srcAttr(mediaType string, raw []byte) template.HTMLAttr {
+	u := "data:" + mediaType + ";base64," + base64.StdEncoding.EncodeToString(raw)
+	return template.HTMLAttr(`src="` + strings.ReplaceAll(u, "+", "&#43;") + `"`)
 }
 
 func styled(title, x, y string) *plot.Plot {
@@ -158,7 +172,7 @@ func (p profileXY) XY(i int) (float64, float64) { return float64(i), float64(p[i
 
 // profilePlot draws a photo's profile with each line labelled by its
 // wavelength (or position when uncalibrated).
-func profilePlot(r imageResult, prof []float32) (template.URL, error) {
+func profilePlot(r imageResult, prof []float32) (template.HTMLAttr, error) {
 	p := styled(filepath.Base(r.File), "position along the band (px)", "intensity (linear)")
 	l, err := plotter.NewLine(profileXY(prof))
 	if err != nil {
@@ -207,7 +221,7 @@ func profilePlot(r imageResult, prof []float32) (template.URL, error) {
 }
 
 // residualPlot draws the calibration residuals per reference line.
-func residualPlot(c *calibration) (template.URL, error) {
+func residualPlot(c *calibration) (template.HTMLAttr, error) {
 	p := styled("calibration residuals ("+c.Dispersion.Model+")", "reference wavelength (nm, air)", "reference − fit (nm)")
 	var pts plotter.XYs
 	for _, r := range c.Dispersion.Residuals {
@@ -233,7 +247,7 @@ func residualPlot(c *calibration) (template.URL, error) {
 
 // rydbergPlot draws 1/λ_vac against 1/4 − 1/n² with the fitted line,
 // and the residuals (which is where the uncertainty can be seen).
-func rydbergPlot(r *calibrate.Rydberg) (template.URL, error) {
+func rydbergPlot(r *calibrate.Rydberg) (template.HTMLAttr, error) {
 	p := styled("residuals about the fit, ±1σ dashed", "1/4 − 1/n²", "1/λ − R(1/4 − 1/n²)  (1/m)")
 	var xy plotter.XYs
 	for i := range r.X {
@@ -274,7 +288,7 @@ func rydbergPlot(r *calibrate.Rydberg) (template.URL, error) {
 // balmerPlot draws 1/λ_vac against 1/4 − 1/n² with the fitted line
 // through the origin and its 1σ band (too narrow to see at this scale:
 // the residual plot beside it shows it).
-func balmerPlot(r *calibrate.Rydberg) (template.URL, error) {
+func balmerPlot(r *calibrate.Rydberg) (template.HTMLAttr, error) {
 	p := styled("1/λ against 1/4 − 1/n²", "1/4 − 1/n²", "1/λ (vacuum, 1/m)")
 	var xy plotter.XYs
 	for i := range r.X {
@@ -298,7 +312,7 @@ func balmerPlot(r *calibrate.Rydberg) (template.URL, error) {
 }
 
 // summaryPlot draws R per bench with its error bar against CODATA R_H.
-func summaryPlot(doc batchDoc) (template.URL, error) {
+func summaryPlot(doc batchDoc) (template.HTMLAttr, error) {
 	p := styled("R per bench; dashed: NIST-line value", "bench", "R − CODATA R_H (1/m)")
 	var xy plotter.XYs
 	var ye plotter.YErrors
@@ -352,17 +366,17 @@ func summaryPlot(doc batchDoc) (template.URL, error) {
 
 type reportPhoto struct {
 	R       imageResult
-	Band    template.URL
-	Profile template.URL
+	Band    template.HTMLAttr
+	Profile template.HTMLAttr
 }
 
 type reportBench struct {
 	B         benchResult
 	Status    string
 	Attention bool
-	Residuals template.URL
-	Balmer    template.URL
-	Rydberg   template.URL
+	Residuals template.HTMLAttr
+	Balmer    template.HTMLAttr
+	Rydberg   template.HTMLAttr
 	Photos    []reportPhoto
 }
 
@@ -370,7 +384,7 @@ type reportBench struct {
 type reportData struct {
 	Doc      batchDoc
 	Benches  []reportBench // sorted by name
-	Summary  template.URL
+	Summary  template.HTMLAttr
 	RH       float64
 	Failures []failure
 }
@@ -489,7 +503,7 @@ func renderPlots(out string, benches []reportBench) error {
 			g.Go(func() error {
 				if img, ok := b.Images[ph.R.File]; ok {
 					if raw, err := os.ReadFile(filepath.Join(out, img)); err == nil {
-						ph.Band = template.URL("data:image/jpeg;base64," + base64.StdEncoding.EncodeToString(raw))
+						ph.Band = srcAttr("image/jpeg", raw)
 					}
 				}
 				if prof, ok := b.Profiles[ph.R.File]; ok && len(prof) > 0 {
@@ -560,17 +574,17 @@ footer{font-size:.85rem;color:#475569;padding:1rem 2rem 2rem;max-width:1200px}
 {{with .B.Rydberg}}<td class="r-value" data-bench="{{$b.B.Name}}" data-r="{{g .R}}" data-sigma="{{g .Sigma}}">{{f0 .R}}</td><td>{{f0 .Sigma}}</td><td>{{f4 .DevPercent}} %</td><td>{{f2 .DevRefSigma}}σ</td>{{else}}<td colspan="4">no Rydberg fit</td>{{end}}
 <td class="l {{if .Attention}}attn{{else}}ok{{end}}">{{.Status}}</td></tr>
 {{end}}</table>
-{{if .Summary}}<img alt="R per bench against CODATA R_H" src="{{.Summary}}">{{end}}
+{{if .Summary}}<img alt="R per bench against CODATA R_H" {{.Summary}}>{{end}}
 {{if .Failures}}<h3>Photos that could not be measured</h3><ul class="warn">{{range .Failures}}<li>{{.File}}: {{.Reason}}</li>{{end}}</ul>{{end}}
 </section>
 {{end}}{{define "bench"}}<section class="bench" id="bench-{{.B.Name}}"><h2>{{.B.Name}}</h2>
 {{if .B.Warnings}}<ul class="warn">{{range .B.Warnings}}<li>{{.}}</li>{{end}}</ul>{{end}}
 {{with .B.Rydberg}}<p>R = <b>{{f0 .R}} ± {{f0 .Sigma}} m⁻¹</b> from {{len .LinesUsed}} Balmer lines, χ²/dof {{f2 .ChiSq}}/{{.DOF}};
 {{f4 .DevPercent}} % ({{f2 .DevSigma}}σ) from R<sub>H</sub>; ground-state energy {{f4 .EnergyEV}} eV.</p>{{end}}
-<div class="grid">{{if .Residuals}}<img alt="calibration residuals" src="{{.Residuals}}">{{end}}{{if .Balmer}}<img alt="Rydberg plot: 1/λ against 1/4 − 1/n² with the fit" src="{{.Balmer}}">{{end}}{{if .Rydberg}}<img alt="Rydberg fit residuals" src="{{.Rydberg}}">{{end}}</div>
+<div class="grid">{{if .Residuals}}<img alt="calibration residuals" {{.Residuals}}>{{end}}{{if .Balmer}}<img alt="Rydberg plot: 1/λ against 1/4 − 1/n² with the fit" {{.Balmer}}>{{end}}{{if .Rydberg}}<img alt="Rydberg fit residuals" {{.Rydberg}}>{{end}}</div>
 {{range .Photos}}<h3>{{.R.File}} — {{if .R.Lamp}}{{.R.Lamp}}{{else}}lamp not recognised{{end}}</h3>
-{{if .Band}}<img class="band" alt="straightened band with the measured lines marked" src="{{.Band}}">{{end}}
-{{if .Profile}}<img alt="profile with lines labelled" src="{{.Profile}}">{{end}}
+{{if .Band}}<img class="band" alt="straightened band with the measured lines marked" {{.Band}}>{{end}}
+{{if .Profile}}<img alt="profile with lines labelled" {{.Profile}}>{{end}}
 {{if .R.Warnings}}<ul class="warn">{{range .R.Warnings}}<li>{{.}}</li>{{end}}</ul>{{end}}
 {{end}}</section>
 {{end}}{{define "tail"}}

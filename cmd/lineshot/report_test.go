@@ -2,12 +2,15 @@ package main
 
 import (
 	"context"
+	"encoding/base64"
 	"fmt"
+	"html/template"
 	"math"
 	"os"
 	"os/exec"
 	"path/filepath"
 	"strconv"
+	"strings"
 	"testing"
 	"time"
 
@@ -98,5 +101,29 @@ func TestReportInBrowser(t *testing.T) {
 	p := filepath.Join(dir, "report.jpg")
 	if err := os.WriteFile(p, shot, 0o644); err == nil {
 		t.Logf("screenshot: %s", p)
+	}
+}
+
+// srcAttr writes what html/template writes for a data: URL in an img's src
+// attribute, byte for byte (the report was the same file before and after
+// it): the template package itself is the reference, over bytes whose
+// base64 holds every character of its alphabet, + and / among them.
+func TestSrcAttrAsTemplate(t *testing.T) {
+	raw := make([]byte, 3*256)
+	for i := range raw {
+		raw[i] = byte(i * 7)
+	}
+	for _, mt := range []string{"image/jpeg", "image/svg+xml"} {
+		want, got := new(strings.Builder), new(strings.Builder)
+		u := template.URL("data:" + mt + ";base64," + base64.StdEncoding.EncodeToString(raw))
+		if err := template.Must(template.New("").Parse(`<img alt="a" src="{{.}}">`)).Execute(want, u); err != nil {
+			t.Fatal(err)
+		}
+		if err := template.Must(template.New("").Parse(`<img alt="a" {{.}}>`)).Execute(got, srcAttr(mt, raw)); err != nil {
+			t.Fatal(err)
+		}
+		if got.String() != want.String() || !strings.Contains(want.String(), "&#43;") {
+			t.Errorf("%s: srcAttr gives\n%.120s…\nhtml/template\n%.120s…", mt, got, want)
+		}
 	}
 }
