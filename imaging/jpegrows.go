@@ -334,7 +334,6 @@ type rowsAhead struct {
 	// Rows held, [lo, hi); rows asked for, [from, to) (to 0: not yet).
 	lo, hi, from, to int
 	stopped, cancel  bool
-	err              error
 }
 
 // aheadStripe is the rows rowsAhead decodes between looks at what is
@@ -351,21 +350,23 @@ func decodeAhead(path string, m gocv.Mat) *rowsAhead {
 }
 
 func (a *rowsAhead) run(path string, m gocv.Mat) {
-	finish := func(err error) {
+	// A failure just stops it: the rows asked for are then decoded by
+	// the caller, whose decoder says what went wrong.
+	finish := func() {
 		a.mu.Lock()
-		a.stopped, a.err = true, err
+		a.stopped = true
 		a.cond.Broadcast()
 		a.mu.Unlock()
 	}
 	d, ok, err := openRows(path, 8, true)
 	if err != nil || !ok {
-		finish(err)
+		finish()
 		return
 	}
 	defer d.close()
 	px, err := m.DataPtrUint8()
 	if err != nil || d.w != m.Cols() || d.h != m.Rows() || len(px) != 3*d.w*d.h {
-		finish(errors.New("the photo changed while it was measured"))
+		finish()
 		return
 	}
 	stride := 3 * d.w
@@ -373,7 +374,7 @@ func (a *rowsAhead) run(path string, m gocv.Mat) {
 		a.mu.Lock()
 		if a.cancel || y >= d.h || (a.to > 0 && y >= a.to) {
 			a.mu.Unlock()
-			finish(nil)
+			finish()
 			return
 		}
 		if a.to > 0 && y < a.from {
@@ -381,7 +382,7 @@ func (a *rowsAhead) run(path string, m gocv.Mat) {
 			from := a.from
 			a.mu.Unlock()
 			if err := d.skip(from - y); err != nil {
-				finish(err)
+				finish()
 				return
 			}
 			y = from
@@ -396,7 +397,7 @@ func (a *rowsAhead) run(path string, m gocv.Mat) {
 		}
 		a.mu.Unlock()
 		if err := d.read(px[y*stride:], stride, d.w, n); err != nil {
-			finish(err)
+			finish()
 			return
 		}
 		y += n
