@@ -777,7 +777,8 @@ func TestReleasedImagePixels(t *testing.T) {
 
 // TestBandFirstAsWholeFrame: the band-first decode (a reduced decode for
 // the band search, then only the band's rows at full size) measures a
-// 12 MP photo as well as decoding the whole frame does, with one worker
+// 12 MP photo (and a 9 MP 16:9 one, whose height the reduction by 4 does
+// not divide) as well as decoding the whole frame does, with one worker
 // and with two (the rows decoded ahead): a level band across the middle in
 // the same direction within 0.01° and its lines within 0.02 px of the
 // whole frame's along the band; bands above and below the middle, seen by a pitched
@@ -785,8 +786,11 @@ func TestReleasedImagePixels(t *testing.T) {
 // the frame, with their lines along the band within checkAlongBand's
 // limits of the truth, 0.15 px RMS and 0.4 px worst, as the whole frame's
 // are. Each time the frame's background level and σ (slabLevels) within
-// 2 % and 20 % of the whole frame's (and 1e-5), its stray light read the
-// same, the room light's range within 10 % (and 1e-4).
+// 5 % and 20 % of the whole frame's (and 1e-5), its stray light read the
+// same, the room light's range within 10 % (and 1e-4). (Both levels are
+// whole codes of reduced frames, a code apart at this background: the
+// whole 16:9 frame, reduced by a ratio that is not whole, read 0.00992
+// where the rest read 0.01033, the simulator's background being 0.01.)
 func TestBandFirstAsWholeFrame(t *testing.T) {
 	for _, c := range []struct {
 		name string
@@ -796,6 +800,8 @@ func TestBandFirstAsWholeFrame(t *testing.T) {
 		{"high", synth.Params{Width: 4032, Height: 3024, LinesPerMM: 1000, TiltDeg: -2, PitchDeg: 10, FocalPX: 3000, Seed: 42, Emissions: hydrogen}},
 		{"low", synth.Params{Width: 4032, Height: 3024, LinesPerMM: 1000, TiltDeg: 1, PitchDeg: -10, FocalPX: 3000, LineHeightPX: 500, Seed: 43, Emissions: mercury}},
 		{"room light", synth.Params{Width: 4032, Height: 3024, LinesPerMM: 600, TiltDeg: -4, BackgroundGradient: 0.02, Seed: 44, Emissions: hydrogen}},
+		// 16:9: 2250 rows, which 4 does not divide.
+		{"16:9", synth.Params{Width: 4000, Height: 2250, TiltDeg: 2.5, Seed: 47, Emissions: mercury}},
 	} {
 		path, tr := writeJPEG(t, c.p, 92)
 		cfg := image.Config{Width: c.p.Width, Height: c.p.Height}
@@ -826,7 +832,7 @@ func TestBandFirstAsWholeFrame(t *testing.T) {
 			if e.n < 3 || e.n < we.n || e.rms() > 0.15 || e.worst > 0.4 {
 				t.Errorf("%s, %d workers: %d lines, RMS %.3f px, worst %.3f px along the band", c.name, workers, e.n, e.rms(), e.worst)
 			}
-			if math.Abs(s.Background-whole.Background) > 0.02*whole.Background+1e-5 || math.Abs(s.Noise-whole.Noise) > 0.2*whole.Noise+1e-5 ||
+			if math.Abs(s.Background-whole.Background) > 0.05*whole.Background+1e-5 || math.Abs(s.Noise-whole.Noise) > 0.2*whole.Noise+1e-5 ||
 				s.StrayLight != whole.StrayLight || math.Abs(s.BackgroundRange-whole.BackgroundRange) > 0.1*whole.BackgroundRange+1e-4 {
 				t.Errorf("%s, %d workers: background %.5f, σ %.5f, range %.5f, stray light %v; the whole frame's %.5f, %.5f, %.5f, %v", c.name, workers,
 					s.Background, s.Noise, s.BackgroundRange, s.StrayLight, whole.Background, whole.Noise, whole.BackgroundRange, whole.StrayLight)

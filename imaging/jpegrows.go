@@ -153,7 +153,8 @@ func (d rowDecoder) close() { C.lineshot_jpeg_close(d.j) }
 // decode's work (a 12 MP photo at a quarter: 13 against 22 ms on these
 // machines). Each reduced pixel is libjpeg's scaled inverse DCT of its
 // block, close to the block's average (not equal to it: the band search's
-// thresholds are several noise σ). ok is false, with no Mat, when the
+// thresholds are several noise σ); a side k does not divide leaves its
+// part blocks out, as reduceArea does. ok is false, with no Mat, when the
 // row decoder does not take the photo or k does not fit it; w and h are
 // the full frame's size. A progressive JPEG is not taken: every decoder
 // of one reads and holds all its scans (36 MB of coefficients for 12 MP)
@@ -167,17 +168,33 @@ func decodeReduced(path string, k int) (small gocv.Mat, w, h int, ok bool, err e
 		return gocv.Mat{}, 0, 0, false, err
 	}
 	defer d.close()
-	if d.w%k != 0 || d.h%k != 0 {
+	// libjpeg makes ow×oh pixels, the last column and row from part
+	// blocks when k does not divide a side; the band search's frame is
+	// sw×sh, of whole blocks, as reduceArea's.
+	sw, sh := d.w/k, d.h/k
+	ow, oh := (d.w+k-1)/k, (d.h+k-1)/k
+	if sw < 8 || sh < 8 {
 		return gocv.Mat{}, 0, 0, false, nil
 	}
-	sw, sh := d.w/k, d.h/k
 	small, err = newMatUnset(sh, sw, gocv.MatTypeCV8UC3, false)
 	if err != nil {
 		return gocv.Mat{}, 0, 0, false, err
 	}
 	px, err := small.DataPtrUint8()
-	if err == nil {
+	if err == nil && ow == sw && oh == sh {
 		err = d.read(px, 3*sw, sw, sh)
+	} else if err == nil {
+		var all gocv.Mat
+		if all, err = newMatUnset(oh, ow, gocv.MatTypeCV8UC3, false); err == nil {
+			var ap []uint8
+			if ap, err = all.DataPtrUint8(); err == nil {
+				err = d.read(ap, 3*ow, ow, oh)
+			}
+			for y := 0; err == nil && y < sh; y++ {
+				copy(px[3*sw*y:3*sw*(y+1)], ap[3*ow*y:])
+			}
+			all.Close()
+		}
 	}
 	if err != nil {
 		small.Close()
