@@ -109,7 +109,7 @@ func BenchmarkReduceBesideDecode(b *testing.B) {
 		keep("decode-ms", time.Since(t0))
 		m.Close()
 		t0 = time.Now()
-		m, small, _, _, err := decodeAndReduce(p, "jpeg", 2)
+		m, small, _, _, err := decodeAndReduce(p, "jpeg", 2, nil)
 		keep("beside-ms", time.Since(t0))
 		if err != nil || small == nil {
 			b.Fatal("no reduction beside the decode", err)
@@ -124,7 +124,7 @@ func BenchmarkReduceBesideDecode(b *testing.B) {
 			k, sw, sh := searchReduction(m.Cols(), m.Rows())
 			out := gocv.NewMatWithSize(sh, sw, m.Type())
 			return func(y0, y1 int) { reduceStripe(m, out, k, y0, y1) }, func() { out.Close() }
-		})
+		}, nil)
 		keep("between-ms", time.Since(t0))
 		if err != nil || !ok {
 			b.Fatal("the row decoder did not take the photo", err)

@@ -162,6 +162,10 @@ type Strip struct {
 	LeanDeg float64
 	// Warnings say in plain words what makes this strip doubtful.
 	Warnings []string
+	// Damage, when not empty, says that libjpeg decoded past corrupt data
+	// in the photo (also among Warnings): a measurement that fails should
+	// say so too.
+	Damage string
 	// Bow is how the band's centre line departs from the straight line
 	// through Origin along AngleDeg (ToImage includes it): a band away
 	// from the optical axis, or seen through a lens with barrel or
@@ -245,7 +249,8 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 			return ss, err
 		}
 	}
-	m, small, decoded, waited, err := decodeAndReduce(path, format, opt.workers())
+	var damage string
+	m, small, decoded, waited, err := decodeAndReduce(path, format, opt.workers(), &damage)
 	if err != nil {
 		return nil, err
 	}
@@ -262,14 +267,33 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	}
 	ss, err := extractBandsMat(m, opt, all, src, small)
 	if err != nil {
-		return nil, fmt.Errorf("%s: %w", path, err)
+		return nil, withDamage(fmt.Errorf("%s: %w", path, err), damage)
 	}
 	for i := range ss {
 		// (The reduction's part after the decode belongs to the search.)
 		ss[i].Timing.Decode += decoded
 		ss[i].Timing.Locate += waited
+		ss[i].noteDamage(damage)
 	}
 	return ss, nil
+}
+
+// noteDamage adds to the strip's warnings the row decoder's line on
+// damaged JPEG data, if there is one.
+func (s *Strip) noteDamage(damage string) {
+	if damage != "" {
+		s.Damage = damage
+		s.Warnings = append(s.Warnings, damage)
+	}
+}
+
+// withDamage adds the line on damaged JPEG data, if there is one, to an
+// extraction's error: the damage is the likelier reason.
+func withDamage(err error, damage string) error {
+	if damage == "" {
+		return err
+	}
+	return fmt.Errorf("%w; %s", err, damage)
 }
 
 // extractBandFirst measures the strongest band of a large JPEG without
@@ -316,7 +340,8 @@ func extractBandFirst(path string, cfg image.Config, opt Options) ([]Strip, bool
 			ahead.stop()
 		}
 	}
-	small, w, h, ok, err := decodeReduced(path, k)
+	var damage string
+	small, w, h, ok, err := decodeReduced(path, k, &damage)
 	if err != nil || !ok || w != cfg.Width || h != cfg.Height {
 		stop()
 		closeFrame()
@@ -361,10 +386,11 @@ func extractBandFirst(path string, cfg image.Config, opt Options) ([]Strip, bool
 	}
 	ss, err := extractBandsMat(m, opt, false, rowSource{fill: fill}, &small)
 	if err != nil {
-		return nil, true, fmt.Errorf("%s: %w", path, err)
+		return nil, true, withDamage(fmt.Errorf("%s: %w", path, err), damage)
 	}
 	for i := range ss {
 		ss[i].Timing.Decode += decoded
+		ss[i].noteDamage(damage)
 	}
 	return ss, true, nil
 }
@@ -418,7 +444,7 @@ const bandFirstPixels = 7_000_000
 // returning its size: the floor under Extract's time, for benchmarks.
 // (Without Extract's checks of the file: a strict floor.)
 func Decode(path string) (w, h int, err error) {
-	m, ok, err := decodeRows(path, nil)
+	m, ok, err := decodeRows(path, nil, nil)
 	if err != nil || !ok {
 		// Not a JPEG, or not one the row decoder takes.
 		if m, err = imreadOK(path); err != nil {

@@ -16,6 +16,7 @@ struct lineshot_jpeg {
     jmp_buf jump;
     FILE *file;
     char msg[JMSG_LENGTH_MAX];
+    char warning[JMSG_LENGTH_MAX]; // the first warning, when there was one
 };
 
 static void on_error(j_common_ptr c) {
@@ -25,11 +26,15 @@ static void on_error(j_common_ptr c) {
 }
 
 // Warnings (corrupt data libjpeg decodes past, as imread does) are counted
-// by libjpeg, not printed: a file cut short never gets here (the caller
-// checks for the end marker first).
+// by libjpeg, not printed; the first is kept for lineshot_jpeg_warnings. A
+// file cut short never gets here (the caller checks for the end marker
+// first).
 static void on_message(j_common_ptr c, int level) {
     if (level < 0) {
-        c->err->num_warnings++;
+        if (c->err->num_warnings++ == 0) {
+            struct lineshot_jpeg *j = (struct lineshot_jpeg *)c->client_data;
+            (*c->err->format_message)(c, j->warning);
+        }
     }
 }
 
@@ -167,6 +172,12 @@ int lineshot_jpeg_skip(struct lineshot_jpeg *j, int n, char *msg, size_t msglen)
         return -1;
     }
     return (int)jpeg_skip_scanlines(&j->cinfo, (JDIMENSION)n);
+}
+
+long lineshot_jpeg_warnings(struct lineshot_jpeg *j, char *msg, size_t msglen) {
+    long n = j->jerr.num_warnings;
+    snprintf(msg, msglen, "%s", n > 0 ? j->warning : "");
+    return n;
 }
 
 void lineshot_jpeg_close(struct lineshot_jpeg *j) {

@@ -32,12 +32,13 @@ import (
 //
 // Why hand-written: imread returns nothing until the whole frame is
 // decoded, and gocv has no way in between.
-func decodeRows(path string, plan func(m gocv.Mat) (each func(y0, y1 int), wait func())) (m gocv.Mat, ok bool, err error) {
+func decodeRows(path string, plan func(m gocv.Mat) (each func(y0, y1 int), wait func()), damage *string) (m gocv.Mat, ok bool, err error) {
 	d, ok, err := openRows(path, 8, false)
 	if !ok || err != nil {
 		return gocv.Mat{}, false, err
 	}
 	defer d.close()
+	defer d.noteDamage(damage)
 	w, h := d.w, d.h
 	m, err = newMatUnset(h, w, gocv.MatTypeCV8UC3, true)
 	if err != nil {
@@ -147,6 +148,26 @@ func (d rowDecoder) skip(n int) error {
 
 func (d rowDecoder) close() { C.lineshot_jpeg_close(d.j) }
 
+// noteDamage sets *damage, when damage is not nil and libjpeg decoded past
+// corrupt data, to a line saying so (the rows after it may be grey or
+// garbled, and the lines measured there wrong: a mercury photo with 20 kB
+// zeroed in the middle of its data was taken for a hydrogen lamp, with
+// 0.97 confidence, and for a compact fluorescent one when decoded whole
+// by imread, which says nothing either).
+func (d rowDecoder) noteDamage(damage *string) {
+	if damage == nil {
+		return
+	}
+	var msg [256]C.char
+	if n := int(C.lineshot_jpeg_warnings(d.j, &msg[0], C.size_t(len(msg)))); n > 0 {
+		errs := "1 error"
+		if n > 1 {
+			errs = fmt.Sprintf("%d errors", n)
+		}
+		*damage = fmt.Sprintf("the photo's JPEG data is damaged (libjpeg decoded past %s, the first: %s): what lies after the damage may be grey or garbled and its lines wrong; copy the photo again from the camera", errs, C.GoString(&msg[0]))
+	}
+}
+
 // decodeReduced decodes the JPEG at path at 1/k of its size (k 2, 4 or 8,
 // dividing both sides) into a new 8-bit BGR Mat, by libjpeg's DCT
 // scaling: what the band search looks at, for a fraction of a full
@@ -159,7 +180,7 @@ func (d rowDecoder) close() { C.lineshot_jpeg_close(d.j) }
 // the full frame's size. A progressive JPEG is not taken: every decoder
 // of one reads and holds all its scans (36 MB of coefficients for 12 MP)
 // before its first row, so the band's rows would cost a whole decode each.
-func decodeReduced(path string, k int) (small gocv.Mat, w, h int, ok bool, err error) {
+func decodeReduced(path string, k int, damage *string) (small gocv.Mat, w, h int, ok bool, err error) {
 	if k != 2 && k != 4 && k != 8 {
 		return gocv.Mat{}, 0, 0, false, nil
 	}
@@ -168,6 +189,7 @@ func decodeReduced(path string, k int) (small gocv.Mat, w, h int, ok bool, err e
 		return gocv.Mat{}, 0, 0, false, err
 	}
 	defer d.close()
+	defer d.noteDamage(damage) // (this decode reads all of the data)
 	// libjpeg makes ow×oh pixels, the last column and row from part
 	// blocks when k does not divide a side; the band search's frame is
 	// sw×sh, of whole blocks, as reduceArea's.
@@ -245,14 +267,14 @@ const decodeStripe = 512
 // own bit depth). On failure there is no Mat to close and the error names
 // the file and the reason.
 func decodeFrame(path, format string) (gocv.Mat, error) {
-	return decodeFramePlanned(path, format, nil)
+	return decodeFramePlanned(path, format, nil, nil)
 }
 
-// decodeFramePlanned is decodeFrame with decodeRows's plan for a JPEG the
-// row decoder takes (plan is not called for any other photo).
-func decodeFramePlanned(path, format string, plan func(m gocv.Mat) (each func(y0, y1 int), wait func())) (gocv.Mat, error) {
+// decodeFramePlanned is decodeFrame with decodeRows's plan and damage for
+// a JPEG the row decoder takes (not used for any other photo).
+func decodeFramePlanned(path, format string, plan func(m gocv.Mat) (each func(y0, y1 int), wait func()), damage *string) (gocv.Mat, error) {
 	if format == "jpeg" {
-		m, ok, err := decodeRows(path, plan)
+		m, ok, err := decodeRows(path, plan, damage)
 		if err != nil {
 			return gocv.Mat{}, jpegError(path, err)
 		}
@@ -286,10 +308,10 @@ func searchReduction(w, h int) (k, sw, sh int) {
 // how long the decode took; waited, how long the reduction went on after it.
 //
 // Errors are as decodeFrame's: no Mat to close.
-func decodeAndReduce(path, format string, workers int) (m gocv.Mat, small *gocv.Mat, decoded, waited time.Duration, err error) {
+func decodeAndReduce(path, format string, workers int, damage *string) (m gocv.Mat, small *gocv.Mat, decoded, waited time.Duration, err error) {
 	t0 := time.Now()
 	if format != "jpeg" || workers <= 1 {
-		m, err = decodeFrame(path, format)
+		m, err = decodeFramePlanned(path, format, nil, damage)
 		return m, nil, time.Since(t0), 0, err
 	}
 	var (
@@ -322,7 +344,7 @@ func decodeAndReduce(path, format string, workers int) (m gocv.Mat, small *gocv.
 		}
 		return func(y0, y1 int) { todo <- [2]int{y0, y1} }, wait
 	}
-	m, err = decodeFramePlanned(path, format, plan)
+	m, err = decodeFramePlanned(path, format, plan, damage)
 	if t1.IsZero() {
 		t1 = time.Now() // (no plan was made, or the photo went to imread)
 	}

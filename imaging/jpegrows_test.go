@@ -6,6 +6,8 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
+	"strings"
 	"testing"
 
 	"gocv.io/x/gocv"
@@ -70,7 +72,7 @@ func TestDecodeRowsAsImread(t *testing.T) {
 		var stripes [][2]int
 		got, ok, err := decodeRows(p, func(m gocv.Mat) (func(y0, y1 int), func()) {
 			return func(y0, y1 int) { stripes = append(stripes, [2]int{y0, y1}) }, nil
-		})
+		}, nil)
 		if err != nil || !ok {
 			t.Fatalf("%s: ok %v, %v", filepath.Base(p), ok, err)
 		}
@@ -110,7 +112,7 @@ func TestDecodeRowsLeavesTurnedPhotos(t *testing.T) {
 		if err := os.WriteFile(p, b, 0o644); err != nil {
 			t.Fatal(err)
 		}
-		m, ok, err := decodeRows(p, nil)
+		m, ok, err := decodeRows(p, nil, nil)
 		if err != nil || ok != c.takes {
 			t.Errorf("%s: ok %v (want %v), %v", c.name, ok, c.takes, err)
 		}
@@ -164,7 +166,7 @@ func TestDecodeAndReduce(t *testing.T) {
 			}
 		}
 		for _, workers := range []int{1, 2} {
-			m, small, _, _, err := decodeAndReduce(src, "jpeg", workers)
+			m, small, _, _, err := decodeAndReduce(src, "jpeg", workers, nil)
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -231,7 +233,7 @@ func TestDecodeRowsDamagedExif(t *testing.T) {
 		if err := os.WriteFile(p, b, 0o644); err != nil {
 			t.Fatal(err)
 		}
-		if m, ok, err := decodeRows(p, nil); err == nil && ok {
+		if m, ok, err := decodeRows(p, nil, nil); err == nil && ok {
 			if m.Cols() != 64 || m.Rows() != 48 {
 				t.Errorf("%v: %dx%d", ch, m.Cols(), m.Rows())
 			}
@@ -350,7 +352,7 @@ func TestDecodeReduced(t *testing.T) {
 		for _, p := range jpegKinds(t, w, h) {
 			name := fmt.Sprintf("%dx%d %s", w, h, filepath.Base(p))
 			if filepath.Base(p) == "progressive.jpg" {
-				if small, _, _, ok, err := decodeReduced(p, 4); ok || err != nil {
+				if small, _, _, ok, err := decodeReduced(p, 4, nil); ok || err != nil {
 					small.Close()
 					t.Errorf("%s: ok %v, %v; want declined", name, ok, err)
 				}
@@ -359,7 +361,7 @@ func TestDecodeReduced(t *testing.T) {
 			whole := imread(p)
 			fb, _ := whole.DataPtrUint8()
 			for _, k := range []int{2, 4, 8} {
-				small, gw, gh, ok, err := decodeReduced(p, k)
+				small, gw, gh, ok, err := decodeReduced(p, k, nil)
 				if err != nil || !ok || gw != w || gh != h || small.Cols() != w/k || small.Rows() != h/k {
 					t.Fatalf("%s, k %d: ok %v, %v, frame %dx%d, reduced %dx%d", name, k, ok, err, gw, gh, small.Cols(), small.Rows())
 				}
@@ -391,7 +393,7 @@ func TestDecodeReduced(t *testing.T) {
 	}
 	p := jpegKinds(t, 1024, 768)[0]
 	for _, k := range []int{1, 3, 5} {
-		if small, _, _, ok, err := decodeReduced(p, k); ok || err != nil {
+		if small, _, _, ok, err := decodeReduced(p, k, nil); ok || err != nil {
 			small.Close()
 			t.Errorf("k %d: ok %v, %v; want declined", k, ok, err)
 		}
@@ -421,6 +423,44 @@ func TestFillParts(t *testing.T) {
 		}
 		if hi-lo > 1.5 {
 			t.Errorf("%+v: bounds %v, costs from %.1f to %.1f", c, b, lo, hi)
+		}
+	}
+}
+
+// A JPEG whose data was damaged in the middle (zeros over part of it, as a
+// failed copy leaves) still ends with its end marker, and libjpeg decodes
+// past the damage, as imread does, without a word: the measurement now
+// says so, in the strip's warnings or in its error, for a photo decoded
+// whole (one worker and two) and one decoded band first; a sound photo
+// carries no such line.
+func TestDamagedJPEGSaysSo(t *testing.T) {
+	for _, p := range []synth.Params{
+		{Width: 1920, Height: 1080, TiltDeg: 2, Seed: 71, Emissions: mercury},
+		{Width: 4032, Height: 3024, TiltDeg: 2, Seed: 72, Emissions: mercury},
+	} {
+		sound, _ := writeJPEG(t, p, 90)
+		raw, err := os.ReadFile(sound)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for i := len(raw) / 2; i < len(raw)/2+len(raw)/100; i++ {
+			raw[i] = 0
+		}
+		damaged := filepath.Join(t.TempDir(), "damaged.jpg")
+		if err := os.WriteFile(damaged, raw, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		for _, workers := range []int{1, 2} {
+			s, err := Extract(sound, Options{Workers: workers})
+			if err != nil || s.Damage != "" {
+				t.Errorf("%dx%d sound, %d workers: %v, damage %q", p.Width, p.Height, workers, err, s.Damage)
+			}
+			s, err = Extract(damaged, Options{Workers: workers})
+			said := err != nil && strings.Contains(err.Error(), "JPEG data is damaged") ||
+				err == nil && strings.Contains(s.Damage, "JPEG data is damaged") && slices.Contains(s.Warnings, s.Damage)
+			if !said {
+				t.Errorf("%dx%d damaged, %d workers: %v, damage %q", p.Width, p.Height, workers, err, s.Damage)
+			}
 		}
 	}
 }

@@ -24,7 +24,7 @@ go test -count=1 -race -run 'TestBothOrdersClassifiedRight|TestClassif' ./calibr
 # The row decoder's C code (imaging/jpegrows.c) under AddressSanitizer: a
 # read past an Exif block or a row buffer fails the run (about a minute to
 # build the first time).
-go test -count=1 -asan -run 'TestDecodeRows|TestDecodeAndReduce|TestRowsIntoAsWhole|TestDecodeReduced' ./imaging
+go test -count=1 -asan -run 'TestDecodeRows|TestDecodeAndReduce|TestRowsIntoAsWhole|TestDecodeReduced|TestDamagedJPEG' ./imaging
 # Every fuzz target briefly (a count of executions each; FUZZTIME, if set,
 # replaces it); found crashers land in testdata/fuzz/.
 scripts/fuzz.sh

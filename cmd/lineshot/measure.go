@@ -576,11 +576,19 @@ func extractAndFind(path string, cfg measureConfig) (measured, error) {
 func findLines(s imaging.Strip, path string, cfg measureConfig) (measured, error) {
 	r, err := peaks.Find(s.Profile, peaks.Options{MinSNR: cfg.minSNR, Clipped: s.Clipped, NoiseShape: s.NoiseShape, Workers: cfg.imageOpts.Workers})
 	if err != nil {
-		return measured{}, fmt.Errorf("%s: %w", path, err)
+		err = fmt.Errorf("%s: %w", path, err)
+		if s.Damage != "" {
+			err = fmt.Errorf("%w; %s", err, s.Damage)
+		}
+		return measured{}, err
 	}
 	fromUnclippedChannel(s, &r, cfg.minSNR, cfg.imageOpts.Workers)
 	if len(r.Peaks) == 0 {
-		return measured{}, fmt.Errorf("%s: no line stands above the noise (threshold %.1fσ)", path, cfg.minSNR)
+		err := fmt.Errorf("%s: no line stands above the noise (threshold %.1fσ)", path, cfg.minSNR)
+		if s.Damage != "" {
+			err = fmt.Errorf("%w; %s", err, s.Damage)
+		}
+		return measured{}, err
 	}
 	if cfg.saveStrip != "" {
 		if err := writeStripImage(cfg.saveStrip, measured{strip: s, found: r}, false); err != nil {
