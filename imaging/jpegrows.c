@@ -8,6 +8,7 @@
 #include <stdlib.h>
 #include <string.h>
 #include <jpeglib.h>
+#include <jerror.h>
 #include "jpegrows.h"
 
 struct lineshot_jpeg {
@@ -16,7 +17,8 @@ struct lineshot_jpeg {
     jmp_buf jump;
     FILE *file;
     char msg[JMSG_LENGTH_MAX];
-    char warning[JMSG_LENGTH_MAX]; // the first warning, when there was one
+    long damage;                   // warnings that mean damaged pixels
+    char warning[JMSG_LENGTH_MAX]; // the first of them
 };
 
 static void on_error(j_common_ptr c) {
@@ -25,14 +27,17 @@ static void on_error(j_common_ptr c) {
     longjmp(j->jump, 1);
 }
 
-// Warnings (corrupt data libjpeg decodes past, as imread does) are counted
-// by libjpeg, not printed; the first is kept for lineshot_jpeg_warnings. A
-// file cut short never gets here (the caller checks for the end marker
-// first).
+// Warnings (corrupt data libjpeg decodes past, as imread does) are counted,
+// not printed, and the first kept for lineshot_jpeg_warnings; except
+// extraneous bytes before a marker, which some cameras write (padding
+// between segments) and which leave every pixel as it was (libjpeg finds
+// them only when a segment's data is complete). A file cut short
+// never gets here (the caller checks for the end marker first).
 static void on_message(j_common_ptr c, int level) {
     if (level < 0) {
-        if (c->err->num_warnings++ == 0) {
-            struct lineshot_jpeg *j = (struct lineshot_jpeg *)c->client_data;
+        c->err->num_warnings++;
+        struct lineshot_jpeg *j = (struct lineshot_jpeg *)c->client_data;
+        if (c->err->msg_code != JWRN_EXTRANEOUS_DATA && j->damage++ == 0) {
             (*c->err->format_message)(c, j->warning);
         }
     }
@@ -175,9 +180,8 @@ int lineshot_jpeg_skip(struct lineshot_jpeg *j, int n, char *msg, size_t msglen)
 }
 
 long lineshot_jpeg_warnings(struct lineshot_jpeg *j, char *msg, size_t msglen) {
-    long n = j->jerr.num_warnings;
-    snprintf(msg, msglen, "%s", n > 0 ? j->warning : "");
-    return n;
+    snprintf(msg, msglen, "%s", j->damage > 0 ? j->warning : "");
+    return j->damage;
 }
 
 void lineshot_jpeg_close(struct lineshot_jpeg *j) {

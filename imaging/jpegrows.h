@@ -26,8 +26,8 @@ int lineshot_jpeg_rows(struct lineshot_jpeg *j, unsigned char *dst, size_t strid
 // reads their data); returns the rows passed, or -1 with the reason in msg.
 int lineshot_jpeg_skip(struct lineshot_jpeg *j, int n, char *msg, size_t msglen);
 
-// Returns how many warnings libjpeg gave so far (corrupt data it decoded
-// past), with the first in msg.
+// Returns how many warnings libjpeg gave so far that mean damaged pixels
+// (corrupt data it decoded past), with the first in msg.
 long lineshot_jpeg_warnings(struct lineshot_jpeg *j, char *msg, size_t msglen);
 
 void lineshot_jpeg_close(struct lineshot_jpeg *j);

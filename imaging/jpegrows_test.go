@@ -432,7 +432,7 @@ func TestFillParts(t *testing.T) {
 // past the damage, as imread does, without a word: the measurement now
 // says so, in the strip's warnings or in its error, for a photo decoded
 // whole (one worker and two) and one decoded band first; a sound photo
-// carries no such line.
+// carries no such line, nor one padded between two segments.
 func TestDamagedJPEGSaysSo(t *testing.T) {
 	for _, p := range []synth.Params{
 		{Width: 1920, Height: 1080, TiltDeg: 2, Seed: 71, Emissions: mercury},
@@ -450,12 +450,26 @@ func TestDamagedJPEGSaysSo(t *testing.T) {
 		if err := os.WriteFile(damaged, raw, 0o644); err != nil {
 			t.Fatal(err)
 		}
+		// Padding between segments, as some cameras write: libjpeg warns
+		// of extraneous bytes before the next marker (here the start of
+		// the scan), and every pixel is as it was.
+		good, _ := os.ReadFile(sound)
+		sos := bytes.Index(good, []byte{0xff, 0xda})
+		if sos < 0 {
+			t.Fatal("no start of scan")
+		}
+		padded := filepath.Join(t.TempDir(), "padded.jpg")
+		if err := os.WriteFile(padded, slices.Concat(good[:sos], make([]byte, 16), good[sos:]), 0o644); err != nil {
+			t.Fatal(err)
+		}
 		for _, workers := range []int{1, 2} {
-			s, err := Extract(sound, Options{Workers: workers})
-			if err != nil || s.Damage != "" {
-				t.Errorf("%dx%d sound, %d workers: %v, damage %q", p.Width, p.Height, workers, err, s.Damage)
+			for _, f := range []string{sound, padded} {
+				s, err := Extract(f, Options{Workers: workers})
+				if err != nil || s.Damage != "" {
+					t.Errorf("%dx%d %s, %d workers: %v, damage %q", p.Width, p.Height, filepath.Base(f), workers, err, s.Damage)
+				}
 			}
-			s, err = Extract(damaged, Options{Workers: workers})
+			s, err := Extract(damaged, Options{Workers: workers})
 			said := err != nil && strings.Contains(err.Error(), "JPEG data is damaged") ||
 				err == nil && strings.Contains(s.Damage, "JPEG data is damaged") && slices.Contains(s.Warnings, s.Damage)
 			if !said {
