@@ -777,8 +777,9 @@ func TestReleasedImagePixels(t *testing.T) {
 
 // TestBandFirstAsWholeFrame: the band-first decode (a reduced decode for
 // the band search, then only the band's rows at full size) measures a
-// 12 MP photo (and a 9 MP 16:9 one, whose height the reduction by 4 does
-// not divide) as well as decoding the whole frame does, with one worker
+// 12 MP photo (a 9 MP 16:9 one, whose height the reduction by 4 does not
+// divide, and a 16 MP one, searched at a quarter where the whole frame is
+// reduced by 5) as well as decoding the whole frame does, with one worker
 // and with two (the rows decoded ahead): a level band across the middle in
 // the same direction within 0.01° and its lines within 0.02 px of the
 // whole frame's along the band; bands above and below the middle, seen by a pitched
@@ -802,6 +803,8 @@ func TestBandFirstAsWholeFrame(t *testing.T) {
 		{"room light", synth.Params{Width: 4032, Height: 3024, LinesPerMM: 600, TiltDeg: -4, BackgroundGradient: 0.02, Seed: 44, Emissions: hydrogen}},
 		// 16:9: 2250 rows, which 4 does not divide.
 		{"16:9", synth.Params{Width: 4000, Height: 2250, TiltDeg: 2.5, Seed: 47, Emissions: mercury}},
+		// 16 MP: reduced by 5 when decoded whole, searched at a quarter.
+		{"16 MP", synth.Params{Width: 4624, Height: 3472, TiltDeg: -3.5, Seed: 48, Emissions: hydrogen}},
 	} {
 		path, tr := writeJPEG(t, c.p, 92)
 		cfg := image.Config{Width: c.p.Width, Height: c.p.Height}
