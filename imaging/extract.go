@@ -254,13 +254,7 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	if err != nil {
 		return nil, err
 	}
-	// Handing a 12 MP frame's memory back takes several milliseconds;
-	// with a core to spare it is done beside the work that follows.
-	if opt.workers() > 1 {
-		defer func() { go m.Close() }()
-	} else {
-		defer m.Close()
-	}
+	defer closeFrame(m, opt.workers())
 	var src rowSource
 	if !all {
 		src.reload = func() (gocv.Mat, error) { return decodeFrame(path, format) }
@@ -277,6 +271,21 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	}
 	return ss, nil
 }
+
+// closeFrame closes a decoded frame's Mat: handing a 12 MP frame's memory
+// back takes several milliseconds, so with a core to spare it is done
+// beside the work that follows.
+func closeFrame(m gocv.Mat, workers int) {
+	if workers > 1 {
+		go m.Close()
+	} else {
+		m.Close()
+	}
+}
+
+// errPhotoChanged is the error when a photo decoded again (or in parts)
+// is not the one decoded first.
+var errPhotoChanged = errors.New("the photo changed while it was measured")
 
 // noteDamage adds to the strip's warnings the row decoder's line on
 // damaged JPEG data, if there is one.
@@ -334,13 +343,6 @@ func extractBandFirst(path string, cfg image.Config, opt Options) ([]Strip, bool
 	if err != nil {
 		return nil, false, fmt.Errorf("%s: %w", path, err)
 	}
-	closeFrame := func() {
-		if opt.workers() > 1 {
-			go m.Close() // (handing the memory back takes a while)
-		} else {
-			m.Close()
-		}
-	}
 	var ahead *rowsAhead
 	if opt.workers() > 1 {
 		ahead = decodeAhead(path, m)
@@ -354,20 +356,20 @@ func extractBandFirst(path string, cfg image.Config, opt Options) ([]Strip, bool
 	small, w, h, ok, err := decodeReduced(path, k, &damage)
 	if err != nil || !ok || w != cfg.Width || h != cfg.Height {
 		stop()
-		closeFrame()
+		closeFrame(m, opt.workers())
 		if err != nil {
 			return nil, false, jpegError(path, err)
 		}
 		if ok {
 			small.Close()
-			return nil, false, fmt.Errorf("%s: the photo changed while it was measured", path)
+			return nil, false, fmt.Errorf("%s: %w", path, errPhotoChanged)
 		}
 		return nil, false, nil
 	}
 	decoded := time.Since(t0)
-	defer closeFrame()
+	defer closeFrame(m, opt.workers())
 	defer stop() // (before the frame goes)
-	fill := func(m gocv.Mat, y0, y1 int) error {
+	fill := func(y0, y1 int) error {
 		if ahead != nil {
 			// Done with the decoder ahead either way: once stopped, it
 			// writes no more rows (keepRows gives back those it wrote
@@ -676,7 +678,7 @@ func (f *frame) need(y0, y1 int) error {
 	}
 	nf, err := newFrame(m)
 	if err == nil && (nf.w != f.w || nf.h != f.h || nf.bytes8 == nil) {
-		err = errors.New("the photo changed while it was measured")
+		err = errPhotoChanged
 	}
 	if err != nil {
 		m.Close()
@@ -814,10 +816,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool, src rowSource, small *go
 		return nil, err
 	}
 	fr := &f
-	fr.reload = src.reload
-	if src.fill != nil {
-		fr.fill = func(y0, y1 int) error { return src.fill(m, y0, y1) }
-	}
+	fr.reload, fr.fill = src.reload, src.fill
 	defer fr.release()
 	var dropping sync.WaitGroup
 	defer dropping.Wait() // before the caller closes the Mat
@@ -833,11 +832,16 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool, src rowSource, small *go
 	lut := tables.lut
 
 	// 1. Find the band roughly on a reduced frame.
+	// sx, sy: frame pixels a reduced pixel.
 	k, sw, sh := searchReduction(fr.w, fr.h)
-	if small != nil && src.fill != nil {
-		// The band-first decode's reduction (extractBandFirst).
+	sx, sy := float64(fr.w)/float64(sw), float64(fr.h)/float64(sh)
+	if src.fill != nil {
+		// The band-first decode's reduction (extractBandFirst): libjpeg's
+		// k×k blocks, also where k does not divide a side (the part
+		// blocks left out).
 		sw, sh = small.Cols(), small.Rows()
 		k = fr.w / sw
+		sx, sy = float64(k), float64(k)
 	}
 	if small == nil {
 		s, err := reduceArea(m, k, sw, sh)
@@ -894,12 +898,6 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool, src rowSource, small *go
 	ang := principalAngle(pts)
 	if opt.FixAngle {
 		ang = opt.AngleDeg
-	}
-	sx, sy := float64(fr.w)/float64(sw), float64(fr.h)/float64(sh)
-	if src.fill != nil {
-		// libjpeg's reduced pixels are k×k blocks even where k does not
-		// divide a side (the part blocks left out).
-		sx, sy = float64(k), float64(k)
 	}
 	guesses := crossBands(sp, ang, bg, sx, sy, true, opt.workers())
 	if len(guesses) == 0 {
@@ -1064,11 +1062,11 @@ type frameLevels struct {
 
 // rowSource is how a frame gets rows it does not hold. reload decodes the
 // whole photo again (for a frame that gave rows back); fill decodes rows
-// [y0, y1) of the photo into m, for a frame that began with none (the
-// band-first decode). Either may be nil.
+// [y0, y1) of the photo into the frame's Mat, for a frame that began with
+// none (the band-first decode). Either may be nil.
 type rowSource struct {
 	reload func() (gocv.Mat, error)
-	fill   func(m gocv.Mat, y0, y1 int) error
+	fill   func(y0, y1 int) error
 }
 
 // strongestGuess is the index of the band with the brightest plateau.

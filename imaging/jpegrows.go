@@ -120,13 +120,20 @@ func (d rowDecoder) read(dst []uint8, stride, ow, n int) error {
 	}
 	var msg [256]C.char
 	got := C.lineshot_jpeg_rows(d.j, (*C.uchar)(unsafe.Pointer(&dst[0])), C.size_t(stride), C.int(n), &msg[0], C.size_t(len(msg)))
-	if int(got) != n {
-		if got >= 0 {
-			return fmt.Errorf("the decoder gave %d rows of %d", got, n)
-		}
-		return errors.New(C.GoString(&msg[0]))
+	return rowsDone(int(got), n, "gave", &msg[0])
+}
+
+// rowsDone is the error of a decoder call that was to take n rows and took
+// got: nil when got is n; libjpeg's reason, in msg, when it failed (-1).
+func rowsDone(got, n int, verb string, msg *C.char) error {
+	switch {
+	case got == n:
+		return nil
+	case got >= 0:
+		return fmt.Errorf("the decoder %s %d rows of %d", verb, got, n)
+	default:
+		return errors.New(C.GoString(msg))
 	}
-	return nil
 }
 
 // skip passes over the next n rows: libjpeg reads their data but makes no
@@ -137,13 +144,7 @@ func (d rowDecoder) skip(n int) error {
 	}
 	var msg [256]C.char
 	got := C.lineshot_jpeg_skip(d.j, C.int(n), &msg[0], C.size_t(len(msg)))
-	if int(got) != n {
-		if got >= 0 {
-			return fmt.Errorf("the decoder passed %d rows of %d", got, n)
-		}
-		return errors.New(C.GoString(&msg[0]))
-	}
-	return nil
+	return rowsDone(int(got), n, "passed", &msg[0])
 }
 
 func (d rowDecoder) close() { C.lineshot_jpeg_close(d.j) }
@@ -236,11 +237,11 @@ func decodeRowsInto(path string, m gocv.Mat, y0, y1 int) error {
 		return err
 	}
 	if !ok {
-		return errors.New("the photo changed while it was measured")
+		return errPhotoChanged
 	}
 	defer d.close()
 	if d.w != m.Cols() || d.h != m.Rows() || m.Type() != gocv.MatTypeCV8UC3 {
-		return errors.New("the photo changed while it was measured")
+		return errPhotoChanged
 	}
 	y0, y1 = max(0, y0), min(d.h, y1)
 	if y0 >= y1 {
