@@ -857,7 +857,7 @@ func extractBandsMat(m gocv.Mat, opt Options, all bool, src rowSource, small *go
 	}
 	defer f32Pool.put(sp.pix) // (sp may be replaced below; this buffer is the pool's)
 	gradient, bg, noise, same, surf := flatten(sp, opt.workers())
-	lv := frameLevels{rng: gradient, surf: surf}
+	lv := frameLevels{rng: gradient, surf: surf, scale: sx}
 	peak := float64(top)
 	if !same {
 		bg, noise, peak = levels(sp)
@@ -1053,11 +1053,12 @@ func reduceStripe(m, out gocv.Mat, k, y0, y1 int) {
 // reduced frame: the background level and robust σ (with room light
 // subtracted; on a lit bench, of the lines' contrast), the stray light's
 // range (gradient), whether it is a lit bench; and the room light surface
-// flatten fitted (surf) and its range (rng).
+// flatten fitted (surf), its range (rng), and the frame pixels a pixel of
+// the plane it was fitted to (scale).
 type frameLevels struct {
-	bg, noise, gradient, rng float64
-	lit                      bool
-	surf                     roomLight
+	bg, noise, gradient, rng, scale float64
+	lit                             bool
+	surf                            roomLight
 }
 
 // rowSource is how a frame gets rows it does not hold. reload decodes the
@@ -1430,9 +1431,13 @@ func slabLevels(fr *frame, lut []float32, lv frameLevels, workers int) (bg, nois
 	// As flatten decides for the whole frame: the room light surface is
 	// subtracted when its range reaches the σ (the surface fitted to the
 	// whole reduced frame, over the slab's rows: a fit to a slab alone
-	// would be poorly held across it).
+	// would be poorly held across it). The slab's pixel (x, y) covers frame
+	// pixels from (k·x, y0 + k·y), k of them each way; the surface's plane
+	// may have another reduction (a 16 MP frame: searched at a quarter,
+	// measured here by 5).
 	if bg, noise = background(sp); lv.rng >= noise {
-		lv.surf.sub(sp, y0/k, workers)
+		step := float64(k) / lv.scale
+		lv.surf.sub(sp, step/2-0.5, (float64(y0)+float64(k)/2)/lv.scale-0.5, step, workers)
 		bg, noise = background(sp)
 	}
 	if lv.lit {

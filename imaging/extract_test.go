@@ -805,6 +805,7 @@ func TestBandFirstAsWholeFrame(t *testing.T) {
 		{"16:9", synth.Params{Width: 4000, Height: 2250, TiltDeg: 2.5, Seed: 47, Emissions: mercury}},
 		// 16 MP: reduced by 5 when decoded whole, searched at a quarter.
 		{"16 MP", synth.Params{Width: 4624, Height: 3472, TiltDeg: -3.5, Seed: 48, Emissions: hydrogen}},
+		{"16 MP room light", synth.Params{Width: 4624, Height: 3472, TiltDeg: 2, BackgroundGradient: 0.03, Seed: 49, Emissions: mercury}},
 	} {
 		path, tr := writeJPEG(t, c.p, 92)
 		cfg := image.Config{Width: c.p.Width, Height: c.p.Height}

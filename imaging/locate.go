@@ -317,7 +317,7 @@ func flatten(p plane, workers int) (rng, med, sigma float64, unchanged bool, sur
 	if rng = hi - lo; rng < sigma {
 		return rng, med, sigma, true, surf
 	}
-	surf.sub(p, 0, workers)
+	surf.sub(p, 0, 0, 1, workers)
 	return rng, 0, 0, false, surf
 }
 
@@ -329,23 +329,24 @@ type roomLight struct {
 	w, h  int
 }
 
-// sub subtracts the surface from p, which holds rows [r0, r0+p.h) of the
-// plane it was fitted to (as wide), row by row (rows side by side): along
-// a row the surface is a quadratic in u.
-func (l roomLight) sub(p plane, r0, workers int) {
-	if l.w < 2 || l.h < 2 || p.w != l.w {
+// sub subtracts the surface from p, whose pixel (x, y) lies at (gx0 +
+// x·step, gy0 + y·step) on the plane it was fitted to (p: that plane
+// itself, 0, 0, 1; or rows of the same frame at another reduction), row by
+// row (rows side by side): along a row the surface is a quadratic in u.
+func (l roomLight) sub(p plane, gx0, gy0, step float64, workers int) {
+	if l.w < 2 || l.h < 2 {
 		return
 	}
 	c := l.c
 	sx, sy := 2/float64(l.w-1), 2/float64(l.h-1)
 	inParts(p.h, workers, 64, func(y0, y1 int) {
 		for y := y0; y < y1; y++ {
-			v := float64(y+r0)*sy - 1
+			v := (gy0+float64(y)*step)*sy - 1
 			a0 := c[0] + c[2]*v + c[5]*v*v - l.level
 			a1 := c[1] + c[4]*v
 			row := p.pix[y*p.w : (y+1)*p.w]
 			for x := range row {
-				u := float64(x)*sx - 1
+				u := (gx0+float64(x)*step)*sx - 1
 				row[x] -= float32(a0 + u*(a1+c[3]*u))
 			}
 		}
