@@ -261,7 +261,7 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	}
 	ss, err := extractBandsMat(m, opt, all, src, small)
 	if err != nil {
-		return nil, withDamage(fmt.Errorf("%s: %w", path, err), damage)
+		return nil, WithDamage(fmt.Errorf("%s: %w", path, err), damage)
 	}
 	for i := range ss {
 		// (The reduction's part after the decode belongs to the search.)
@@ -296,9 +296,10 @@ func (s *Strip) noteDamage(damage string) {
 	}
 }
 
-// withDamage adds the line on damaged JPEG data, if there is one, to an
-// extraction's error: the damage is the likelier reason.
-func withDamage(err error, damage string) error {
+// WithDamage adds the line on damaged JPEG data (Strip.Damage), if there
+// is one, to an error of measuring the photo: the damage is the likelier
+// reason.
+func WithDamage(err error, damage string) error {
 	if damage == "" {
 		return err
 	}
@@ -398,7 +399,7 @@ func extractBandFirst(path string, cfg image.Config, opt Options) ([]Strip, bool
 	}
 	ss, err := extractBandsMat(m, opt, false, rowSource{fill: fill}, &small)
 	if err != nil {
-		return nil, true, withDamage(fmt.Errorf("%s: %w", path, err), damage)
+		return nil, true, WithDamage(fmt.Errorf("%s: %w", path, err), damage)
 	}
 	for i := range ss {
 		ss[i].Timing.Decode += decoded

@@ -574,21 +574,16 @@ func extractAndFind(path string, cfg measureConfig) (measured, error) {
 // findLines measures the lines of a straightened band; path names it in
 // errors.
 func findLines(s imaging.Strip, path string, cfg measureConfig) (measured, error) {
+	fail := func(err error) (measured, error) {
+		return measured{}, imaging.WithDamage(fmt.Errorf("%s: %w", path, err), s.Damage)
+	}
 	r, err := peaks.Find(s.Profile, peaks.Options{MinSNR: cfg.minSNR, Clipped: s.Clipped, NoiseShape: s.NoiseShape, Workers: cfg.imageOpts.Workers})
 	if err != nil {
-		err = fmt.Errorf("%s: %w", path, err)
-		if s.Damage != "" {
-			err = fmt.Errorf("%w; %s", err, s.Damage)
-		}
-		return measured{}, err
+		return fail(err)
 	}
 	fromUnclippedChannel(s, &r, cfg.minSNR, cfg.imageOpts.Workers)
 	if len(r.Peaks) == 0 {
-		err := fmt.Errorf("%s: no line stands above the noise (threshold %.1fσ)", path, cfg.minSNR)
-		if s.Damage != "" {
-			err = fmt.Errorf("%w; %s", err, s.Damage)
-		}
-		return measured{}, err
+		return fail(fmt.Errorf("no line stands above the noise (threshold %.1fσ)", cfg.minSNR))
 	}
 	if cfg.saveStrip != "" {
 		if err := writeStripImage(cfg.saveStrip, measured{strip: s, found: r}, false); err != nil {
