@@ -449,14 +449,17 @@ func (a *rowsAhead) run(path string, m gocv.Mat) {
 }
 
 // get waits until rows [y0, y1) are decoded and reports true, or reports
-// false when the decoder stopped without them (a later request than the
-// first, or a failure: the caller decodes them itself).
+// false when the decoder stopped without them (a failure: the caller
+// decodes them itself). Only the first request is served: by a later one
+// the caller may have given back rows decoded ahead (frame.keepRows), which
+// then read as zeros however many the decoder made.
 func (a *rowsAhead) get(y0, y1 int) bool {
 	a.mu.Lock()
 	defer a.mu.Unlock()
-	if a.to == 0 {
-		a.from, a.to = y0, y1
+	if a.to != 0 {
+		return false
 	}
+	a.from, a.to = y0, y1
 	for !a.stopped && !(a.lo <= y0 && a.hi >= y1) {
 		a.cond.Wait()
 	}
