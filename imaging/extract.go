@@ -663,6 +663,12 @@ func (f *frame) need(y0, y1 int) error {
 		}
 		a, b := max(0, y0-fillMargin), min(f.h, y1+fillMargin)
 		t := time.Now()
+		if f.dropping != nil {
+			// Rows given back on another goroutine (keepRows) may be
+			// among those about to be decoded into the same memory:
+			// given back after, they would read as zeros.
+			f.dropping.Wait()
+		}
 		if err := f.fill(a, b); err != nil {
 			return err
 		}
