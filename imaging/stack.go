@@ -8,6 +8,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"sort"
 	"strings"
 	"time"
@@ -60,13 +61,13 @@ func ExtractStack(st Stack, opt Options) (Strip, error) {
 		st.MaxVideoFrames = 600
 	}
 	t0 := time.Now()
-	light, err := accumulate(st.Frames, st.MaxVideoFrames, opt)
+	light, err := accumulate(st.Frames, st.MaxVideoFrames, opt, true)
 	if err != nil {
 		return Strip{}, err
 	}
 	var dark *average
 	if len(st.Dark) > 0 {
-		d, err := accumulate(st.Dark, st.MaxVideoFrames, opt)
+		d, err := accumulate(st.Dark, st.MaxVideoFrames, opt, false)
 		if err != nil {
 			return Strip{}, err
 		}
@@ -74,6 +75,9 @@ func ExtractStack(st Stack, opt Options) (Strip, error) {
 			return Strip{}, fmt.Errorf("%s: dark frame is %dx%d, the photos %dx%d", st.Dark[0], d.w, d.h, light.w, light.h)
 		}
 		dark = &d
+	}
+	if len(light.files) < 2 {
+		light.files = nil // one file: nothing to compare
 	}
 	opt = opt.withProfile(light.compressed)
 	m, err := light.mat(dark, opt.Linear)
@@ -88,6 +92,9 @@ func ExtractStack(st Stack, opt Options) (Strip, error) {
 	}
 	s.Timing.Decode = decoded
 	s.Frames = light.n
+	if w := stackMismatch(light.files, s); w != "" {
+		s.Warnings = append(s.Warnings, w)
+	}
 	if dark != nil {
 		s.DarkFrames = dark.n
 	}
@@ -102,11 +109,33 @@ type average struct {
 	sum        []float32
 	clipped    []bool
 	compressed bool // JPEG or video: luma is the better profile
+	// files are the files' own averages, reduced, for stackMismatch (when
+	// accumulate was asked to keep them).
+	files []fileThumb
 }
 
-// accumulate sums every frame of the given stills and videos.
-func accumulate(paths []string, maxVideo int, opt Options) (average, error) {
+// fileThumb is one file's frames reduced r×r, in linear intensity with the
+// three channels summed, added up over its frames (n of them, a video's
+// sampled): enough to tell, once the band is found in the stack's average,
+// whether the files show one spectrum.
+type fileThumb struct {
+	path    string
+	w, h, r int
+	sum     []float32
+	n       int
+}
+
+// thumbFramesMax caps the frames of one video added to its thumbnail (every
+// k-th frame is taken): the thumbnail is a pass over the frame, about as
+// long as adding the frame to the average.
+const thumbFramesMax = 24
+
+// accumulate sums every frame of the given stills and videos; with thumbs,
+// it also keeps each file's reduced average (average.files).
+func accumulate(paths []string, maxVideo int, opt Options, thumbs bool) (average, error) {
 	var a average
+	var lin linearTable
+	seen := 0 // frames of the current file
 	add := func(path string, m gocv.Mat) error {
 		fr, err := newFrame(m)
 		if err != nil {
@@ -142,6 +171,16 @@ func accumulate(paths []string, maxVideo int, opt Options) (average, error) {
 			}
 		}
 		a.n++
+		if thumbs {
+			if len(a.files) == 0 || a.files[len(a.files)-1].path != path {
+				a.files = append(a.files, newFileThumb(path, fr.w, fr.h))
+				seen = 0
+			}
+			if seen%max(1, maxVideo/thumbFramesMax) == 0 {
+				a.files[len(a.files)-1].add(fr, lin.get(fr.words16 != nil, opt.Linear))
+			}
+			seen++
+		}
 		return nil
 	}
 	for _, path := range paths {
@@ -343,4 +382,199 @@ func WriteVideo(path string, frames []image.Image, fps float64) error {
 		}
 	}
 	return nil
+}
+
+// linearTable is the code → linear intensity table of the frames' coding,
+// made when first asked for.
+type linearTable struct{ t []float32 }
+
+func (l *linearTable) get(words16, linear bool) []float32 {
+	n := 256
+	if words16 {
+		n = 65536
+	}
+	if len(l.t) != n {
+		l.t = make([]float32, n)
+		for c := range l.t {
+			v := float64(c) / float64(n-1)
+			if !linear {
+				v = srgbToLinear(v)
+			}
+			l.t[c] = float32(v)
+		}
+	}
+	return l.t
+}
+
+// newFileThumb is an empty thumbnail of a w×h file, reduced so that its
+// longer side is at most 512 cells.
+func newFileThumb(path string, w, h int) fileThumb {
+	r := max(1, (max(w, h)+511)/512)
+	tw, th := (w+r-1)/r, (h+r-1)/r
+	return fileThumb{path: path, w: tw, h: th, r: r, sum: make([]float32, tw*th)}
+}
+
+// add adds frame fr (the thumbnail's size) through the linear table lin.
+func (t *fileThumb) add(fr frame, lin []float32) {
+	w := fr.w
+	for y := 0; y < fr.h; y++ {
+		cells := t.sum[(y/t.r)*t.w : (y/t.r+1)*t.w]
+		if fr.bytes8 != nil {
+			row := fr.bytes8[3*w*y : 3*w*(y+1)]
+			for x := 0; x < w; x++ {
+				cells[x/t.r] += lin[row[3*x]] + lin[row[3*x+1]] + lin[row[3*x+2]]
+			}
+		} else {
+			row := fr.words16[3*w*y : 3*w*(y+1)]
+			for x := 0; x < w; x++ {
+				cells[x/t.r] += lin[row[3*x]] + lin[row[3*x+1]] + lin[row[3*x+2]]
+			}
+		}
+	}
+	t.n++
+}
+
+// mismatchLimit is how far (a fraction of the strongest line) one file's
+// profile along the band may depart from the stack's after scaling to it.
+// Exposures of one setup differ by their noise, their brightness (scaled
+// out) and the sRGB curve's bend between them: a few per cent in the tests
+// (TestStackMismatch), dim single frames included; another lamp, or a
+// camera moved by a few pixels along the band, departs by a third or more.
+const mismatchLimit = 0.25
+
+// stackMismatch compares the stack's files along the band s found in their
+// average: each file's profile (its thumbnail's cells on the band, in bins
+// of the reduction along it, less its own floor) against the median of
+// all (the mean of two), scaled to it by least squares (stackDepartures).
+// It returns a warning naming the files that depart by more than
+// mismatchLimit, or "".
+// The average mixes such files' lines as if one lamp had made them all.
+func stackMismatch(files []fileThumb, s Strip) string {
+	var odd []string
+	worst := 0.0
+	for i, d := range stackDepartures(files, s) {
+		if d > mismatchLimit {
+			odd = append(odd, filepath.Base(files[i].path))
+			worst = math.Max(worst, d)
+		}
+	}
+	switch {
+	case len(odd) == 0:
+		return ""
+	case len(odd) == len(files):
+		return fmt.Sprintf("the photos of the stack (%s) do not show one spectrum: along the band their profiles depart from each other's by up to %.0f %% of the strongest line (another lamp, or the camera moved?); the average mixes them",
+			strings.Join(odd, ", "), 100*worst)
+	case len(odd) == 1:
+		return fmt.Sprintf("%s does not show the same spectrum as the stack's other photos: along the band its profile departs from theirs by %.0f %% of the strongest line (another lamp, or the camera moved?); the average mixes them",
+			odd[0], 100*worst)
+	}
+	return fmt.Sprintf("%s do not show the same spectrum as the stack's other photos: along the band their profiles depart from the others' by up to %.0f %% of the strongest line (another lamp, or the camera moved?); the average mixes them",
+		strings.Join(odd, ", "), 100*worst)
+}
+
+// stackDepartures is each file's largest departure from the stack's
+// profile, a fraction of the strongest line up to 1 (stackMismatch).
+func stackDepartures(files []fileThumb, s Strip) []float64 {
+	if len(files) < 2 || len(s.Profile) == 0 {
+		return nil
+	}
+	r := files[0].r
+	nb := (len(s.Profile) + r - 1) / r
+	sn, cs := math.Sincos(s.AngleDeg * math.Pi / 180)
+	reach := s.BandHalfHeight + 0.5*float64(r)
+	profs := make([][]float64, len(files))
+	for i, f := range files {
+		p := make([]float64, nb)
+		for cy := 0; cy < f.h; cy++ {
+			fy := (float64(cy)+0.5)*float64(r) - 0.5 - s.Origin[1]
+			for cx := 0; cx < f.w; cx++ {
+				fx := (float64(cx)+0.5)*float64(r) - 0.5 - s.Origin[0]
+				u := fx*cs + fy*sn
+				if u < 0 || u >= float64(len(s.Profile)) {
+					continue
+				}
+				if v := -fx*sn + fy*cs - s.Bow.at(u); math.Abs(v) <= reach {
+					p[int(u)/r] += float64(f.sum[cy*f.w+cx]) / float64(f.n)
+				}
+			}
+		}
+		floor := append([]float64(nil), p...)
+		sort.Float64s(floor)
+		for k := range p {
+			p[k] -= floor[len(floor)/5]
+		}
+		profs[i] = p
+	}
+	// Each profile on the scale of its strongest bin, so that the median
+	// compares shapes, not exposures.
+	for _, p := range profs {
+		if top := slices.Max(p); top > 0 {
+			for k := range p {
+				p[k] /= top
+			}
+		}
+	}
+	// The reference is the median of the files kept; the file departing
+	// most is left out of it while it departs too far and more than two
+	// are kept (a moved photo pulled the median of three into a mixture
+	// of two line positions, and its companions 0.2 away from it).
+	kept := make([]bool, len(profs))
+	for i := range kept {
+		kept[i] = true
+	}
+	for n := len(profs); ; n-- {
+		out := departures(profs, kept, nb)
+		worst := -1
+		for i, d := range out {
+			if kept[i] && (worst < 0 || d > out[worst]) {
+				worst = i
+			}
+		}
+		if n <= 2 || out[worst] <= mismatchLimit {
+			return out
+		}
+		kept[worst] = false
+	}
+}
+
+// departures is each profile's largest departure from the median of the
+// kept ones (the mean of two), after scaling to it by least squares: a
+// fraction of the larger of the two's strongest bin, up to 1.
+func departures(profs [][]float64, kept []bool, nb int) []float64 {
+	ref := make([]float64, nb)
+	var col []float64
+	for k := range ref {
+		col = col[:0]
+		for i, p := range profs {
+			if kept[i] {
+				col = append(col, p[k])
+			}
+		}
+		sort.Float64s(col)
+		ref[k] = (col[(len(col)-1)/2] + col[len(col)/2]) / 2
+	}
+	var refSS float64
+	for _, v := range ref {
+		refSS += v * v
+	}
+	out := make([]float64, len(profs))
+	for i, p := range profs {
+		var pr float64
+		for k := range p {
+			pr += p[k] * ref[k]
+		}
+		a := 0.0
+		if refSS > 0 {
+			a = pr / refSS
+		}
+		var dev, top float64
+		for k := range p {
+			dev = math.Max(dev, math.Abs(p[k]-a*ref[k]))
+			top = math.Max(top, math.Max(p[k], a*ref[k]))
+		}
+		if top > 0 {
+			out[i] = math.Min(1, dev/top) // (the floors left below zero can add to dev)
+		}
+	}
+	return out
 }

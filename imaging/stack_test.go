@@ -1,13 +1,17 @@
 package imaging
 
 import (
+	"fmt"
 	"image"
 	"image/color"
+	"image/jpeg"
 	"image/png"
 	"math"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"slices"
+	"strings"
 	"testing"
 
 	"gocv.io/x/gocv"
@@ -263,5 +267,107 @@ func TestNoiseShapeFollowsTheFrame(t *testing.T) {
 	t.Logf("noise shape: %.2f in the noisy columns, %.2f elsewhere", mi, mo)
 	if mi < 3 || mo < 0.7 || mo > 1.3 {
 		t.Errorf("noise shape %.2f in the noisy columns, %.2f elsewhere", mi, mo)
+	}
+}
+
+// A stack whose photos show different spectra (another lamp's photo among
+// them, or the camera moved between them) is named in a warning; exposures
+// of one setup, bright or dim and noisy, differing in brightness, are not.
+func TestStackMismatch(t *testing.T) {
+	dir := t.TempDir()
+	still := func(name string, p synth.Params) string {
+		img, _, err := synth.Render(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		path := filepath.Join(dir, name)
+		f, err := os.Create(path)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer f.Close()
+		if err := jpeg.Encode(f, img, &jpeg.Options{Quality: 90}); err != nil {
+			t.Fatal(err)
+		}
+		return path
+	}
+	webcam := func(seed uint64, lamp []synth.Emission, level float64) synth.Params {
+		return synth.Params{Width: 1280, Height: 720, LinesPerMM: 600, TiltDeg: 3, PeakLevel: level, Seed: seed, Emissions: lamp}
+	}
+	// The camera turned by 0.025° between the photos: the lines 2.2 px
+	// along (synth's own aim and focal length, the turn added).
+	moved := webcam(5, mercury, 0.8)
+	d := 1e6 / moved.LinesPerMM
+	lo, hi := math.Asin(380/d), math.Asin(720/d)
+	moved.CameraAngleDeg = (lo+hi)/2*180/math.Pi + 0.025
+	moved.FocalPX = 0.85 * float64(moved.Width) / (math.Tan(hi-(lo+hi)/2) - math.Tan(lo-(lo+hi)/2))
+	hg := []string{still("hg1.jpg", webcam(1, mercury, 0.8)), still("hg2.jpg", webcam(2, mercury, 0.5)), still("hg3.jpg", webcam(3, mercury, 0.3))}
+	h := still("h1.jpg", webcam(4, hydrogen, 0.8))
+	mv := still("hg-moved.jpg", moved)
+	var dim []string
+	for k := 0; k < 4; k++ {
+		img, _, err := synth.Render(dimLamp(uint64(300 + k)))
+		if err != nil {
+			t.Fatal(err)
+		}
+		dim = append(dim, writePNG(t, dir, fmt.Sprintf("dim%d.png", k), img))
+	}
+	for _, c := range []struct {
+		name   string
+		frames []string
+		odd    []string // the files the warning names
+	}{
+		{"one lamp, three exposures", hg, nil},
+		{"dim noisy frames", dim, nil},
+		{"a hydrogen photo among mercury ones", append(append([]string{}, hg...), h), []string{"h1.jpg"}},
+		{"two photos of two lamps", []string{hg[0], h}, []string{"hg1.jpg", "h1.jpg"}},
+		{"the camera moved", []string{hg[0], hg[1], mv}, []string{"hg-moved.jpg"}},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			s, err := ExtractStack(Stack{Frames: c.frames}, Options{})
+			if err != nil {
+				t.Fatal(err)
+			}
+			a, err := accumulate(c.frames, 600, Options{}, true)
+			if err != nil {
+				t.Fatal(err)
+			}
+			dep := stackDepartures(a.files, s)
+			t.Logf("departures %.3f", dep)
+			var warning string
+			for _, w := range s.Warnings {
+				if strings.Contains(w, "spectrum") {
+					warning = w
+				}
+			}
+			if len(c.odd) == 0 {
+				if warning != "" {
+					t.Errorf("one setup, yet: %s", warning)
+				}
+				for i, d := range dep {
+					if d > mismatchLimit/2 {
+						t.Errorf("%s departs by %.3f: too near the limit %.2f for exposures of one setup", c.frames[i], d, mismatchLimit)
+					}
+				}
+				return
+			}
+			if warning == "" {
+				t.Fatalf("no warning; strip warnings %q", s.Warnings)
+			}
+			t.Log(warning)
+			for i, f := range c.frames {
+				named := strings.Contains(warning, filepath.Base(f))
+				want := slices.Contains(c.odd, filepath.Base(f))
+				if named != want {
+					t.Errorf("%s named %v, want %v", filepath.Base(f), named, want)
+				}
+				if want && dep[i] < 2*mismatchLimit {
+					t.Errorf("%s departs by only %.3f: too near the limit %.2f", f, dep[i], mismatchLimit)
+				}
+				if !want && dep[i] > mismatchLimit/2 {
+					t.Errorf("%s, one of the stack's own, departs by %.3f: too near the limit %.2f", f, dep[i], mismatchLimit)
+				}
+			}
+		})
 	}
 }

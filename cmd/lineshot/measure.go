@@ -38,8 +38,9 @@ Examples:
   lineshot measure -c bench2.json hydrogen-dim.mp4      # a video's frames are averaged
 
 A photo may be a video (AVI, MP4, MOV, MKV, WebM ...): its frames are
-averaged. --stack averages the photos given as exposures of one setup;
---dark subtracts dark frames (lamp off, same exposure), averaged.
+averaged. --stack averages the photos given as exposures of one setup
+(and warns when one of them shows another spectrum); --dark subtracts dark
+frames (lamp off, same exposure), averaged.
 `
 
 type measureConfig struct {

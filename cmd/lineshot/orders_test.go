@@ -168,8 +168,8 @@ func checkOrders(t *testing.T, name string, r imageResult, tr synth.Truth, want 
 // measure --stack and --dark on the command line: the exposures are
 // averaged into one result that says how many went in, each Balmer line
 // lands within 0.1 nm (or 3σ, for the faintest) of NIST (REFERENCE-DATA.md
-// section 2), and a dark
-// frame of another size is refused in one line naming it.
+// section 2), a photo of another lamp among them is named in a warning,
+// and a dark frame of another size is refused in one line naming it.
 func TestMeasureStackAndDark(t *testing.T) {
 	dir := t.TempDir()
 	hg, _ := simulate(t, dir, "hg.jpg", "--lamp", "mercury", "--tilt", "2", "--seed", "1")
@@ -210,6 +210,20 @@ func TestMeasureStackAndDark(t *testing.T) {
 	}
 	if n < 4 {
 		t.Errorf("%d Balmer lines from the stack", n)
+	}
+	for _, w := range r.Warnings {
+		if strings.Contains(w, "spectrum") {
+			t.Errorf("exposures of one lamp, yet: %s", w)
+		}
+	}
+	// The mercury photo stacked with them by mistake: measured all the
+	// same, with a warning naming it, on the terminal too.
+	out, stderr, code = runCLI(t, "measure", "-c", hg, "--stack", args[0], args[1], hg)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	if !strings.Contains(out, "hg.jpg does not show the same spectrum as the stack's other photos") {
+		t.Errorf("a mercury photo among hydrogen ones, no warning naming it:\n%s", out)
 	}
 	small, _ := simulate(t, dir, "small.jpg", "--lamp", "hydrogen", "--size", "640x480")
 	_, stderr, code = runCLI(t, "measure", "-c", hg, "--dark", small, args[0])
