@@ -4,6 +4,9 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
+	"runtime"
+	"sync"
+	"sync/atomic"
 	"testing"
 	"time"
 
@@ -140,5 +143,89 @@ func BenchmarkReduceBesideDecode(b *testing.B) {
 	}
 	for name, d := range best {
 		b.ReportMetric(float64(d.Microseconds())/1000, name)
+	}
+}
+
+// BenchmarkTwoGoroutines is the machine's own scaling, against which the
+// batch's two-worker figure can be read: the same work on one goroutine
+// and on two (each doing half), for plain arithmetic, streaming through
+// 6 MB buffers (a 1080p frame's size), libjpeg's decode of the 1080p photo
+// and its whole band extraction with one worker (as each photo of a
+// two-worker batch gets, with the batch's spare P). Reported as the time
+// on one goroutine over the time on two, fastest of each, interleaved.
+func BenchmarkTwoGoroutines(b *testing.B) {
+	p := benchPhoto(b, 1920, 1080)
+	var sink atomic.Uint64
+	bufs := make(chan [2][]byte, 2)
+	for range 2 {
+		bufs <- [2][]byte{make([]byte, 6<<20), make([]byte, 6<<20)}
+	}
+	work := []struct {
+		name string
+		n    int
+		fn   func()
+	}{
+		{"arithmetic", 24, func() {
+			s := uint64(0)
+			for i := uint64(0); i < 3_000_000; i++ {
+				s += i * i >> 3
+			}
+			sink.Add(s)
+		}},
+		{"memory", 24, func() {
+			// Each goroutine its own buffers, made before the timing.
+			buf := <-bufs
+			defer func() { bufs <- buf }()
+			for r := 0; r < 10; r++ {
+				copy(buf[1], buf[0])
+				buf[0][r] = buf[1][len(buf[1])-1-r]
+			}
+			sink.Add(uint64(buf[0][0]))
+		}},
+		{"decode", 40, func() {
+			if _, _, err := Decode(p); err != nil {
+				b.Fatal(err)
+			}
+		}},
+		{"extract", 40, func() {
+			if _, err := Extract(p, Options{Workers: 1}); err != nil {
+				b.Fatal(err)
+			}
+		}},
+	}
+	SetOpenCVThreads(1)
+	defer SetOpenCVThreads(0)
+	procs := runtime.GOMAXPROCS(0)
+	defer runtime.GOMAXPROCS(procs)
+	run := func(g, n int, fn func()) time.Duration {
+		t0 := time.Now()
+		var wg sync.WaitGroup
+		for range g {
+			wg.Go(func() {
+				for range n / g {
+					fn()
+				}
+			})
+		}
+		wg.Wait()
+		return time.Since(t0)
+	}
+	one, two := make([]time.Duration, len(work)), make([]time.Duration, len(work))
+	for b.Loop() {
+		for i, w := range work {
+			runtime.GOMAXPROCS(procs)
+			d1 := run(1, w.n, w.fn)
+			runtime.GOMAXPROCS(procs + 1) // the batch's spare P (spareProc)
+			d2 := run(2, w.n, w.fn)
+			if one[i] == 0 || d1 < one[i] {
+				one[i] = d1
+			}
+			if two[i] == 0 || d2 < two[i] {
+				two[i] = d2
+			}
+		}
+	}
+	for i, w := range work {
+		b.ReportMetric(float64(one[i])/float64(two[i]), w.name+"-1/2")
 	}
 }

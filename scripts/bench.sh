@@ -19,6 +19,8 @@ echo "== stages (imaging): decode, locate, straighten"
 go test -run '^$' -bench 'BenchmarkDecode|BenchmarkExtract' -benchtime 5x ./imaging | grep Benchmark | tee "$tmp/img.txt"
 echo "== the band search's reduction: beside the decode, between its stripes, after it (fastest of 15, ms)"
 go test -run '^$' -bench 'BenchmarkReduceBesideDecode' -benchtime 15x ./imaging | grep Benchmark
+echo "== the machine's own scaling on two goroutines (time on one / on two, fastest of three)"
+go test -run '^$' -bench 'BenchmarkTwoGoroutines' -benchtime 3x ./imaging | grep Benchmark
 echo "== whole measurement against decode (same run)"
 go test -run '^$' -bench 'BenchmarkMeasure' -benchtime 10x ./cmd/lineshot | grep Benchmark | tee "$tmp/measure.txt"
 echo "== batch, 1 and 2 workers"
