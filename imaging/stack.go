@@ -420,18 +420,24 @@ func (t *fileThumb) add(fr frame, lin []float32) {
 	for y := 0; y < fr.h; y++ {
 		cells := t.sum[(y/t.r)*t.w : (y/t.r+1)*t.w]
 		if fr.bytes8 != nil {
-			row := fr.bytes8[3*w*y : 3*w*(y+1)]
-			for x := 0; x < w; x++ {
-				cells[x/t.r] += lin[row[3*x]] + lin[row[3*x+1]] + lin[row[3*x+2]]
-			}
+			addCells(cells, fr.bytes8[3*w*y:3*w*(y+1)], t.r, lin)
 		} else {
-			row := fr.words16[3*w*y : 3*w*(y+1)]
-			for x := 0; x < w; x++ {
-				cells[x/t.r] += lin[row[3*x]] + lin[row[3*x+1]] + lin[row[3*x+2]]
-			}
+			addCells(cells, fr.words16[3*w*y:3*w*(y+1)], t.r, lin)
 		}
 	}
 	t.n++
+}
+
+// addCells adds a row of BGR pixels, through lin, into cells of r pixels.
+func addCells[T uint8 | uint16](cells []float32, row []T, r int, lin []float32) {
+	for c := range cells {
+		px := row[3*r*c : min(len(row), 3*r*(c+1))]
+		var acc float32
+		for i := 0; i+2 < len(px); i += 3 {
+			acc += lin[px[i]] + lin[px[i+1]] + lin[px[i+2]]
+		}
+		cells[c] += acc
+	}
 }
 
 // mismatchLimit is how far (a fraction of the strongest line) one file's

@@ -304,6 +304,16 @@ func TestStackMismatch(t *testing.T) {
 	hg := []string{still("hg1.jpg", webcam(1, mercury, 0.8)), still("hg2.jpg", webcam(2, mercury, 0.5)), still("hg3.jpg", webcam(3, mercury, 0.3))}
 	h := still("h1.jpg", webcam(4, hydrogen, 0.8))
 	mv := still("hg-moved.jpg", moved)
+	// 16-bit PNGs (as a raw converter writes them): two of mercury, one
+	// of hydrogen.
+	var deepStack []string
+	for k, p := range []synth.Params{webcam(6, mercury, 0.8), webcam(7, mercury, 0.6), webcam(8, hydrogen, 0.8)} {
+		img, _, err := synth.Render(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		deepStack = append(deepStack, writePNG(t, dir, fmt.Sprintf("deep%d.png", k), deep(img)))
+	}
 	var dim []string
 	for k := 0; k < 4; k++ {
 		img, _, err := synth.Render(dimLamp(uint64(300 + k)))
@@ -322,6 +332,8 @@ func TestStackMismatch(t *testing.T) {
 		{"a hydrogen photo among mercury ones", append(append([]string{}, hg...), h), []string{"h1.jpg"}},
 		{"two photos of two lamps", []string{hg[0], h}, []string{"hg1.jpg", "h1.jpg"}},
 		{"the camera moved", []string{hg[0], hg[1], mv}, []string{"hg-moved.jpg"}},
+		{"16-bit photos, one of another lamp", deepStack, []string{"deep2.png"}},
+		{"16-bit photos of one lamp", deepStack[:2], nil},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			s, err := ExtractStack(Stack{Frames: c.frames}, Options{})
