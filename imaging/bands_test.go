@@ -2,6 +2,7 @@ package imaging
 
 import (
 	"math"
+	"math/rand/v2"
 	"testing"
 
 	"lineshot/imaging/synth"
@@ -130,5 +131,34 @@ func TestBandEdgesNotANumber(t *testing.T) {
 	prof[0] = 0
 	if c, h, ok := bandEdges(prof); !ok || math.Abs(c-4) > 1e-9 || math.Abs(h-2.425) > 1e-9 {
 		t.Errorf("the same profile with 0: centre %g, half %g, %v; want 4, 2.425", c, h, ok)
+	}
+}
+
+// Whatever the profile (spikes, steps, a damaged photo's), a band found has
+// its edges in order around a centre inside the profile, so that the band
+// search, which blanks each band found before looking for the next, always
+// moves on: a profile of spikes gave a negative half-height and a centre
+// outside it, and a damaged 64x48 JPEG (kept in testdata/fuzz) hung the
+// search for ever.
+func TestBandEdgesInOrder(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 8))
+	spiky := []float64{0, 0, 0, 10, 0, 10, 0, 0, 0}
+	for k := 0; k < 20000; k++ {
+		prof := spiky
+		if k > 0 {
+			prof = make([]float64, 5+rng.IntN(40))
+			for i := range prof {
+				switch rng.IntN(4) {
+				case 0:
+					prof[i] = rng.Float64() * 100
+				case 1:
+					prof[i] = -rng.Float64() * 10
+				}
+			}
+		}
+		c, h, ok := bandEdges(prof)
+		if ok && !(h > 0 && c >= 0 && c < float64(len(prof))) {
+			t.Fatalf("profile %v: centre %g, half-height %g", prof, c, h)
+		}
 	}
 }

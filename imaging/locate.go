@@ -168,7 +168,11 @@ func bandEdges(prof []float64) (center, half float64, ok bool) {
 	}
 	sort.Float64s(top)
 	hm := top[len(top)/2] / 2
-	if hm <= 0 {
+	if hm <= 0 || !(prof[imax] > hm) {
+		// (The second: the smoothed maximum on a sample below half of it,
+		// in a profile of spikes, gave edges outside each other, a
+		// negative half-height, and crossBands blanked nothing and looped
+		// for ever on a damaged photo.)
 		return 0, 0, false
 	}
 	l := imax
@@ -454,9 +458,12 @@ func crossBands(p plane, ang, bg, sx, sy float64, all bool, workers int) []bandG
 	type bump struct{ c, h, level float64 }
 	var found []bump
 	work := append([]float64(nil), prof...)
-	for len(found) < 8 {
+	// (Every round blanks at least the bin it found; the cap on rounds is
+	// a second guard: a profile of infinities from a damaged photo once
+	// gave edges of NaN, blanked nothing and looped for ever.)
+	for round := 0; len(found) < 8 && round < len(work); round++ {
 		c, h, ok := bandEdges(work)
-		if !ok {
+		if !ok || math.IsNaN(c) || math.IsInf(c, 0) || math.IsNaN(h) || math.IsInf(h, 0) {
 			break
 		}
 		var lv float64
