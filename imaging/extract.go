@@ -238,7 +238,7 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	if err != nil {
 		return nil, err
 	}
-	opt = opt.withProfile(format == "jpeg")
+	opt = opt.withProfile(lossy(format))
 	if opt.workers() > 1 {
 		// A process's first photo builds the transfer tables (12-24 ms
 		// for 8 bits): on a spare core while the photo decodes.
@@ -271,6 +271,11 @@ func extractFile(path string, opt Options, all bool) ([]Strip, error) {
 	}
 	return ss, nil
 }
+
+// lossy reports whether photos of this format are lossy compressed with
+// the colour at lower resolution (JPEG, HEIF): luma is then the better
+// profile (Options.withProfile).
+func lossy(format string) bool { return format == "jpeg" || format == "heif" }
 
 // closeFrame closes a decoded frame's Mat: handing a 12 MP frame's memory
 // back takes several milliseconds, so with a core to spare it is done
@@ -534,13 +539,25 @@ func checkFile(path string, opt Options) (string, image.Config, error) {
 		return "", image.Config{}, err
 	}
 	defer f.Close()
-	var head [12]byte
-	if n, _ := f.ReadAt(head[:], 0); isHEIF(head[:n]) {
-		return "", image.Config{}, fmt.Errorf("%s: %s", path, heifReason)
-	}
 	capPx := opt.MaxPixels
 	if capPx == 0 {
 		capPx = DefaultMaxPixels
+	}
+	var head [12]byte
+	if n, _ := f.ReadAt(head[:], 0); isHEIF(head[:n]) {
+		// libheif reads the container's size without decoding the image.
+		w, h, depth, err := heifSize(path)
+		if err != nil {
+			return "", image.Config{}, fmt.Errorf("%s: a HEIF/HEIC file libheif cannot read: %v", path, err)
+		}
+		if w*h > capPx {
+			return "", image.Config{}, fmt.Errorf("%s: %dx%d pixels exceeds the limit of %d megapixels", path, w, h, capPx/1_000_000)
+		}
+		cfg := image.Config{Width: w, Height: h, ColorModel: color.RGBAModel}
+		if depth > 8 {
+			cfg.ColorModel = color.RGBA64Model
+		}
+		return "heif", cfg, nil
 	}
 	cfg, format, err := image.DecodeConfig(f)
 	var tu tiff.UnsupportedError

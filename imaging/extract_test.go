@@ -149,6 +149,10 @@ func FuzzExtractBytes(f *testing.F) {
 	f.Add(withOrientation(buf.Bytes(), 6))
 	f.Add([]byte("\xff\xd8\xff\xe0 not really"))
 	f.Add([]byte("\x89PNG\r\n\x1a\n"))
+	// testdata/fuzz/FuzzExtractBytes holds a HEIC seed (this photo
+	// through WriteHEIC, quality 50) and its first half: libheif's
+	// container reading and HEVC decoding. Kept as files, so that the
+	// fuzzing processes never load the HEVC encoder.
 	f.Fuzz(func(t *testing.T, b []byte) {
 		p := filepath.Join(t.TempDir(), "photo.jpg")
 		os.WriteFile(p, b, 0o644)

@@ -264,8 +264,8 @@ func decodeRowsInto(path string, m gocv.Mat, y0, y1 int) error {
 const decodeStripe = 512
 
 // decodeFrame decodes the photo at path as every measurement does: a JPEG
-// the row decoder takes by rows, anything else with imread (colour, at its
-// own bit depth). On failure there is no Mat to close and the error names
+// the row decoder takes by rows, a HEIF photo through libheif (heif.go),
+// anything else with imread (colour, at its own bit depth). On failure there is no Mat to close and the error names
 // the file and the reason.
 func decodeFrame(path, format string) (gocv.Mat, error) {
 	return decodeFramePlanned(path, format, nil, nil)
@@ -274,6 +274,9 @@ func decodeFrame(path, format string) (gocv.Mat, error) {
 // decodeFramePlanned is decodeFrame with decodeRows's plan and damage for
 // a JPEG the row decoder takes (not used for any other photo).
 func decodeFramePlanned(path, format string, plan func(m gocv.Mat) (each func(y0, y1 int), wait func()), damage *string) (gocv.Mat, error) {
+	if format == "heif" {
+		return decodeHEIF(path, DefaultMaxPixels)
+	}
 	if format == "jpeg" {
 		m, ok, err := decodeRows(path, plan, damage)
 		if err != nil {

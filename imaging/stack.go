@@ -195,7 +195,7 @@ func accumulate(paths []string, maxVideo int, opt Options, thumbs bool) (average
 		if err != nil {
 			return a, err
 		}
-		if format == "jpeg" {
+		if lossy(format) {
 			a.compressed = true
 		}
 		m, err := decodeFrame(path, format)

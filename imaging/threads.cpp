@@ -87,6 +87,14 @@ int lineshot_mat_create(void *m, int rows, int cols, int type, int huge) {
     }
 }
 
+// The data of Mat m and the bytes from one row to the next (for C code that
+// fills a Mat lineshot_mat_create made).
+void *lineshot_mat_data(void *m, size_t *step) {
+    cv::Mat *mat = static_cast<cv::Mat *>(m);
+    *step = mat->step[0];
+    return mat->data;
+}
+
 // Gives the whole pages inside [p, p+n) back to the system (their contents
 // read as zero afterwards): the rows of a decoded frame no step will read.
 void lineshot_drop_pages(void *p, size_t n) {

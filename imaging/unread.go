@@ -6,32 +6,25 @@ import (
 	"strings"
 )
 
-// The kinds of photo lineshot does not read, each with what to do instead
-// (the iPhone setting's name is from memory).
+// The kinds of photo lineshot does not read, each with what to do instead.
 const (
-	heifReason       = "a HEIF/HEIC photo (an iPhone's default), which lineshot does not read: set the camera to JPEG (on an iPhone: Settings > Camera > Formats > Most Compatible) or convert it to JPEG or PNG"
 	wideSampleReason = "which lineshot does not read: save the photo with 8 or 16 bits a channel (unsigned integers)"
 	rawReason        = "a camera's raw file, which lineshot does not read: measure the JPEG the camera saves beside it, or convert it to a 16-bit TIFF or PNG"
 )
 
-// heifExts and rawExts are the file endings of those kinds (raw: the
-// common makers' and DNG). A raw file is refused by its name alone: many
-// are TIFF inside, and OpenCV would read their small preview image.
-var (
-	heifExts = []string{".heic", ".heif", ".hif", ".avif"}
-	rawExts  = []string{".dng", ".cr2", ".cr3", ".nef", ".nrw", ".arw", ".orf", ".rw2", ".raf", ".pef", ".srw", ".rwl", ".3fr", ".iiq"}
-)
+// HEIFExts are the file endings of HEIF photos (HEIC, an iPhone's
+// default, and AVIF), read through libheif (heif.go).
+var HEIFExts = []string{".heic", ".heif", ".hif", ".avif"}
+
+// rawExts are the file endings of cameras' raw files (the common makers'
+// and DNG). A raw file is refused by its name alone: many are TIFF inside,
+// and OpenCV would read their small preview image.
+var rawExts = []string{".dng", ".cr2", ".cr3", ".nef", ".nrw", ".arw", ".orf", ".rw2", ".raf", ".pef", ".srw", ".rwl", ".3fr", ".iiq"}
 
 // Unreadable says why a photo of this name is one lineshot does not read
-// (a HEIF/HEIC photo, a camera's raw file), and what to do instead; "" for
-// any other name. The batch reports such files instead of passing them over.
+// (a camera's raw file), and what to do instead; "" for any other name. The batch reports such files instead of passing them over.
 func Unreadable(path string) string {
 	ext := strings.ToLower(filepath.Ext(path))
-	for _, e := range heifExts {
-		if ext == e {
-			return heifReason
-		}
-	}
 	for _, e := range rawExts {
 		if ext == e {
 			return rawReason

@@ -11,10 +11,10 @@ import (
 	"lineshot/imaging/synth"
 )
 
-// HEIC photos (by name, or by content under a JPEG's name) and camera raw
-// files get a reason that says what to do, not a decoder's complaint; a
-// raw file is refused by name even though OpenCV would read a TIFF-shaped
-// one's preview.
+// Camera raw files get a reason that says what to do, not a decoder's
+// complaint, by name even though OpenCV would read a TIFF-shaped one's
+// preview; a HEIF file (by name, or by content under a JPEG's name) that
+// is a header and nothing more gets libheif's reason.
 func TestUnreadablePhotos(t *testing.T) {
 	dir := t.TempDir()
 	heif := []byte("\x00\x00\x00\x18ftypheic\x00\x00\x00\x00mif1heic\x00\x00\x00\x00")
@@ -28,9 +28,9 @@ func TestUnreadablePhotos(t *testing.T) {
 		data []byte
 		want string
 	}{
-		{"IMG_0001.HEIC", heif, "HEIF/HEIC photo"},
-		{"IMG_0002.jpg", heif, "HEIF/HEIC photo"},
-		{"IMG_0003.avif", []byte("\x00\x00\x00\x1cftypavif\x00\x00\x00\x00"), "HEIF/HEIC photo"},
+		{"IMG_0001.HEIC", heif, "a HEIF/HEIC file libheif cannot read"},
+		{"IMG_0002.jpg", heif, "a HEIF/HEIC file libheif cannot read"},
+		{"IMG_0003.avif", []byte("\x00\x00\x00\x1cftypavif\x00\x00\x00\x00"), "a HEIF/HEIC file libheif cannot read"},
 		{"IMG_0004.CR2", jpeg, "camera's raw file"}, // by name, whatever is inside
 		{"IMG_0005.dng", []byte("II*\x00\x08\x00\x00\x00"), "camera's raw file"},
 	} {
@@ -48,7 +48,7 @@ func TestUnreadablePhotos(t *testing.T) {
 	if isHEIF([]byte("\x00\x00\x00\x18ftypisom\x00\x00\x02\x00")) || isHEIF([]byte("\x00\x00\x00\x14ftypqt  ")) {
 		t.Error("an MP4 or QuickTime header taken for HEIF")
 	}
-	if Unreadable("a.jpg") != "" || Unreadable("a.JPEG") != "" || Unreadable("a.Heic") == "" || Unreadable("a.NEF") == "" {
+	if Unreadable("a.jpg") != "" || Unreadable("a.JPEG") != "" || Unreadable("a.Heic") != "" || Unreadable("a.NEF") == "" {
 		t.Error("Unreadable misjudges a name")
 	}
 }

@@ -1,7 +1,8 @@
 #!/usr/bin/env bash
 # Installs what lineshot needs to build, when it is missing: Debian's
 # libopencv-dev (OpenCV 4.6, the version gocv v0.32 builds against),
-# libjpeg-dev and pkg-config, using sudo when not root; then the Go modules.
+# libjpeg-dev, libheif-dev and pkg-config, using sudo when not root; then
+# the Go modules.
 # Sourced by demo.sh and test.sh; safe to run again.
 set -euo pipefail
 
@@ -13,6 +14,8 @@ fi
 # libjpeg's headers, for the row decoder (imaging/jpegrows.c); libopencv-dev
 # brings them too, through libtiff-dev.
 pkg-config --exists libjpeg 2>/dev/null || need_apt+=(libjpeg-dev)
+# libheif, for HEIF/HEIC photos (imaging/heif.c).
+pkg-config --exists libheif 2>/dev/null || need_apt+=(libheif-dev)
 for pkg in "$@"; do
   dpkg -s "$pkg" >/dev/null 2>&1 || need_apt+=("$pkg")
 done

@@ -21,10 +21,12 @@ go test -count=1 -race -run 'TestBatch(OverALab|InterruptedAndResumed)' ./cmd/li
 go test -count=1 -race -run 'TestExtractBandsTwoLamps|TestLitBench$|TestRowsGivenBackChangeNothing|TestDecodeAndReduce|TestRowsIntoAsWhole|TestBandFirstFailures' ./imaging
 go test -count=1 -race -run 'TestWorkersDoNotChangeTheResult' ./peaks
 go test -count=1 -race -run 'TestBothOrdersClassifiedRight|TestClassif' ./calibrate
-# The row decoder's C code (imaging/jpegrows.c) under AddressSanitizer: a
-# read past an Exif block or a row buffer fails the run (about a minute to
-# build the first time).
-go test -count=1 -asan -run 'TestDecodeRows|TestDecodeAndReduce|TestRowsIntoAsWhole|TestDecodeReduced|TestDamagedJPEG' ./imaging
+# The row decoder's C code (imaging/jpegrows.c) and the HEIF reader's
+# (imaging/heif.c) under AddressSanitizer: a read past an Exif block or a
+# row buffer, or a libheif message read after its context was freed, fails
+# the run (about a minute to build the first time); the fuzz target's
+# corpus, HEIC seeds among it, goes through both.
+LSAN_OPTIONS="suppressions=$PWD/scripts/lsan.supp" go test -count=1 -asan -run 'TestDecodeRows|TestDecodeAndReduce|TestRowsIntoAsWhole|TestDecodeReduced|TestDamagedJPEG|TestHEIC|FuzzExtractBytes' ./imaging
 # Every fuzz target briefly (a count of executions each; FUZZTIME, if set,
 # replaces it); found crashers land in testdata/fuzz/.
 scripts/fuzz.sh

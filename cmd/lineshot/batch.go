@@ -67,7 +67,13 @@ Examples:
 const settingsFile = "lineshot-bench.txt"
 
 // imageExts are the file endings taken as photos.
-var imageExts = map[string]bool{".jpg": true, ".jpeg": true, ".png": true, ".tif": true, ".tiff": true, ".bmp": true, ".webp": true}
+var imageExts = func() map[string]bool {
+	m := map[string]bool{".jpg": true, ".jpeg": true, ".png": true, ".tif": true, ".tiff": true, ".bmp": true, ".webp": true}
+	for _, e := range imaging.HEIFExts {
+		m[e] = true
+	}
+	return m
+}()
 
 func runBatch(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	return batchMain(ctx, args, stdout, stderr, nil)
@@ -389,7 +395,7 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 			return nil
 		}
 		if why := imaging.Unreadable(p); why != "" {
-			// A raw or HEIC photo: said so, unless the camera saved a
+			// A raw photo: said so, unless the camera saved a
 			// JPEG (or other photo lineshot reads) of it beside it.
 			dir := filepath.Dir(p)
 			if _, ok := readable[dir]; !ok {
@@ -402,6 +408,17 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 		}
 		if !imageExts[strings.ToLower(filepath.Ext(p))] && !imaging.IsVideo(p) {
 			return nil
+		}
+		if isHEIFName(p) {
+			// A HEIC photo beside a JPEG of the same shot (one converted
+			// from the other): the JPEG is measured, not both.
+			dir := filepath.Dir(p)
+			if _, ok := readable[dir]; !ok {
+				readable[dir] = readableBases(dir)
+			}
+			if hasTwin(readable[dir], p) {
+				return nil
+			}
 		}
 		if d.Type()&fs.ModeSymlink != 0 {
 			st, err := os.Stat(p)
@@ -446,8 +463,14 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 	return benches, fails, passed
 }
 
+// isHEIFName reports whether path ends as a HEIF photo does.
+func isHEIFName(path string) bool {
+	return slices.Contains(imaging.HEIFExts, strings.ToLower(filepath.Ext(path)))
+}
+
 // readableBases lists the names, without their endings, of the photos
-// lineshot reads in folder dir (none when it cannot be read).
+// lineshot reads in folder dir, HEIF photos aside (none when the folder
+// cannot be read).
 func readableBases(dir string) []string {
 	bases := []string{} // (not nil: a folder read and empty is known too)
 	ents, err := os.ReadDir(dir)
@@ -456,7 +479,7 @@ func readableBases(dir string) []string {
 	}
 	for _, e := range ents {
 		n := e.Name()
-		if imageExts[strings.ToLower(filepath.Ext(n))] {
+		if imageExts[strings.ToLower(filepath.Ext(n))] && !isHEIFName(n) {
 			bases = append(bases, strings.TrimSuffix(n, filepath.Ext(n)))
 		}
 	}
@@ -465,7 +488,8 @@ func readableBases(dir string) []string {
 
 // hasTwin reports whether bases (readableBases of path's folder) holds
 // path's name up to its ending, in any case: IMG_0001.CR2 beside
-// IMG_0001.JPG, as a camera saving both writes them.
+// IMG_0001.JPG, as a camera saving both writes them (or IMG_0001.HEIC
+// beside the JPEG converted from it).
 func hasTwin(bases []string, path string) bool {
 	base := strings.TrimSuffix(filepath.Base(path), filepath.Ext(path))
 	for _, b := range bases {

@@ -16,7 +16,7 @@ import (
 	"lineshot/imaging/synth"
 )
 
-const simulateUsage = `Usage: lineshot simulate [options] -o PHOTO.jpg|PHOTO.png
+const simulateUsage = `Usage: lineshot simulate [options] -o PHOTO.jpg|PHOTO.png|PHOTO.heic
 
 Renders a synthetic photograph of a lamp seen through a transmission grating
 by a pinhole camera, and writes the exact truth (every line's wavelength and
@@ -35,7 +35,7 @@ Examples:
 
 func runSimulate(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("simulate", simulateUsage, stderr)
-	out := fs.StringP("output", "o", "", "photo to write (.jpg, .jpeg or .png), or a video (.avi, Motion-JPEG)")
+	out := fs.StringP("output", "o", "", "photo to write (.jpg, .jpeg, .png or .heic), or a video (.avi, Motion-JPEG)")
 	frames := fs.Int("frames", 8, "frames of a video (.avi): each with fresh noise")
 	truthPath := fs.String("truth", "", "truth JSON to write; default: PHOTO with .truth.json")
 	lamp := fs.StringP("lamp", "l", "mercury", "lamp: mercury, hydrogen, helium, neon, sodium, cfl")
@@ -58,7 +58,7 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 	fullWell := fs.Float64("full-well", 6000, "electrons at full scale (sets the shot noise)")
 	readNoise := fs.Float64("read-noise", 4, "read noise, electrons rms")
 	bg := fs.Float64("background", 0.01, "uniform background, fraction of full scale")
-	quality := fs.Int("quality", 90, "JPEG quality 1-100")
+	quality := fs.Int("quality", 90, "JPEG (or HEIC) quality 1-100")
 	seed := fs.Uint64("seed", 1, "noise seed")
 	if err := parse(fs, args); err != nil {
 		return err
@@ -68,8 +68,8 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 		return usagef("simulate: -o PHOTO is required")
 	}
 	ext := strings.ToLower(filepath.Ext(*out))
-	if ext != ".jpg" && ext != ".jpeg" && ext != ".png" && ext != ".avi" {
-		return usagef("simulate: %s: the photo must end in .jpg, .jpeg or .png (or .avi for a video)", *out)
+	if ext != ".jpg" && ext != ".jpeg" && ext != ".png" && ext != ".heic" && ext != ".avi" {
+		return usagef("simulate: %s: the photo must end in .jpg, .jpeg, .png or .heic (or .avi for a video)", *out)
 	}
 	if *frames < 1 || *frames > 1000 {
 		return usagef("simulate: --frames %d outside 1-1000", *frames)
@@ -119,6 +119,17 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 		}
 		tmp := filepath.Join(filepath.Dir(*out), "."+filepath.Base(*out)+".tmp.avi")
 		if err := imaging.WriteVideo(tmp, imgs, 10); err != nil {
+			os.Remove(tmp)
+			return err
+		}
+		if err := os.Rename(tmp, *out); err != nil {
+			os.Remove(tmp)
+			return err
+		}
+	} else if ext == ".heic" {
+		// libheif writes the file itself: a temporary name, then the rename.
+		tmp := filepath.Join(filepath.Dir(*out), "."+filepath.Base(*out)+".tmp.heic")
+		if err := imaging.WriteHEIC(tmp, img, *quality); err != nil {
 			os.Remove(tmp)
 			return err
 		}

@@ -1,0 +1,105 @@
+package imaging
+
+/*
+#cgo pkg-config: libheif
+#include <stdlib.h>
+#include "heif.h"
+*/
+import "C"
+
+import (
+	"errors"
+	"fmt"
+	"image"
+	"strings"
+	"unicode"
+	"unsafe"
+
+	"gocv.io/x/gocv"
+)
+
+// HEIF/HEIC photos (an iPhone's default format) and AVIF are read through
+// libheif (Debian's libheif-dev, 1.15): the primary image, turned and
+// mirrored as the file says, colour, 8-bit or, for images of more than 8
+// bits a channel, 16-bit.
+
+const heifErrLen = 256
+
+// heifErr is libheif's message as one line (some end in a newline).
+func heifErr(buf []C.char) error {
+	msg := strings.Map(func(r rune) rune {
+		if unicode.IsControl(r) {
+			return ' '
+		}
+		return r
+	}, C.GoString(&buf[0]))
+	return errors.New(strings.TrimSpace(strings.ToValidUTF8(msg, "?")))
+}
+
+// heifSize is the size of the primary image of the HEIF file at path (as
+// decoded, turned) and its bits a channel, read from the container without
+// decoding.
+func heifSize(path string) (w, h, depth int, err error) {
+	cp := C.CString(path)
+	defer C.free(unsafe.Pointer(cp))
+	buf := make([]C.char, heifErrLen)
+	var cw, ch, cd C.int
+	if C.lineshot_heif_size(cp, &cw, &ch, &cd, &buf[0], heifErrLen) != 0 {
+		return 0, 0, 0, heifErr(buf)
+	}
+	return int(cw), int(ch), int(cd), nil
+}
+
+// heifConfig is checkFile's image.Config of a HEIF file.
+func heifConfig(path string) (image.Config, error) {
+	w, h, _, err := heifSize(path)
+	if err != nil {
+		return image.Config{}, err
+	}
+	return image.Config{Width: w, Height: h}, nil
+}
+
+// decodeHEIF decodes the primary image of the HEIF file at path into a BGR
+// Mat (8-bit, or 16-bit for deeper images) of at most maxPx pixels. The
+// error names the file.
+func decodeHEIF(path string, maxPx int) (gocv.Mat, error) {
+	cp := C.CString(path)
+	defer C.free(unsafe.Pointer(cp))
+	buf := make([]C.char, heifErrLen)
+	m := gocv.NewMat()
+	if C.lineshot_heif_decode(cp, unsafe.Pointer(m.Ptr()), C.longlong(maxPx), &buf[0], heifErrLen) != 0 {
+		m.Close()
+		return gocv.Mat{}, fmt.Errorf("%s: %v", path, heifErr(buf))
+	}
+	return m, nil
+}
+
+// WriteHEIC writes img as a HEIC file (HEVC, 8-bit, at libheif's lossy
+// quality 0-100) at path: for simulated photos and tests.
+func WriteHEIC(path string, img image.Image, quality int) error {
+	b := img.Bounds()
+	w, h := b.Dx(), b.Dy()
+	if w < 1 || h < 1 {
+		return fmt.Errorf("%s: an empty image", path)
+	}
+	rgb := C.malloc(C.size_t(3 * w * h))
+	if rgb == nil {
+		return fmt.Errorf("%s: out of memory", path)
+	}
+	defer C.free(rgb)
+	px := unsafe.Slice((*byte)(rgb), 3*w*h)
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			r, g, bl, _ := img.At(b.Min.X+x, b.Min.Y+y).RGBA()
+			o := 3 * (y*w + x)
+			px[o], px[o+1], px[o+2] = byte(r>>8), byte(g>>8), byte(bl>>8)
+		}
+	}
+	cp := C.CString(path)
+	defer C.free(unsafe.Pointer(cp))
+	buf := make([]C.char, heifErrLen)
+	if C.lineshot_heif_encode((*C.uint8_t)(rgb), C.int(w), C.int(h), C.int(quality), cp, &buf[0], heifErrLen) != 0 {
+		return fmt.Errorf("%s: %v", path, heifErr(buf))
+	}
+	return nil
+}

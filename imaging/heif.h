@@ -1,0 +1,12 @@
+#ifndef LINESHOT_HEIF_H
+#define LINESHOT_HEIF_H
+
+#include <stddef.h>
+#include <stdint.h>
+
+// Each returns 0 on success, or -1 with a message in err (errlen bytes).
+int lineshot_heif_size(const char *path, int *w, int *h, int *depth, char *err, int errlen);
+int lineshot_heif_decode(const char *path, void *mat, long long maxpx, char *err, int errlen);
+int lineshot_heif_encode(const uint8_t *rgb, int w, int h, int quality, const char *path, char *err, int errlen);
+
+#endif
