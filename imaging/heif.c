@@ -126,33 +126,54 @@ out:
     return rc;
 }
 
-int lineshot_heif_encode(const uint8_t *rgb, int w, int h, int quality, const char *path, char *err, int errlen) {
+// rgb is w×h RGB pixels: bytes when bits is 8, else 16-bit words holding
+// bits (10 or 12) significant bits. orientation is the EXIF-style value
+// (1-8) written as the container's rotation and mirroring: how a viewer
+// turns the stored pixels.
+int lineshot_heif_encode(const void *rgb, int w, int h, int bits, int quality, int orientation, const char *path, char *err, int errlen) {
     struct heif_context *ctx = heif_context_alloc();
     struct heif_encoder *enc = NULL;
     struct heif_image *img = NULL;
+    struct heif_encoding_options *opts = heif_encoding_options_alloc();
     int rc = -1;
+    if (opts != NULL && orientation >= 1 && orientation <= 8) {
+        opts->image_orientation = (enum heif_orientation)orientation;
+    }
     struct heif_error e = heif_context_get_encoder_for_format(ctx, heif_compression_HEVC, &enc);
     if (e.code != heif_error_Ok) {
         fail(err, errlen, "no HEVC encoder", e);
         goto out;
     }
     heif_encoder_set_lossy_quality(enc, quality);
-    e = heif_image_create(w, h, heif_colorspace_RGB, heif_chroma_interleaved_RGB, &img);
+    int deep = bits > 8;
+    e = heif_image_create(w, h, heif_colorspace_RGB, deep ? heif_chroma_interleaved_RRGGBB_LE : heif_chroma_interleaved_RGB, &img);
     if (e.code != heif_error_Ok) {
         fail(err, errlen, "cannot make the image", e);
         goto out;
     }
-    e = heif_image_add_plane(img, heif_channel_interleaved, w, h, 8);
+    e = heif_image_add_plane(img, heif_channel_interleaved, w, h, bits);
     if (e.code != heif_error_Ok) {
         fail(err, errlen, "cannot make the image", e);
         goto out;
     }
     int stride = 0;
     uint8_t *dst = heif_image_get_plane(img, heif_channel_interleaved, &stride);
+    size_t row = (size_t)3 * w * (deep ? 2 : 1);
     for (int y = 0; y < h; y++) {
-        memcpy(dst + (size_t)y * stride, rgb + (size_t)y * 3 * w, (size_t)3 * w);
+        const uint8_t *src = (const uint8_t *)rgb + (size_t)y * row;
+        if (!deep) {
+            memcpy(dst + (size_t)y * stride, src, row);
+            continue;
+        }
+        // Little-endian words, whatever the machine's order.
+        const uint16_t *s16 = (const uint16_t *)src;
+        uint8_t *d = dst + (size_t)y * stride;
+        for (int i = 0; i < 3 * w; i++) {
+            d[2 * i] = (uint8_t)(s16[i] & 0xff);
+            d[2 * i + 1] = (uint8_t)(s16[i] >> 8);
+        }
     }
-    e = heif_context_encode_image(ctx, img, enc, NULL, NULL);
+    e = heif_context_encode_image(ctx, img, enc, opts, NULL);
     if (e.code != heif_error_Ok) {
         fail(err, errlen, "cannot encode", e);
         goto out;
@@ -169,6 +190,9 @@ out:
     }
     if (enc != NULL) {
         heif_encoder_release(enc);
+    }
+    if (opts != NULL) {
+        heif_encoding_options_free(opts);
     }
     heif_context_free(ctx);
     return rc;

@@ -77,28 +77,47 @@ func decodeHEIF(path string, maxPx int) (gocv.Mat, error) {
 // WriteHEIC writes img as a HEIC file (HEVC, 8-bit, at libheif's lossy
 // quality 0-100) at path: for simulated photos and tests.
 func WriteHEIC(path string, img image.Image, quality int) error {
+	return writeHEIC(path, img, 8, quality, 1)
+}
+
+// writeHEIC is WriteHEIC with the bits a channel (8, or 10 as newer phones
+// store HDR photos) and the container's orientation (the EXIF values,
+// 1-8: how a viewer turns img).
+func writeHEIC(path string, img image.Image, bits, quality, orientation int) error {
 	b := img.Bounds()
 	w, h := b.Dx(), b.Dy()
 	if w < 1 || h < 1 {
 		return fmt.Errorf("%s: an empty image", path)
 	}
-	rgb := C.malloc(C.size_t(3 * w * h))
+	size := 1
+	if bits > 8 {
+		size = 2
+	}
+	rgb := C.malloc(C.size_t(3 * w * h * size))
 	if rgb == nil {
 		return fmt.Errorf("%s: out of memory", path)
 	}
 	defer C.free(rgb)
-	px := unsafe.Slice((*byte)(rgb), 3*w*h)
+	px8 := unsafe.Slice((*byte)(rgb), 3*w*h)
+	px16 := unsafe.Slice((*uint16)(rgb), 3*w*h)
 	for y := 0; y < h; y++ {
 		for x := 0; x < w; x++ {
 			r, g, bl, _ := img.At(b.Min.X+x, b.Min.Y+y).RGBA()
 			o := 3 * (y*w + x)
-			px[o], px[o+1], px[o+2] = byte(r>>8), byte(g>>8), byte(bl>>8)
+			if size == 1 {
+				px8[o], px8[o+1], px8[o+2] = byte(r>>8), byte(g>>8), byte(bl>>8)
+			} else {
+				// 16-bit values to bits, rounded.
+				sh := uint(16 - bits)
+				q := func(v uint32) uint16 { return uint16(min((v+(1<<sh)/2)>>sh, 1<<bits-1)) }
+				px16[o], px16[o+1], px16[o+2] = q(r), q(g), q(bl)
+			}
 		}
 	}
 	cp := C.CString(path)
 	defer C.free(unsafe.Pointer(cp))
 	buf := make([]C.char, heifErrLen)
-	if C.lineshot_heif_encode((*C.uint8_t)(rgb), C.int(w), C.int(h), C.int(quality), cp, &buf[0], heifErrLen) != 0 {
+	if C.lineshot_heif_encode(rgb, C.int(w), C.int(h), C.int(bits), C.int(quality), C.int(orientation), cp, &buf[0], heifErrLen) != 0 {
 		return fmt.Errorf("%s: %v", path, heifErr(buf))
 	}
 	return nil

@@ -1,14 +1,18 @@
 package imaging
 
 import (
+	"fmt"
 	"image"
 	"image/jpeg"
+	"math"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
 	"unicode"
 	"unicode/utf8"
+
+	"gocv.io/x/gocv"
 
 	"lineshot/imaging/synth"
 )
@@ -108,5 +112,103 @@ func TestHEICRefused(t *testing.T) {
 			t.Errorf("%s: error should name the file and the reason on one line: %q", p, msg)
 		}
 		t.Logf("%s: %v", filepath.Base(p), err)
+	}
+}
+
+// A HEIC photo whose container says to turn it (a phone held upright
+// stores its pixels sideways) is measured turned: the frame and the lines
+// as the simulator made them upright.
+func TestHEICTurned(t *testing.T) {
+	dir := t.TempDir()
+	p := synth.Params{Width: 960, Height: 540, LinesPerMM: 600, TiltDeg: 2, Seed: 44, Emissions: mercury}
+	img, tr, err := synth.Render(p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	b := img.Bounds()
+	// stored(x, y) for each orientation: the pixels a viewer turns into
+	// img. The EXIF tag's meaning (common practice): 6, the stored 0th row
+	// is the picture's right side and its 0th column the top (turned a
+	// quarter clockwise to show); 8, the 0th row is the left side and the
+	// 0th column the bottom; 3, a half turn.
+	for _, c := range []struct {
+		orientation int
+		w, h        int
+		from        func(x, y int) (int, int) // stored pixel → img pixel
+	}{
+		{6, b.Dy(), b.Dx(), func(x, y int) (int, int) { return b.Dx() - 1 - y, x }},
+		{3, b.Dx(), b.Dy(), func(x, y int) (int, int) { return b.Dx() - 1 - x, b.Dy() - 1 - y }},
+		{8, b.Dy(), b.Dx(), func(x, y int) (int, int) { return y, b.Dy() - 1 - x }},
+	} {
+		stored := image.NewRGBA(image.Rect(0, 0, c.w, c.h))
+		for y := 0; y < c.h; y++ {
+			for x := 0; x < c.w; x++ {
+				sx, sy := c.from(x, y)
+				stored.Set(x, y, img.At(sx, sy))
+			}
+		}
+		path := filepath.Join(dir, fmt.Sprintf("turned%d.heic", c.orientation))
+		if err := writeHEIC(path, stored, 8, 90, c.orientation); err != nil {
+			t.Fatal(err)
+		}
+		s, err := Extract(path, Options{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		rms, _, stray := lineStats(t, s, tr)
+		t.Logf("orientation %d: frame %dx%d, band %.3f°, lines %.3f px RMS", c.orientation, s.FrameW, s.FrameH, s.AngleDeg, rms)
+		if s.FrameW != p.Width || s.FrameH != p.Height || rms > 0.15 || len(stray) > 0 {
+			t.Errorf("orientation %d: frame %dx%d, lines %.3f px RMS off, stray %v", c.orientation, s.FrameW, s.FrameH, rms, stray)
+		}
+	}
+}
+
+// A 10-bit HEIC photo (as newer phones store HDR photos) is read at 16 bits
+// a channel, full scale kept full scale, and measured as the 8-bit one is.
+func TestHEIC10Bit(t *testing.T) {
+	dir := t.TempDir()
+	p := synth.Params{Width: 960, Height: 540, LinesPerMM: 600, TiltDeg: -3, Seed: 45, Emissions: hydrogen}
+	img, tr, err := synth.Render(p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	path := filepath.Join(dir, "deep.heic")
+	if err := writeHEIC(path, deep(img), 10, 90, 1); err != nil {
+		t.Fatal(err)
+	}
+	if _, _, depth, err := heifSize(path); err != nil || depth != 10 {
+		t.Fatalf("written at %d bits (%v), want 10", depth, err)
+	}
+	m, err := decodeHEIF(path, DefaultMaxPixels)
+	if err != nil {
+		t.Fatal(err)
+	}
+	typ := m.Type()
+	// The decoded levels against the picture's own, 16-bit: within the
+	// HEVC coding's error, and the scale the same (a wrong shift reads
+	// 1/64 or 64 times).
+	var sum, sumRef float64
+	px, _ := m.DataPtrUint16()
+	ref := deep(img)
+	for y := 0; y < p.Height; y += 7 {
+		for x := 0; x < p.Width; x += 7 {
+			c := ref.RGBA64At(x, y)
+			o := 3 * (y*p.Width + x)
+			sum += float64(px[o]) + float64(px[o+1]) + float64(px[o+2])
+			sumRef += float64(c.B) + float64(c.G) + float64(c.R)
+		}
+	}
+	m.Close()
+	if typ != gocv.MatTypeCV16UC3 || math.Abs(sum/sumRef-1) > 0.02 {
+		t.Errorf("decoded as type %v, level %.4f of the picture's", typ, sum/sumRef)
+	}
+	s, err := Extract(path, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	rms, _, stray := lineStats(t, s, tr)
+	t.Logf("10-bit HEIC: level %.4f of the picture's, lines %.3f px RMS", sum/sumRef, rms)
+	if rms > 0.15 || len(stray) > 0 {
+		t.Errorf("lines %.3f px RMS off, stray %v", rms, stray)
 	}
 }
