@@ -6,6 +6,7 @@ import (
 	"image/color"
 	"image/jpeg"
 	"image/png"
+	"io"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -280,16 +281,7 @@ func TestStackMismatch(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		path := filepath.Join(dir, name)
-		f, err := os.Create(path)
-		if err != nil {
-			t.Fatal(err)
-		}
-		defer f.Close()
-		if err := jpeg.Encode(f, img, &jpeg.Options{Quality: 90}); err != nil {
-			t.Fatal(err)
-		}
-		return path
+		return writeImageFile(t, name, func(w io.Writer) error { return jpeg.Encode(w, img, &jpeg.Options{Quality: 90}) })
 	}
 	webcam := func(seed uint64, lamp []synth.Emission, level float64) synth.Params {
 		return synth.Params{Width: 1280, Height: 720, LinesPerMM: 600, TiltDeg: 3, PeakLevel: level, Seed: seed, Emissions: lamp}
