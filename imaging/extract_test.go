@@ -5,6 +5,7 @@ import (
 	"errors"
 	"image"
 	"image/color"
+	"image/draw"
 	"image/jpeg"
 	"image/png"
 	"io"
@@ -935,4 +936,45 @@ func TestBandFirstFailures(t *testing.T) {
 	if err := decodeRowsInto(small, m, 100, 200); err == nil || !strings.Contains(err.Error(), "changed") {
 		t.Errorf("rows of a photo of another size: %v", err)
 	}
+}
+
+// Any frame, past the decoders: the band search, the straightening and the
+// profiles on pixels made from the bytes (a frame of 16-271 × 16-271 px,
+// sizes from the first two bytes, the rest the pixels, repeated), one band
+// or all, one worker or two: a strip or an error, never a panic or a hang.
+// Many more frames a second than FuzzExtractBytes, whose inputs rarely
+// decode, reach this code. The band search's hang on a profile of spikes
+// (TestBandEdgesInOrder) was found through the decoder, after minutes.
+func FuzzBandSearch(f *testing.F) {
+	img, _, _ := synth.Render(synth.Params{Width: 96, Height: 64, Emissions: mercury, NoNoise: true})
+	rgba := image.NewRGBA(img.Bounds())
+	draw.Draw(rgba, rgba.Bounds(), img, image.Point{}, draw.Src)
+	seed := []byte{96 - 16, 64 - 16, 0}
+	for i := 0; i < len(rgba.Pix); i += 4 {
+		seed = append(seed, rgba.Pix[i+2], rgba.Pix[i+1], rgba.Pix[i])
+	}
+	f.Add(seed)
+	f.Add([]byte{0, 0, 1, 255, 0, 0, 0, 255})
+	f.Add([]byte{200, 3, 3, 0, 0, 0, 255, 255, 255, 0})
+	f.Fuzz(func(t *testing.T, b []byte) {
+		if len(b) < 4 {
+			return
+		}
+		w, h := 16+int(b[0]), 16+int(b[1])
+		mode := b[2]
+		src := b[3:]
+		px := make([]byte, 3*w*h)
+		for i := range px {
+			px[i] = src[i%len(src)]
+		}
+		m, err := gocv.NewMatFromBytes(h, w, gocv.MatTypeCV8UC3, px)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer m.Close()
+		opt := Options{Workers: 1 + int(mode&1)}
+		if _, err := extractBandsMat(m, opt, mode&2 != 0, rowSource{}, nil); err != nil && strings.Contains(err.Error(), "\n") {
+			t.Fatalf("error on more than one line: %v", err)
+		}
+	})
 }

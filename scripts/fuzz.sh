@@ -42,3 +42,4 @@ run ./cmd/lineshot FuzzParseSettings 15000x
 run ./cmd/lineshot FuzzLineList 10000x
 run ./cmd/lineshot FuzzCalibrationJSON 1000x
 run ./imaging FuzzExtractBytes 300x
+run ./imaging FuzzBandSearch 1000x
