@@ -66,6 +66,20 @@ func hostileFiles(t *testing.T, dir string) map[string]string {
 		noise.Pix[i] = uint8(40 + r.IntN(8))
 	}
 	w("no-spectrum.png", enc(noise, "png"))
+	// HEIC: cut short, and one whose image header (its 'ispe' box)
+	// declares 20000x20000 pixels. (Named unlike the JPEGs and PNGs here:
+	// a HEIC beside a photo of the same name is passed over as its twin.)
+	heic, _ := simulate(t, t.TempDir(), "h.heic", "--lamp", "hydrogen", "--size", "640x360", "--quality", "40")
+	heicBytes, _ := os.ReadFile(heic)
+	w("cut-short.heic", heicBytes[:len(heicBytes)/2])
+	bomb := append([]byte(nil), heicBytes...)
+	if at := bytes.Index(bomb, []byte("ispe")); at < 0 {
+		t.Fatal("no ispe box in the simulated HEIC")
+	} else {
+		binary.BigEndian.PutUint32(bomb[at+8:], 20000) // after the version and flags
+		binary.BigEndian.PutUint32(bomb[at+12:], 20000)
+	}
+	w("huge.heic", bomb)
 	w("name-\xff\xfe.jpg", rnd[:100])
 	w("new\nline.jpg", rnd[:200]) // its reason must stay one line
 	os.Mkdir(filepath.Join(dir, "folder.jpg"), 0o755)
@@ -78,6 +92,7 @@ func hostileFiles(t *testing.T, dir string) map[string]string {
 		"bomb.png": "exceeds the limit", "one-pixel.png": "", "sliver.png": "", "all-black.jpg": "no spectrum band",
 		"all-white.png": "", "no-spectrum.png": "no spectrum band", `name-\xff\xfe.jpg`: "not an image",
 		`new\nline.jpg`: "not an image",
+		"cut-short.heic": "HEIF", "huge.heic": "exceeds the limit",
 	}
 }
 
