@@ -91,7 +91,7 @@ func hostileFiles(t *testing.T, dir string) map[string]string {
 		"zero-bytes.jpg": "empty file", "truncated.jpg": "", "truncated.png": "", "random.jpg": "not an image",
 		"bomb.png": "exceeds the limit", "one-pixel.png": "", "sliver.png": "", "all-black.jpg": "no spectrum band",
 		"all-white.png": "", "no-spectrum.png": "no spectrum band", `name-\xff\xfe.jpg`: "not an image",
-		`new\nline.jpg`: "not an image",
+		`new\nline.jpg`:  "not an image",
 		"cut-short.heic": "HEIF", "huge.heic": "exceeds the limit",
 	}
 }
