@@ -586,6 +586,9 @@ func findLines(s imaging.Strip, path string, cfg measureConfig) (measured, error
 	if len(r.Peaks) == 0 {
 		return fail(fmt.Errorf("no line stands above the noise (threshold %.1fσ)", cfg.minSNR))
 	}
+	if w := noNoise(r); w != "" {
+		s.Warnings = append(s.Warnings, w)
+	}
 	if cfg.saveStrip != "" {
 		if err := writeStripImage(cfg.saveStrip, measured{strip: s, found: r}, false); err != nil {
 			return measured{}, err
@@ -597,6 +600,24 @@ func findLines(s imaging.Strip, path string, cfg measureConfig) (measured, error
 		r.Peaks[i].Sigma = math.Hypot(r.Peaks[i].Sigma, cfg.floorPX)
 	}
 	return measured{strip: s, found: r}, nil
+}
+
+// noNoise warns when the profile shows no noise to speak of: none at all,
+// or the strongest line more than a million times it. A photo compressed
+// hard (a JPEG of quality 40, measured: noise exactly 0) has had its noise
+// smoothed away; the detection threshold, a multiple of the noise, then
+// lets the compression's ringing beside strong lines pass for lines (20
+// found for a hydrogen lamp's 5), and the uncertainties rest on their
+// floors alone. No real camera's photo is that clean.
+func noNoise(r peaks.Result) string {
+	top := 0.0
+	for _, p := range r.Peaks {
+		top = math.Max(top, p.Height)
+	}
+	if r.Noise > 0 && top < 1e6*r.Noise {
+		return ""
+	}
+	return "the profile shows no noise (the photo's compression smoothed it away): the compression's ringing beside strong lines may pass for lines, and the uncertainties rest on their floors; save the photo at a higher quality"
 }
 
 // fromUnclippedChannel measures each saturated line again in the colour

@@ -1,8 +1,10 @@
 package main
 
 import (
+	"encoding/json"
 	"fmt"
 	"math"
+	"strings"
 	"testing"
 
 	"lineshot/imaging"
@@ -81,5 +83,34 @@ func TestUnclippedChannelFallback(t *testing.T) {
 	fromUnclippedChannel(s, &r, 5, 0)
 	if p := r.Peaks[0]; p.Channel != "" || p.Center != 60.31 {
 		t.Errorf("good flank fit replaced: centre %.3f from channel %q", p.Center, p.Channel)
+	}
+}
+
+// A photo compressed so hard that its noise is gone (a simulated hydrogen
+// photo as JPEG of quality 40: profile noise exactly 0, the compression's
+// ringing then found as lines) says so; the same photo at quality 90 does
+// not.
+func TestNoNoiseWarned(t *testing.T) {
+	dir := t.TempDir()
+	for _, c := range []struct {
+		quality string
+		warned  bool
+	}{{"40", true}, {"90", false}} {
+		p, _ := simulate(t, dir, "h"+c.quality+".jpg", "--lamp", "hydrogen", "--size", "1280x720", "--quality", c.quality, "--seed", "5")
+		out, stderr, code := runCLI(t, "measure", "--json", p)
+		if code != 0 {
+			t.Fatalf("exit %d: %s", code, stderr)
+		}
+		var doc document
+		if err := json.Unmarshal([]byte(out), &doc); err != nil {
+			t.Fatal(err)
+		}
+		warned := false
+		for _, w := range doc.Images[0].Warnings {
+			warned = warned || strings.Contains(w, "shows no noise")
+		}
+		if warned != c.warned {
+			t.Errorf("quality %s: warned %v (profile noise %g), want %v", c.quality, warned, doc.Images[0].Quality.ProfileNoise, c.warned)
+		}
 	}
 }
