@@ -551,7 +551,7 @@ func checkFile(path string, opt Options) (string, image.Config, error) {
 			return "", image.Config{}, fmt.Errorf("%s: a HEIF/HEIC file libheif cannot read: %v", path, err)
 		}
 		if w*h > capPx {
-			return "", image.Config{}, fmt.Errorf("%s: %dx%d pixels exceeds the limit of %d megapixels", path, w, h, capPx/1_000_000)
+			return "", image.Config{}, errOverCap(path, w, h, capPx)
 		}
 		cfg := image.Config{Width: w, Height: h, ColorModel: color.RGBAModel}
 		if depth > 8 {
@@ -569,7 +569,7 @@ func checkFile(path string, opt Options) (string, image.Config, error) {
 		return "", image.Config{}, fmt.Errorf("%s: a TIFF of floating-point, signed or 32- or 64-bit samples, %s", path, wideSampleReason)
 	}
 	if err == nil && cfg.Width*cfg.Height > capPx {
-		return "", image.Config{}, fmt.Errorf("%s: %dx%d pixels exceeds the limit of %d megapixels", path, cfg.Width, cfg.Height, capPx/1_000_000)
+		return "", image.Config{}, errOverCap(path, cfg.Width, cfg.Height, capPx)
 	}
 	if err == nil && !hasEndMarker(f, st.Size(), format) {
 		// A file cut short (an interrupted copy): libjpeg and libpng would
@@ -583,6 +583,11 @@ func checkFile(path string, opt Options) (string, image.Config, error) {
 		}
 	}
 	return format, cfg, nil
+}
+
+// errOverCap is the error for a w×h photo at path over the pixel cap.
+func errOverCap(path string, w, h, capPx int) error {
+	return fmt.Errorf("%s: %dx%d pixels exceeds the limit of %d megapixels", path, w, h, capPx/1_000_000)
 }
 
 // hasEndMarker reports whether a JPEG ends with its EOI marker or a PNG

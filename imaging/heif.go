@@ -50,15 +50,6 @@ func heifSize(path string) (w, h, depth int, err error) {
 	return int(cw), int(ch), int(cd), nil
 }
 
-// heifConfig is checkFile's image.Config of a HEIF file.
-func heifConfig(path string) (image.Config, error) {
-	w, h, _, err := heifSize(path)
-	if err != nil {
-		return image.Config{}, err
-	}
-	return image.Config{Width: w, Height: h}, nil
-}
-
 // decodeHEIF decodes the primary image of the HEIF file at path into a BGR
 // Mat (8-bit, or 16-bit for deeper images) of at most maxPx pixels. The
 // error names the file.
@@ -98,8 +89,16 @@ func writeHEIC(path string, img image.Image, bits, quality, orientation int) err
 		return fmt.Errorf("%s: out of memory", path)
 	}
 	defer C.free(rgb)
-	px8 := unsafe.Slice((*byte)(rgb), 3*w*h)
-	px16 := unsafe.Slice((*uint16)(rgb), 3*w*h)
+	var px8 []byte
+	var px16 []uint16
+	if size == 1 {
+		px8 = unsafe.Slice((*byte)(rgb), 3*w*h)
+	} else {
+		px16 = unsafe.Slice((*uint16)(rgb), 3*w*h)
+	}
+	// 16-bit values to bits, rounded.
+	sh := uint(16 - bits)
+	q := func(v uint32) uint16 { return uint16(min((v+(1<<sh)/2)>>sh, 1<<bits-1)) }
 	for y := 0; y < h; y++ {
 		for x := 0; x < w; x++ {
 			r, g, bl, _ := img.At(b.Min.X+x, b.Min.Y+y).RGBA()
@@ -107,9 +106,6 @@ func writeHEIC(path string, img image.Image, bits, quality, orientation int) err
 			if size == 1 {
 				px8[o], px8[o+1], px8[o+2] = byte(r>>8), byte(g>>8), byte(bl>>8)
 			} else {
-				// 16-bit values to bits, rounded.
-				sh := uint(16 - bits)
-				q := func(v uint32) uint16 { return uint16(min((v+(1<<sh)/2)>>sh, 1<<bits-1)) }
 				px16[o], px16[o+1], px16[o+2] = q(r), q(g), q(bl)
 			}
 		}

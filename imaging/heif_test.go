@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"image"
 	"image/jpeg"
+	"io"
 	"math"
 	"os"
 	"path/filepath"
@@ -54,13 +55,7 @@ func TestHEICMeasured(t *testing.T) {
 				t.Errorf("frame %dx%d, the photo %dx%d", s.FrameW, s.FrameH, c.p.Width, c.p.Height)
 			}
 			rms, _, stray := lineStats(t, s, tr)
-			jp := filepath.Join(dir, strings.Fields(c.name)[0]+".jpg")
-			f, err := os.Create(jp)
-			if err != nil {
-				t.Fatal(err)
-			}
-			jpeg.Encode(f, img, &jpeg.Options{Quality: 90})
-			f.Close()
+			jp := writeImageFile(t, strings.Fields(c.name)[0]+".jpg", func(w io.Writer) error { return jpeg.Encode(w, img, &jpeg.Options{Quality: 90}) })
 			sj, err := Extract(jp, Options{})
 			if err != nil {
 				t.Fatal(err)

@@ -458,9 +458,10 @@ func crossBands(p plane, ang, bg, sx, sy float64, all bool, workers int) []bandG
 	type bump struct{ c, h, level float64 }
 	var found []bump
 	work := append([]float64(nil), prof...)
-	// (Every round blanks at least the bin it found; the cap on rounds is
-	// a second guard: a profile of infinities from a damaged photo once
-	// gave edges of NaN, blanked nothing and looped for ever.)
+	// (Every round blanks at least the bin it found, now that bandEdges
+	// keeps its edges in order; the cap on rounds and the check for edges
+	// that are not numbers guard the blanking: edges outside each other
+	// from a damaged photo once blanked nothing and looped for ever.)
 	for round := 0; len(found) < 8 && round < len(work); round++ {
 		c, h, ok := bandEdges(work)
 		if !ok || math.IsNaN(c) || math.IsInf(c, 0) || math.IsNaN(h) || math.IsInf(h, 0) {

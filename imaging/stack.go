@@ -14,6 +14,8 @@ import (
 	"time"
 
 	"gocv.io/x/gocv"
+
+	"lineshot/peaks"
 )
 
 // Stack is several exposures of one fixed setup measured as one photo: a
@@ -134,7 +136,6 @@ const thumbFramesMax = 24
 // it also keeps each file's reduced average (average.files).
 func accumulate(paths []string, maxVideo int, opt Options, thumbs bool) (average, error) {
 	var a average
-	var lin linearTable
 	seen := 0 // frames of the current file
 	add := func(path string, m gocv.Mat) error {
 		fr, err := newFrame(m)
@@ -147,7 +148,7 @@ func accumulate(paths []string, maxVideo int, opt Options, thumbs bool) (average
 				capPx = 120_000_000
 			}
 			if fr.w*fr.h > capPx {
-				return fmt.Errorf("%s: %dx%d pixels exceeds the limit of %d megapixels", path, fr.w, fr.h, capPx/1_000_000)
+				return errOverCap(path, fr.w, fr.h, capPx)
 			}
 			a.w, a.h = fr.w, fr.h
 			a.sum = make([]float32, 3*fr.w*fr.h)
@@ -177,7 +178,11 @@ func accumulate(paths []string, maxVideo int, opt Options, thumbs bool) (average
 				seen = 0
 			}
 			if seen%max(1, maxVideo/thumbFramesMax) == 0 {
-				a.files[len(a.files)-1].add(fr, lin.get(fr.words16 != nil, opt.Linear))
+				levels := 256
+				if fr.words16 != nil {
+					levels = 65536
+				}
+				a.files[len(a.files)-1].add(fr, tablesFor(levels, opt.Linear).lut)
 			}
 			seen++
 		}
@@ -384,28 +389,6 @@ func WriteVideo(path string, frames []image.Image, fps float64) error {
 	return nil
 }
 
-// linearTable is the code → linear intensity table of the frames' coding,
-// made when first asked for.
-type linearTable struct{ t []float32 }
-
-func (l *linearTable) get(words16, linear bool) []float32 {
-	n := 256
-	if words16 {
-		n = 65536
-	}
-	if len(l.t) != n {
-		l.t = make([]float32, n)
-		for c := range l.t {
-			v := float64(c) / float64(n-1)
-			if !linear {
-				v = srgbToLinear(v)
-			}
-			l.t[c] = float32(v)
-		}
-	}
-	return l.t
-}
-
 // newFileThumb is an empty thumbnail of a w×h file, reduced so that its
 // longer side is at most 512 cells.
 func newFileThumb(path string, w, h int) fileThumb {
@@ -464,18 +447,19 @@ func stackMismatch(files []fileThumb, s Strip) string {
 			worst = math.Max(worst, d)
 		}
 	}
+	const why = " of the strongest line (another lamp, or the camera moved?); the average mixes them"
 	switch {
 	case len(odd) == 0:
 		return ""
 	case len(odd) == len(files):
-		return fmt.Sprintf("the photos of the stack (%s) do not show one spectrum: along the band their profiles depart from each other's by up to %.0f %% of the strongest line (another lamp, or the camera moved?); the average mixes them",
-			strings.Join(odd, ", "), 100*worst)
+		return fmt.Sprintf("the photos of the stack (%s) do not show one spectrum: along the band their profiles depart from each other's by up to %.0f %%",
+			strings.Join(odd, ", "), 100*worst) + why
 	case len(odd) == 1:
-		return fmt.Sprintf("%s does not show the same spectrum as the stack's other photos: along the band its profile departs from theirs by %.0f %% of the strongest line (another lamp, or the camera moved?); the average mixes them",
-			odd[0], 100*worst)
+		return fmt.Sprintf("%s does not show the same spectrum as the stack's other photos: along the band its profile departs from theirs by %.0f %%",
+			odd[0], 100*worst) + why
 	}
-	return fmt.Sprintf("%s do not show the same spectrum as the stack's other photos: along the band their profiles depart from the others' by up to %.0f %% of the strongest line (another lamp, or the camera moved?); the average mixes them",
-		strings.Join(odd, ", "), 100*worst)
+	return fmt.Sprintf("%s do not show the same spectrum as the stack's other photos: along the band their profiles depart from the others' by up to %.0f %%",
+		strings.Join(odd, ", "), 100*worst) + why
 }
 
 // stackDepartures is each file's largest departure from the stack's
@@ -556,8 +540,7 @@ func departures(profs [][]float64, kept []bool, nb int) []float64 {
 				col = append(col, p[k])
 			}
 		}
-		sort.Float64s(col)
-		ref[k] = (col[(len(col)-1)/2] + col[len(col)/2]) / 2
+		ref[k] = peaks.MedianInPlace(col)
 	}
 	var refSS float64
 	for _, v := range ref {
