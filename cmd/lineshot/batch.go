@@ -369,6 +369,14 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 	absOut, _ := filepath.Abs(out)
 	byDir := map[string]*bench{}
 	readable := map[string][]string{} // folder → its photos' names without ending, read once (readableBases)
+	// twinned: a photo of p's name, another ending, lies beside it.
+	twinned := func(p string) bool {
+		dir := filepath.Dir(p)
+		if _, ok := readable[dir]; !ok {
+			readable[dir] = readableBases(dir)
+		}
+		return hasTwin(readable[dir], p)
+	}
 	var order []string
 	filepath.WalkDir(root, func(p string, d fs.DirEntry, err error) error {
 		if p != root && d != nil && notUsers(d.Name()) {
@@ -397,11 +405,7 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 		if why := imaging.Unreadable(p); why != "" {
 			// A raw photo: said so, unless the camera saved a
 			// JPEG (or other photo lineshot reads) of it beside it.
-			dir := filepath.Dir(p)
-			if _, ok := readable[dir]; !ok {
-				readable[dir] = readableBases(dir)
-			}
-			if !hasTwin(readable[dir], p) {
+			if !twinned(p) {
 				fails = append(fails, failure{File: displayName(p), Reason: why})
 			}
 			return nil
@@ -409,16 +413,10 @@ func discover(root, out string) (benches []bench, fails []failure, passed []stri
 		if !imageExts[strings.ToLower(filepath.Ext(p))] && !imaging.IsVideo(p) {
 			return nil
 		}
-		if isHEIFName(p) {
+		if isHEIFName(p) && twinned(p) {
 			// A HEIC photo beside a JPEG of the same shot (one converted
 			// from the other): the JPEG is measured, not both.
-			dir := filepath.Dir(p)
-			if _, ok := readable[dir]; !ok {
-				readable[dir] = readableBases(dir)
-			}
-			if hasTwin(readable[dir], p) {
-				return nil
-			}
+			return nil
 		}
 		if d.Type()&fs.ModeSymlink != 0 {
 			st, err := os.Stat(p)

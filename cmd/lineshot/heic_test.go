@@ -1,7 +1,6 @@
 package main
 
 import (
-	"encoding/json"
 	"math"
 	"os"
 	"path/filepath"
@@ -28,14 +27,7 @@ func TestBatchReadsHEIC(t *testing.T) {
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, stderr)
 	}
-	raw, err := os.ReadFile(filepath.Join(out, "results.json"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	var doc batchDoc
-	if err := json.Unmarshal(raw, &doc); err != nil {
-		t.Fatal(err)
-	}
+	doc := readBatch(t, out)
 	if len(doc.Benches) != 1 || doc.Benches[0].Calibration == nil || len(doc.Benches[0].Photos) != 1 {
 		t.Fatalf("benches %+v, failures %+v", doc.Benches, doc.Failures)
 	}

@@ -62,6 +62,23 @@ func writeAtomic(path string, durable bool, write func(w io.Writer) error) (err 
 	return os.Rename(f.Name(), path)
 }
 
+// writeByPathAtomic is writeAtomic for writers that take a path, not an
+// io.Writer (OpenCV's video writer, libheif): write makes the file under a
+// temporary name beside path, ending in ext (such writers choose the
+// format by it), and it is renamed to path; a failure leaves nothing.
+func writeByPathAtomic(path, ext string, write func(tmp string) error) error {
+	tmp := filepath.Join(filepath.Dir(path), "."+filepath.Base(path)+".tmp"+ext)
+	if err := write(tmp); err != nil {
+		os.Remove(tmp)
+		return err
+	}
+	if err := os.Rename(tmp, path); err != nil {
+		os.Remove(tmp)
+		return err
+	}
+	return nil
+}
+
 // errNoPath is err without the file path an *fs.PathError (or a rename's
 // *os.LinkError) carries: the atomic writer's temporary file, which the
 // user never sees; its callers name the file meant.

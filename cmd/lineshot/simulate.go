@@ -6,7 +6,6 @@ import (
 	"image/jpeg"
 	"image/png"
 	"io"
-	"os"
 	"path/filepath"
 	"strconv"
 	"strings"
@@ -117,24 +116,11 @@ func runSimulate(args []string, stdout, stderr io.Writer) error {
 			}
 			imgs = append(imgs, f)
 		}
-		tmp := filepath.Join(filepath.Dir(*out), "."+filepath.Base(*out)+".tmp.avi")
-		if err := imaging.WriteVideo(tmp, imgs, 10); err != nil {
-			os.Remove(tmp)
-			return err
-		}
-		if err := os.Rename(tmp, *out); err != nil {
-			os.Remove(tmp)
+		if err := writeByPathAtomic(*out, ext, func(tmp string) error { return imaging.WriteVideo(tmp, imgs, 10) }); err != nil {
 			return err
 		}
 	} else if ext == ".heic" {
-		// libheif writes the file itself: a temporary name, then the rename.
-		tmp := filepath.Join(filepath.Dir(*out), "."+filepath.Base(*out)+".tmp.heic")
-		if err := imaging.WriteHEIC(tmp, img, *quality); err != nil {
-			os.Remove(tmp)
-			return err
-		}
-		if err := os.Rename(tmp, *out); err != nil {
-			os.Remove(tmp)
+		if err := writeByPathAtomic(*out, ext, func(tmp string) error { return imaging.WriteHEIC(tmp, img, *quality) }); err != nil {
 			return err
 		}
 	} else if err := writeFileAtomic(*out, func(wr io.Writer) error {
