@@ -129,6 +129,12 @@ type Strip struct {
 	// band, per column, smoothed. Stray light or a glow raises it where it
 	// falls; peaks.Options.NoiseShape uses it. Nil when unmeasured.
 	NoiseShape []float64
+	// FlatBackground is the share of the columns beside the band whose
+	// samples show no scatter at all: a compressed photo's background
+	// smoothed flat (JPEG quality about 75 and below). Above a fifth
+	// NoiseShape is left out (noiseShape); above a half a warning says
+	// that the compression's ringing may pass for faint lines.
+	FlatBackground float64
 	// ChannelClipped is Clipped per linear channel (R, G, B), set with
 	// Channels. When the band holds saturated pixels, Channels are
 	// straightened even without Options.Channels, so that a line
@@ -1380,6 +1386,9 @@ func qualityWarnings(s Strip, cut bool) []string {
 	if s.Background > 0.3 {
 		out = append(out, fmt.Sprintf("the background is at %.0f%% of full scale: darken the room or shield the camera", 100*s.Background))
 	}
+	if s.FlatBackground > 0.5 {
+		out = append(out, fmt.Sprintf("the compression has smoothed the background flat in %.0f%% of the columns beside the band: its ringing beside strong lines may pass for faint lines, and the noise is underestimated; save the photo at a higher quality", 100*s.FlatBackground))
+	}
 	if cut {
 		out = append(out, "the line images run into the frame edge (the band is cut off across its height): centres may be biased; frame the spectrum with margin above and below")
 	}
@@ -2030,7 +2039,13 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	})
 	nBand, nClip := int(nBandAll.Load()), int(nClipAll.Load())
 	rows := float64(2*half + 1)
-	spread := make([]float64, L) // the profile channel's scatter beside the band, per column
+	// The profile channel's scatter beside the band, per column; -1 where
+	// too few samples lie beside it to measure one (0 is a measure: a
+	// background the compression left flat).
+	spread := make([]float64, L)
+	for i := range spread {
+		spread[i] = -1
+	}
 	inParts(L, workers, 256, func(c0, c1 int) {
 		tmp := make([]float64, nbg)
 		for i := c0; i < c1; i++ {
@@ -2095,7 +2110,7 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	if nBand > 0 {
 		s.Saturated = float64(nClip) / float64(nBand)
 	}
-	s.NoiseShape = noiseShape(spread)
+	s.NoiseShape, s.FlatBackground = noiseShape(spread)
 	return s, fitCentreLine(px, nc, nc-1, L, Hc, s.Profile).shifted(float64(off)), nil
 }
 
@@ -3099,24 +3114,47 @@ func lineFit(t, y, w []float64) (a, b float64, ok bool) {
 	return (sy - b*st) / sw, b, true
 }
 
+// flatScatter is the largest scatter of a column's samples that counts as
+// none: float32 rounding of values up to 1 is below 1.2·10⁻⁷, while one
+// code of a 16-bit photo is 1.2·10⁻⁶ at black and more above it.
+const flatScatter = 1e-7
+
 // noiseShape turns per-column scatters into a smooth profile relative to
 // its median: a running median over 31 columns (the scatter of a few
-// dozen rows is itself noisy), columns without a measure taking their
-// neighbours'. Nil when fewer than a third of the columns were measured.
-func noiseShape(spread []float64) []float64 {
+// dozen rows is itself noisy), columns without a measure (negative)
+// taking their neighbours'. flatShare is the share of the measured
+// columns with no scatter at all (flatScatter). The shape is nil when
+// fewer than a third of the columns were measured, or when more than a
+// fifth were flat: there the compression has smoothed the noise away,
+// and what scatter is left is its own ringing beside the lines, which a
+// median of next to nothing turned into "noise" up to 10⁵ times the
+// typical, taking every line's SNR below the threshold (a hydrogen
+// photo's 5 lines down to 1 at JPEG quality 70). Simulated 1280x720 and
+// 1920x1080 JPEGs: flat shares 0.77-1.00 at quality 50-70, 0.60-0.72 at
+// 72 (the median there float rounding, 9·10⁻¹⁰), 0.29-0.30 at 75 (a real
+// median, a third of an undisturbed photo's, the ringing still five
+// times it: a line lost), 0.06-0.10 at 78-80, 0 from 85.
+func noiseShape(spread []float64) (shape []float64, flatShare float64) {
 	L := len(spread)
 	var have []float64
+	flat := 0
 	for _, v := range spread {
-		if v > 0 {
+		if v >= 0 {
 			have = append(have, v)
+			if v <= flatScatter {
+				flat++
+			}
 		}
 	}
-	if L == 0 || len(have) < L/3 {
-		return nil
+	if len(have) > 0 {
+		flatShare = float64(flat) / float64(len(have))
+	}
+	if L == 0 || len(have) < L/3 || flat*5 > len(have) {
+		return nil, flatShare
 	}
 	med := peaks.Median(have)
 	if med <= 0 {
-		return nil
+		return nil, flatShare
 	}
 	out := make([]float64, L)
 	const h = 15
@@ -3133,15 +3171,15 @@ func noiseShape(spread []float64) []float64 {
 		win = slices.Delete(win, k, k+1)
 	}
 	for j := 0; j < min(L, h); j++ {
-		if spread[j] > 0 {
+		if spread[j] >= 0 {
 			insert(spread[j])
 		}
 	}
 	for i := range out {
-		if j := i + h; j < L && spread[j] > 0 {
+		if j := i + h; j < L && spread[j] >= 0 {
 			insert(spread[j])
 		}
-		if j := i - h - 1; j >= 0 && spread[j] > 0 {
+		if j := i - h - 1; j >= 0 && spread[j] >= 0 {
 			remove(spread[j])
 		}
 		out[i] = 1
@@ -3153,5 +3191,5 @@ func noiseShape(spread []float64) []float64 {
 			out[i] = m / med
 		}
 	}
-	return out
+	return out, flatShare
 }

@@ -271,6 +271,50 @@ func TestNoiseShapeFollowsTheFrame(t *testing.T) {
 	}
 }
 
+// noiseShape takes a scatter of 0 as a measure (a background the
+// compression left flat), not as a column without one: a row of columns
+// mostly flat, with scatter only where lines ring, has no shape at all;
+// columns with too few samples (negative) take their neighbours'.
+func TestNoiseShapeOfFlatBackground(t *testing.T) {
+	const L = 400
+	flat := make([]float64, L)
+	for _, i := range []int{50, 51, 52, 120, 121, 200, 201, 202, 203} {
+		flat[i] = 0.004 // beside a line: the compression's ringing
+	}
+	for i := 0; i < L; i++ {
+		if flat[i] == 0 && i%5 < 2 {
+			flat[i] = 1e-5 // two columns in five a code apart
+		}
+	}
+	if s, share := noiseShape(flat); s != nil || share < 0.5 {
+		var top float64
+		for _, v := range s {
+			top = math.Max(top, v)
+		}
+		t.Errorf("a mostly flat background gave a noise shape (up to %.3g)", top)
+	}
+	// Real scatter, unmeasured columns among it, three times as much over
+	// columns 250-330: the shape follows it.
+	rng := rand.New(rand.NewPCG(2, 2))
+	sp := make([]float64, L)
+	for i := range sp {
+		sp[i] = 0.01 * (1 + 0.2*rng.NormFloat64())
+		if i >= 250 && i < 330 {
+			sp[i] *= 3
+		}
+		if i%7 == 0 {
+			sp[i] = -1
+		}
+	}
+	s, _ := noiseShape(sp)
+	if len(s) != L {
+		t.Fatalf("noise shape of %d values for %d columns", len(s), L)
+	}
+	if s[100] < 0.8 || s[100] > 1.25 || s[290] < 2.4 || s[290] > 3.6 || s[7*40] < 2.4 {
+		t.Errorf("noise shape %.2f at column 100, %.2f and %.2f in the noisier columns (want about 1 and 3)", s[100], s[290], s[280])
+	}
+}
+
 // A stack whose photos show different spectra (another lamp's photo among
 // them, or the camera moved between them) is named in a warning; exposures
 // of one setup, bright or dim and noisy, differing in brightness, are not.

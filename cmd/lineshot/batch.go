@@ -773,7 +773,7 @@ type batchRun struct {
 // optionsKey changes whenever an option that changes a photo's result
 // changes, so that cached results are not reused across them.
 func (b *batchRun) optionsKey() string {
-	return fmt.Sprintf("v5 snr=%g", b.cfg.minSNR)
+	return fmt.Sprintf("v6 snr=%g", b.cfg.minSNR)
 }
 
 func cacheName(path string) string {
