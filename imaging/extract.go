@@ -1367,6 +1367,11 @@ func refineBand(fr *frame, tables codeTables, clipAt int, opt Options, ang float
 	return s, nil
 }
 
+// FlatBackgroundWarning begins the warning given when Strip.FlatBackground
+// is over a half: a caller with a graver warning of the same cause (no
+// noise left in the profile at all) can put it in its place.
+const FlatBackgroundWarning = "the compression has smoothed the background flat"
+
 // qualityWarnings says in plain words when a strip should not be trusted
 // as it stands.
 func qualityWarnings(s Strip, cut bool) []string {
@@ -1387,7 +1392,7 @@ func qualityWarnings(s Strip, cut bool) []string {
 		out = append(out, fmt.Sprintf("the background is at %.0f%% of full scale: darken the room or shield the camera", 100*s.Background))
 	}
 	if s.FlatBackground > 0.5 {
-		out = append(out, fmt.Sprintf("the compression has smoothed the background flat in %.0f%% of the columns beside the band: its ringing beside strong lines may pass for faint lines, and the noise is underestimated; save the photo at a higher quality", 100*s.FlatBackground))
+		out = append(out, fmt.Sprintf(FlatBackgroundWarning+" in %.0f%% of the columns beside the band: its ringing beside strong lines may pass for faint lines, and the noise is underestimated; save the photo at a higher quality", 100*s.FlatBackground))
 	}
 	if cut {
 		out = append(out, "the line images run into the frame edge (the band is cut off across its height): centres may be biased; frame the spectrum with margin above and below")

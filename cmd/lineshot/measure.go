@@ -587,6 +587,9 @@ func findLines(s imaging.Strip, path string, cfg measureConfig) (measured, error
 		return fail(fmt.Errorf("no line stands above the noise (threshold %.1fσ)", cfg.minSNR))
 	}
 	if w := noNoise(r); w != "" {
+		// In place of the band's warning of a flat background, the
+		// same cause gone further.
+		s.Warnings = slices.DeleteFunc(slices.Clone(s.Warnings), func(w string) bool { return strings.HasPrefix(w, imaging.FlatBackgroundWarning) })
 		s.Warnings = append(s.Warnings, w)
 	}
 	if cfg.saveStrip != "" {

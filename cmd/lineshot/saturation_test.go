@@ -105,12 +105,18 @@ func TestNoNoiseWarned(t *testing.T) {
 		if err := json.Unmarshal([]byte(out), &doc); err != nil {
 			t.Fatal(err)
 		}
-		warned := false
+		warned, flat := false, false
 		for _, w := range doc.Images[0].Warnings {
 			warned = warned || strings.Contains(w, "shows no noise")
+			flat = flat || strings.HasPrefix(w, imaging.FlatBackgroundWarning)
 		}
 		if warned != c.warned {
 			t.Errorf("quality %s: warned %v (profile noise %g), want %v", c.quality, warned, doc.Images[0].Quality.ProfileNoise, c.warned)
+		}
+		if warned && flat {
+			// One warning of the one cause: the graver in place of the
+			// band's warning of a flat background.
+			t.Errorf("quality %s: warned of a flat background besides: %q", c.quality, doc.Images[0].Warnings)
 		}
 	}
 }
