@@ -541,7 +541,7 @@ func TestCrossBandRegionNearlyLevel(t *testing.T) {
 		}
 	}
 	for _, ang := range []float64{0, 1e-16, -1e-16, 1e-9, 0.01} {
-		vc, hh, ok := crossBandRegion(p, image.Rect(0, 0, w, h), ang, 0, 50, 40, 2)
+		vc, hh, ok := crossBandRegion(p, image.Rect(0, 0, w, h), ang, 0, 50, 40, true, 2)
 		if !ok || math.Abs(vc-49.5) > 0.6 || math.Abs(hh-10) > 1.5 {
 			t.Errorf("angle %g°: centre %.2f, half-height %.2f, ok %v; want about 49.5 and 10", ang, vc, hh, ok)
 		}

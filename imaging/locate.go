@@ -168,26 +168,31 @@ func bandEdges(prof []float64) (center, half float64, ok bool) {
 	}
 	sort.Float64s(top)
 	hm := top[len(top)/2] / 2
-	if hm <= 0 || !(prof[imax] > hm) {
-		// (The second: the smoothed maximum on a sample below half of it,
-		// in a profile of spikes, gave edges outside each other, a
-		// negative half-height, and crossBands blanked nothing and looped
-		// for ever on a damaged photo.)
+	if !(hm > 0) {
 		return 0, 0, false
 	}
+	// The crossings are walked on the smoothed profile too: on the raw
+	// one, a faint band's plateau (sharp lines, a dim lamp: bins scattered
+	// ±40 % about its level) ended at its first dip below half, and the
+	// band came out 4 px high for 54. sm[imax] > hm (hm is at most half of
+	// it), so the edges are always in order (walked on the raw profile,
+	// a smoothed maximum on a raw sample below half once gave a negative
+	// half-height, and crossBands looped for ever on a damaged photo).
+	// The 5-bin average moves neither crossing of a symmetric edge.
+	w := sm
 	l := imax
-	for l > 0 && prof[l-1] > hm {
+	for l > 0 && w[l-1] > hm {
 		l--
 	}
 	r := imax
-	for r < len(prof)-1 && prof[r+1] > hm {
+	for r < len(w)-1 && w[r+1] > hm {
 		r++
 	}
-	if l == 0 || r == len(prof)-1 {
+	if l == 0 || r == len(w)-1 {
 		return 0, 0, false // the band runs off the searched rows
 	}
-	le := float64(l-1) + (hm-prof[l-1])/(prof[l]-prof[l-1])
-	re := float64(r) + (prof[r]-hm)/(prof[r]-prof[r+1])
+	le := float64(l-1) + (hm-w[l-1])/(w[l]-w[l-1])
+	re := float64(r) + (w[r]-hm)/(w[r]-w[r+1])
 	return (le + re) / 2, (re - le) / 2, true
 }
 

@@ -72,7 +72,7 @@ func lineStats(t *testing.T, s Strip, tr synth.Truth) (rms, relNoise float64, st
 	var ss float64
 	n, top := 0, 0.0
 	for _, l := range tr.Lines {
-		if d := nearestLine(s, r.Peaks, l.X, l.Y); d < 1.5 {
+		if d := acrossLine(s, r.Peaks, l); d < 1.5 {
 			ss += d * d
 			n++
 		}
@@ -91,6 +91,24 @@ func lineStats(t *testing.T, s Strip, tr synth.Truth) (rms, relNoise float64, st
 		}
 	}
 	return math.Sqrt(ss / float64(max(1, n))), r.Noise / top, stray
+}
+
+// acrossLine is the distance from the truth line l to the nearest measured
+// line across it, in the photo: how far its centre is off, leaving out how
+// far along the line the band's centre line crosses it (the band's height,
+// which moves no wavelength; nearestLine counts both). Measured lines more
+// than 200 px along it count as none.
+func acrossLine(s Strip, ps []peaks.Peak, l synth.TruthLine) float64 {
+	best := math.Inf(1)
+	for _, p := range ps {
+		px, py := s.ToImage(p.Center)
+		dx, dy := px-l.X, py-l.Y
+		if math.Abs(dx*l.Dir[0]+dy*l.Dir[1]) > 200 {
+			continue
+		}
+		best = math.Min(best, math.Abs(dx*l.Dir[1]-dy*l.Dir[0]))
+	}
+	return best
 }
 
 // Eight frames of a dim lamp averaged: the profile's noise falls by about
@@ -150,7 +168,9 @@ func TestStackAveragesAndSubtractsDark(t *testing.T) {
 	if gain < 2.2 || gain > 3.5 {
 		t.Errorf("averaging %d frames lowered the noise by %.2f, expected about %.2f", n, gain, math.Sqrt(n))
 	}
-	if rmsN > 0.15 || rmsD > 0.15 {
+	// (Across the lines: 0.018-0.024 px measured, 0.057-0.065 when the
+	// offset along the lines counted too.)
+	if rmsN > 0.06 || rmsD > 0.06 {
 		t.Errorf("stacked centres off the truth by %.3f px RMS (dark subtracted: %.3f)", rmsN, rmsD)
 	}
 	// One dim frame alone still meets the target for lines at SNR 10-50
