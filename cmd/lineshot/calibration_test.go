@@ -3,6 +3,7 @@ package main
 import (
 	"fmt"
 	"image/jpeg"
+	"io"
 	"math"
 	"os"
 	"path/filepath"
@@ -326,4 +327,33 @@ func worstBalmer(t *testing.T, r imageResult, tol float64, label string) float64
 		}
 	}
 	return worst
+}
+
+// A line where the calibration's grating model has no wavelength (a fit
+// with c < 0 extrapolated until 1 + c·t² < 0: sin θ beyond 1) gets none,
+// and a warning; a NaN there made the JSON encoder refuse the whole
+// document (a batch lost its results.json), seen on a simulated photo of
+// JPEG quality 60 whose lamp was taken for another.
+func TestLineBeyondTheGratingsReach(t *testing.T) {
+	cov := [][]float64{{1e-4, 0, 0}, {0, 1e-4, 0}, {0, 0, 1e-8}}
+	cal := calibration{Dispersion: calibrate.Dispersion{Model: calibrate.ModelGrating, Params: []float64{500, 100, -0.5}, Cov: cov,
+		Center: 500, Scale: 500, MinPX: 300, MaxPX: 700, Birge: 1}}
+	r := imageResult{File: "x.jpg", Lines: []lineResult{{X: 400, Height: 1}, {X: 1500, Height: 1}}}
+	applyCalibration(&r, cal, calibrate.Mercury(), defaultCfg, nil)
+	if got := r.Lines[0].WavelengthNM; math.Abs(got-(500-20)/math.Sqrt(1-0.5*0.04)) > 0.01 {
+		t.Errorf("line in range at %.4f nm", got)
+	}
+	if l := r.Lines[1]; l.WavelengthNM != 0 || l.WavelengthErrNM != 0 || l.ID != "" {
+		t.Errorf("line beyond reach: %.4g ± %.4g nm, %q", l.WavelengthNM, l.WavelengthErrNM, l.ID)
+	}
+	warned := false
+	for _, w := range r.Warnings {
+		warned = warned || strings.Contains(w, "gives no wavelength")
+	}
+	if !warned {
+		t.Errorf("no warning: %q", r.Warnings)
+	}
+	if err := encodeJSON(io.Discard, r); err != nil {
+		t.Errorf("JSON: %v", err)
+	}
 }

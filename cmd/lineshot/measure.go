@@ -1078,6 +1078,7 @@ func applyCalibration(r *imageResult, cal calibration, lamp calibrate.Lamp, cfg 
 	outside := 0
 	zero := -1
 	conical := 0.0 // largest conical-diffraction correction applied, nm
+	beyond := 0    // lines the dispersion gives no wavelength
 	for i := range r.Lines {
 		l := &r.Lines[i]
 		p, dl := cal.position(l.X, l.Y), cal.at(l.X, l.Y)
@@ -1100,6 +1101,16 @@ func applyCalibration(r *imageResult, cal calibration, lamp calibrate.Lamp, cfg 
 		}
 		l.WavelengthNM, side[i] = dl.Resolve(p)
 		l.WavelengthErrNM = dl.Sigma(p, l.PositionErrPX)
+		if !finite(l.WavelengthNM) || !finite(l.WavelengthErrNM) {
+			// Past the grating model's reach (sin θ beyond 1: a
+			// calibration far off, or a line far outside its range): no
+			// wavelength. A NaN here once made the JSON encoder refuse the
+			// whole document, and a batch lost its results.json.
+			l.WavelengthNM, l.WavelengthErrNM, side[i] = 0, 0, 0
+			nm[i], sig[i] = math.NaN(), 0
+			beyond++
+			continue
+		}
 		l.VacuumNM = calibrate.AirToVacuum(l.WavelengthNM)
 		if d.Signed {
 			l.Order = side[i]
@@ -1202,7 +1213,13 @@ func applyCalibration(r *imageResult, cal calibration, lamp calibrate.Lamp, cfg 
 		r.Warnings = append(r.Warnings, fmt.Sprintf("%d line(s) lie outside the calibrated range %s: their wavelengths are extrapolated (the uncertainty says by how much)",
 			outside, rng))
 	}
+	if beyond > 0 {
+		r.Warnings = append(r.Warnings, fmt.Sprintf("%d line(s) lie where the dispersion gives no wavelength (beyond the grating's reach): the calibration does not fit this photo, or they are no lines; shown without one", beyond))
+	}
 }
+
+// finite reports whether v is a number other than ±Inf.
+func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 
 // assignBySide matches wavelengths to lamp's lines separately on each side
 // of the zero order (side −1 or +1), so that a line seen in both first
