@@ -122,7 +122,7 @@ func TestExtractBandsTwoLamps(t *testing.T) {
 // it was written would give) finds no band instead of failing.
 func TestBandEdgesNotANumber(t *testing.T) {
 	prof := []float64{math.NaN(), 1, 5, 9, 9, 9, 5, 1, 0}
-	if _, _, ok := bandEdges(prof); ok {
+	if _, _, ok := bandEdges(prof, true); ok {
 		t.Error("a band found in a profile starting with NaN")
 	}
 	// With 0 there: the plateau is the median of the 5-sample means above
@@ -130,7 +130,7 @@ func TestBandEdgesNotANumber(t *testing.T) {
 	// those means (2, 3.75, 4.8, ...; 3.75, 2 at the end) at 1 − 0.45/1.75
 	// and 7 + 0.45/1.75 (linear between samples): centre 4, half 3 + 0.45/1.75.
 	prof[0] = 0
-	if c, h, ok := bandEdges(prof); !ok || math.Abs(c-4) > 1e-9 || math.Abs(h-(3+0.45/1.75)) > 1e-9 {
+	if c, h, ok := bandEdges(prof, true); !ok || math.Abs(c-4) > 1e-9 || math.Abs(h-(3+0.45/1.75)) > 1e-9 {
 		t.Errorf("the same profile with 0: centre %g, half %g, %v; want 4, %g", c, h, ok, 3+0.45/1.75)
 	}
 }
@@ -157,9 +157,11 @@ func TestBandEdgesInOrder(t *testing.T) {
 				}
 			}
 		}
-		c, h, ok := bandEdges(prof)
-		if ok && !(h > 0 && c >= 0 && c < float64(len(prof))) {
-			t.Fatalf("profile %v: centre %g, half-height %g", prof, c, h)
+		for _, sm := range []bool{true, false} {
+			c, h, ok := bandEdges(prof, sm)
+			if ok && !(h > 0 && c >= 0 && c < float64(len(prof))) {
+				t.Fatalf("profile %v (walked smoothed: %v): centre %g, half-height %g", prof, sm, c, h)
+			}
 		}
 	}
 }
@@ -178,7 +180,7 @@ func TestBandEdgesNoisyPlateau(t *testing.T) {
 			prof[i] = 0.35 + 0.12*rng.NormFloat64()
 		}
 	}
-	c, h, ok := bandEdges(prof)
+	c, h, ok := bandEdges(prof, true)
 	if !ok || math.Abs(c-57) > 2 || math.Abs(h-27.5) > 2 {
 		t.Errorf("centre %.2f, half-height %.2f, %v; want about 57 and 27.5", c, h, ok)
 	}

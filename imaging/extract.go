@@ -1595,7 +1595,7 @@ func crossBandRegion(p plane, roi image.Rectangle, ang, bg, vc, reach float64, s
 			prof[i] -= off * count[i]
 		}
 	}
-	c, h, ok := bandEdges(prof)
+	c, h, ok := bandEdges(prof, true)
 	if !ok {
 		return 0, 0, false
 	}
@@ -2866,7 +2866,7 @@ func fitCentreAt(L, H int, prof []float64, at func(m int, vp []float64) float64)
 		for j := range vp {
 			vp[j] -= edge
 		}
-		c, _, ok := bandEdges(vp)
+		c, _, ok := bandEdges(vp, false)
 		if !ok {
 			continue
 		}
