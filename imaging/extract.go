@@ -1505,9 +1505,11 @@ const slabRows = 256
 // faint band of sharp lines: five Balmer lines of FWHM 1.7 px across an
 // 8 MP frame stood 0.8 above the rows beside them, which sat at −0.65,
 // and the band was found 4 px high for 120 (the photo's lines then
-// missed, its lamp not recognised). The rows beside the band, the outer
-// tenth of the profile each side, set the zero instead: their median
-// level per pixel comes off every bin.
+// missed, its lamp not recognised). With sides, the rows beside the band,
+// the outer tenth of the profile each side, set the zero instead: their
+// median level per pixel comes off every bin. (Not on a lit bench, where
+// p is the lines' contrast and bg its own level: there the rows beside
+// the band put the lines of TestLitBench's dim band 0.5 px off.)
 func crossBandRegion(p plane, roi image.Rectangle, ang, bg, vc, reach float64, sides bool, workers int) (float64, float64, bool) {
 	sn, cs := math.Sincos(ang * math.Pi / 180)
 	v0 := vc - reach
@@ -1582,17 +1584,19 @@ func crossBandRegion(p plane, roi image.Rectangle, ang, bg, vc, reach float64, s
 			count[i] += counts[k][i]
 		}
 	}
-	m := min(n/2, max(3, n/10))
-	var outer []float64
-	for i := range n {
-		if (i < m || i >= n-m) && count[i] >= 1 {
-			outer = append(outer, prof[i]/count[i])
+	if sides {
+		m := min(n/2, max(3, n/10))
+		var outer []float64
+		for i := range n {
+			if (i < m || i >= n-m) && count[i] >= 1 {
+				outer = append(outer, prof[i]/count[i])
+			}
 		}
-	}
-	if sides && len(outer) > 0 {
-		off := peaks.MedianInPlace(outer)
-		for i := range prof {
-			prof[i] -= off * count[i]
+		if len(outer) > 0 {
+			off := peaks.MedianInPlace(outer)
+			for i := range prof {
+				prof[i] -= off * count[i]
+			}
 		}
 	}
 	c, h, ok := bandEdges(prof, true)
