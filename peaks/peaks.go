@@ -448,10 +448,16 @@ func (f fitter) fitGroup(cs []comp) []Peak {
 	// starts 0.01 px apart, the Hg yellow pair's fit once converged and
 	// once ran off to amplitudes of +416 and −660 (χ² 64 414 for 107), and
 	// both lines fell back to centres of gravity 1 px inside the pair.
+	// isLine says whether component k of params is a line: positive,
+	// inside the window, of a width between 0.2 px and three times its
+	// estimate's.
+	isLine := func(params []float64, k int) bool {
+		a, mu, s := params[3*k], params[3*k+1], math.Abs(params[3*k+2])
+		return a > 0 && mu >= float64(lo) && mu <= float64(hi) && s >= 0.2 && s <= 3*cs[k].fwhm
+	}
 	valid := func(params []float64) bool {
-		for k, c := range cs {
-			a, mu, s := params[3*k], params[3*k+1], math.Abs(params[3*k+2])
-			if !(a > 0 && mu >= float64(lo) && mu <= float64(hi) && s >= 0.2 && s <= 3*c.fwhm) {
+		for k := range cs {
+			if !isLine(params, k) {
 				return false
 			}
 		}
@@ -488,11 +494,9 @@ func (f fitter) fitGroup(cs []comp) []Peak {
 	}
 	for k, c := range cs {
 		p := Peak{Index: c.idx, Prominence: c.prom, Saturated: saturated[k], Blend: len(cs) > 1}
-		if ok {
+		if ok && isLine(params, k) {
 			a, mu, s := params[3*k], params[3*k+1], math.Abs(params[3*k+2])
-			if a > 0 && mu >= float64(lo) && mu <= float64(hi) && s >= 0.2 && s <= 3*c.fwhm {
-				p.Center, p.Sigma, p.FWHM, p.Height, p.Method = mu, math.Sqrt(cov[k]), s*fwhmPerSigma, a, "gauss"
-			}
+			p.Center, p.Sigma, p.FWHM, p.Height, p.Method = mu, math.Sqrt(cov[k]), s*fwhmPerSigma, a, "gauss"
 		}
 		if dof := float64(len(xs) - 5); p.Method == "gauss" && len(cs) == 1 && chi > dof+3*math.Sqrt(2*dof) {
 			// A slit imaged through the optics is a box blurred by the PSF:
