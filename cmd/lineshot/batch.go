@@ -1096,7 +1096,7 @@ func resultsCSV(w io.Writer, doc batchDoc) error {
 	cw.Write([]string{"bench", "file", "role", "lamp", "x", "y", "position_px", "position_err_px", "wavelength_nm", "wavelength_err_nm",
 		"vacuum_nm", "fwhm_px", "snr", "saturated", "id", "ref_nm", "delta_nm", "order"})
 	f := func(v float64, p int) string {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
+		if !finite(v) {
 			return ""
 		}
 		return strconv.FormatFloat(v, 'f', p, 64)

@@ -10,7 +10,6 @@ import (
 	"fmt"
 	"io"
 	"io/fs"
-	"math"
 	"os"
 	"os/signal"
 	"strconv"
@@ -249,7 +248,7 @@ func parse(fs *pflag.FlagSet, args []string) error {
 		if f.Value.Type() != "float64" || bad != nil {
 			return
 		}
-		if v, err := strconv.ParseFloat(f.Value.String(), 64); err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
+		if v, err := strconv.ParseFloat(f.Value.String(), 64); err != nil || !finite(v) {
 			bad = usagef("%s: --%s %s: want a finite number", fs.Name(), f.Name, f.Value.String())
 		}
 	})

@@ -269,7 +269,7 @@ func parsePin(s string) (calibrate.Pin, error) {
 	}
 	nm, err1 := strconv.ParseFloat(strings.TrimSpace(a), 64)
 	px, err2 := strconv.ParseFloat(strings.TrimSpace(b), 64)
-	if err1 != nil || err2 != nil || nm <= 0 || math.IsNaN(px) || math.IsInf(px, 0) {
+	if err1 != nil || err2 != nil || nm <= 0 || !finite(px) {
 		return calibrate.Pin{}, errors.New("want two numbers NM@PX, e.g. 546.074@1234.5")
 	}
 	return calibrate.Pin{NM: nm, PX: px}, nil

@@ -129,7 +129,7 @@ func parseProfileCSV(r io.Reader) (pos, y []float64, err error) {
 		numeric := true
 		for k, f := range fields {
 			v, err := strconv.ParseFloat(f, 64)
-			if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
+			if err != nil || !finite(v) {
 				numeric = false
 				break
 			}
