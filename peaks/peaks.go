@@ -193,11 +193,12 @@ func Find(profile []float64, opt Options) (Result, error) {
 			}
 		}
 		// The noise from the samples away from every candidate line.
-		bg := awayFromLines(y, est)
+		away := awayFromLines(n, est)
+		bg := samplesAt(y, away)
 		if len(bg) < max(30, n/5) {
 			break
 		}
-		smBG = awayFromLines(sm, est)
+		smBG = samplesAt(sm, away)
 		nn := LevelNoise(bg)
 		res.Noise = nn
 		if nn >= 0.9*noise || nn == 0 {
@@ -239,21 +240,30 @@ func Find(profile []float64, opt Options) (Result, error) {
 	return res, nil
 }
 
-// awayFromLines returns the samples of y farther than 2·FWHM + 2 from
-// every estimated line.
-func awayFromLines(y []float64, est []comp) []float64 {
-	near := make([]bool, len(y))
+// awayFromLines returns the indices of a profile of n samples farther
+// than 2·FWHM + 2 from every estimated line.
+func awayFromLines(n int, est []comp) []int {
+	near := make([]bool, n)
 	for _, c := range est {
 		r := 2*c.fwhm + 2
-		for j := max(0, int(c.mu-r)); j <= min(len(y)-1, int(c.mu+r)); j++ {
+		for j := max(0, int(c.mu-r)); j <= min(n-1, int(c.mu+r)); j++ {
 			near[j] = true
 		}
 	}
-	var out []float64
-	for j, v := range y {
-		if !near[j] {
-			out = append(out, v)
+	away := make([]int, 0, n)
+	for j, nr := range near {
+		if !nr {
+			away = append(away, j)
 		}
+	}
+	return away
+}
+
+// samplesAt returns y's samples at the indices idx.
+func samplesAt(y []float64, idx []int) []float64 {
+	out := make([]float64, len(idx))
+	for k, j := range idx {
+		out[k] = y[j]
 	}
 	return out
 }

@@ -2,7 +2,6 @@ package peaks
 
 import (
 	"math"
-	"math/bits"
 )
 
 // Baseline writes into dst (len(dst) == len(src)) a smooth lower envelope
@@ -67,11 +66,13 @@ func Noise(y []float64) float64 {
 	for i := range d {
 		d[i] = y[i+1] - y[i]
 	}
-	med := median(d)
+	// The median reorders d; the deviations' median does not depend on
+	// their order.
+	med := medianOf(d)
 	for i := range d {
 		d[i] = math.Abs(d[i] - med)
 	}
-	return 1.4826 * median(d) / math.Sqrt2
+	return 1.4826 * medianOf(d) / math.Sqrt2
 }
 
 // LevelNoise returns 1.4826·MAD of y about its median: a robust σ of the
@@ -82,12 +83,12 @@ func LevelNoise(y []float64) float64 {
 	if len(y) < 3 {
 		return 0
 	}
-	med := median(y)
-	d := make([]float64, len(y))
-	for i, v := range y {
+	d := append([]float64(nil), y...)
+	med := medianOf(d) // (reordering d, as Noise)
+	for i, v := range d {
 		d[i] = math.Abs(v - med)
 	}
-	return 1.4826 * median(d)
+	return 1.4826 * medianOf(d)
 }
 
 // Median returns the median of v (the mean of the middle two for an even
@@ -232,58 +233,47 @@ func LocalMaxima(y []float64) []int {
 // minus the higher of the two minima.
 //
 // Walking out from every maximum costs a profile's length for each tall
-// one; instead the stretch's ends (the nearest higher sample each side)
-// come from one pass with a stack, and its minima from a table of minima
-// over power-of-two spans: the same values, in n·log n for a profile.
+// one; instead each side's minimum comes from one pass with a stack (see
+// leastToHigher): the same values, in linear time and one slice a side.
 func Prominences(y []float64, idx []int) []float64 {
 	out := make([]float64, len(idx))
-	n := len(y)
-	if len(idx) == 0 || n == 0 {
+	if len(idx) == 0 || len(y) == 0 {
 		return out
 	}
-	// left[i], right[i]: the nearest samples higher than y[i] (−1, n: none).
-	left, right := nearestHigher(y, 1), nearestHigher(y, -1)
-	// span[k][i] is the least of y[i : i+2^k].
-	span := [][]float64{y}
-	for w := 1; 2*w <= n; w *= 2 {
-		prev := span[len(span)-1]
-		next := make([]float64, n-2*w+1)
-		for i := range next {
-			next[i] = min(prev[i], prev[i+w]) // as math.Min (NaN, ±0), inlined
-		}
-		span = append(span, next)
-	}
-	least := func(lo, hi int) float64 { // the least of y[lo..hi], lo ≤ hi
-		k := bits.Len(uint(hi-lo+1)) - 1
-		return min(span[k][lo], span[k][hi-(1<<k)+1])
-	}
+	left, right := leastToHigher(y, 1), leastToHigher(y, -1)
 	for k, i := range idx {
-		out[k] = y[i] - max(least(left[i]+1, i), least(i, right[i]-1))
+		out[k] = y[i] - max(left[i], right[i])
 	}
 	return out
 }
 
-// nearestHigher returns, for each sample of y, the nearest sample before it
-// that is higher, walking y in direction dir (1: from the start, so the
-// nearest higher one on its left, −1 for the right), or −1 or len(y) when
-// there is none: one pass keeping a stack of the samples not yet outdone.
-func nearestHigher(y []float64, dir int) []int {
+// leastToHigher returns, for each sample i of y, the least sample from i
+// back to the nearest higher sample before it (that one left out), or to
+// the edge when there is none, walking y in direction dir (1: from the
+// start, so the stretch on i's left; −1 for the right).
+//
+// One pass keeps a stack of the samples not yet outdone, each holding the
+// least of its own stretch. Sample i outdoes (pops) the samples on top
+// that are not higher; their stretches, laid end to end, are exactly the
+// samples between the one left on top (i's nearest higher) and i, so i's
+// least is the least of theirs and y[i]. The built-in min keeps what a
+// minimum over the stretch gives: NaN when one is NaN, −0 below +0.
+func leastToHigher(y []float64, dir int) []float64 {
 	n := len(y)
-	near := make([]int, n)
-	i, none := 0, -1
+	least := make([]float64, n)
+	i := 0
 	if dir < 0 {
-		i, none = n-1, n
+		i = n - 1
 	}
 	stack := make([]int, 0, 64)
 	for ; i >= 0 && i < n; i += dir {
+		m := y[i]
 		for len(stack) > 0 && y[stack[len(stack)-1]] <= y[i] {
+			m = min(m, least[stack[len(stack)-1]])
 			stack = stack[:len(stack)-1]
 		}
-		near[i] = none
-		if len(stack) > 0 {
-			near[i] = stack[len(stack)-1]
-		}
+		least[i] = m
 		stack = append(stack, i)
 	}
-	return near
+	return least
 }
