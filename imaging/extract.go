@@ -1915,7 +1915,11 @@ func straighten(rgb []float32, nc int, clip []uint8, roi image.Rectangle, ang, v
 	}
 	jc := float64(H-1) / 2
 	nbg := 2 * nSide
-	bg := make([]float32, nc*L*nbg) // column-major: bg[(c*L+i)*nbg + k]
+	// Column-major: bg[(c*L+i)*nbg + k]; only the nb[i] samples written are
+	// read, so a borrowed slice's old contents do no harm.
+	bgBuf := scratch32.borrow(nc * L * nbg)
+	defer scratch32.Put(bgBuf)
+	bg := (*bgBuf)[:nc*L*nbg]
 	nb := make([]int, L)
 	nTop := make([]int, L)
 	// Columns are independent (each sums its own rows in order): the

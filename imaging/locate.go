@@ -56,7 +56,7 @@ func backgroundLevel(p plane) float64 {
 // spaced samples of p.
 func backgroundSamples(p plane) *[]float64 {
 	step := max(1, len(p.pix)/20000)
-	b := borrow(len(p.pix)/step + 1)
+	b := scratch.borrow(len(p.pix)/step + 1)
 	s := *b
 	for i := 0; i < len(p.pix); i += step {
 		s = append(s, float64(p.pix[i]))
@@ -68,18 +68,35 @@ func backgroundSamples(p plane) *[]float64 {
 // scratch lends float64 slices for a photo's temporary sample sets (the
 // medians of about 20 000 samples taken several times a photo, flatten's
 // grid): a third of what each photo of a batch left for Go's collector.
-var scratch = sync.Pool{New: func() any { return new([]float64) }}
+// scratch32 lends the float32 ones (the samples beside the band that
+// straighten keeps per column).
+var (
+	scratch   slicePool[float64]
+	scratch32 slicePool[float32]
+)
 
-// borrow returns a scratch slice of length 0 and capacity at least n, to
-// be given back with scratch.Put once nothing refers to it.
-func borrow(n int) *[]float64 {
-	b := scratch.Get().(*[]float64)
+// slicePool lends slices of T, kept between photos by a sync.Pool (which
+// drops what it holds when the collector runs, so the lending only ever
+// saves work).
+type slicePool[T any] struct{ p sync.Pool }
+
+// borrow returns a slice of length 0 and capacity at least n, its
+// contents whatever the last borrower left, to be given back with Put once
+// nothing refers to it.
+func (sp *slicePool[T]) borrow(n int) *[]T {
+	b, _ := sp.p.Get().(*[]T)
+	if b == nil {
+		b = new([]T)
+	}
 	if cap(*b) < n {
-		*b = make([]float64, 0, n)
+		*b = make([]T, 0, n)
 	}
 	*b = (*b)[:0]
 	return b
 }
+
+// Put gives b back.
+func (sp *slicePool[T]) Put(b *[]T) { sp.p.Put(b) }
 
 // medMAD returns the median of s and the robust σ 1.4826·MAD about it,
 // reordering and overwriting s.
@@ -255,7 +272,7 @@ func flatten(p plane, workers int) (rng, med, sigma float64, unchanged bool, sur
 	step := max(1, int(math.Sqrt(float64(p.w*p.h)/10000)))
 	sx, sy := 2/float64(p.w-1), 2/float64(p.h-1)
 	n := ((p.w + step - 1) / step) * ((p.h + step - 1) / step)
-	bx, by, bv, br := borrow(n), borrow(n), borrow(n), borrow(n)
+	bx, by, bv, br := scratch.borrow(n), scratch.borrow(n), scratch.borrow(n), scratch.borrow(n)
 	defer func() { scratch.Put(bx); scratch.Put(by); scratch.Put(bv); scratch.Put(br) }()
 	xs, ys, vs := *bx, *by, *bv
 	for y := 0; y < p.h; y += step {
@@ -593,7 +610,7 @@ func glowRange(sp plane, floor float64, workers int) float64 {
 // backgrounds and glows hardly change it.
 func pixelNoise(p plane) float64 {
 	step := max(1, p.w*p.h/20000)
-	b := borrow(len(p.pix)/step + 1)
+	b := scratch.borrow(len(p.pix)/step + 1)
 	defer scratch.Put(b)
 	d := *b
 	for i := 0; i+1 < len(p.pix); i += step {
