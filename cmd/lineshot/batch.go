@@ -841,7 +841,10 @@ func (b *batchRun) process(path string, bn bench) (rec photoRecord, cached bool,
 			}
 		}
 	}
-	if err := writeDerivedAtomic(cachePath, func(w io.Writer) error { return encodeJSON(w, rec) }); err != nil {
+	// Compact: a working file, read back by the program only (indented, a
+	// 1080p photo's record was 47 kB against 30, its profile a number a
+	// line, and the indenting pass made a tenth of the measuring's garbage).
+	if err := writeDerivedAtomic(cachePath, func(w io.Writer) error { return json.NewEncoder(w).Encode(rec) }); err != nil {
 		return rec, false, err
 	}
 	return rec, false, nil
