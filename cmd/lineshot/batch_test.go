@@ -12,6 +12,7 @@ import (
 	"os"
 	"path/filepath"
 	"runtime"
+	"runtime/debug"
 	"slices"
 	"strings"
 	"syscall"
@@ -649,4 +650,40 @@ func TestSummaryLinePlural(t *testing.T) {
 			t.Errorf("%d photos: %q, want %q in it", n, got, want)
 		}
 	}
+}
+
+// The collector's percent lets the live heap grow by the headroom, never
+// below Go's default nor above 400.
+func TestGCPercentFor(t *testing.T) {
+	const mb = 1 << 20
+	for _, c := range []struct {
+		live uint64
+		want int
+	}{{0, 400}, {2 * mb, 400}, {6 * mb, 400}, {8 * mb, 300}, {12 * mb, 200}, {24 * mb, 100}, {200 * mb, 100}} {
+		if got := gcPercentFor(c.live, 24*mb); got != c.want {
+			t.Errorf("live %d MB: percent %d, want %d", c.live/mb, got, c.want)
+		}
+	}
+}
+
+// A batch's collector setting is its own: given back afterwards, and a
+// GOGC the user set is left alone.
+func TestGCHeadroomRestoresAndKeepsUsersGOGC(t *testing.T) {
+	current := func() int { p := debug.SetGCPercent(100); debug.SetGCPercent(p); return p }
+	defer debug.SetGCPercent(debug.SetGCPercent(73))
+	g := newGCHeadroom(1 << 40) // a headroom no live heap fills: 400
+	if p := current(); p != 400 {
+		t.Errorf("during the batch: percent %d, want 400", p)
+	}
+	g.restore()
+	if p := current(); p != 73 {
+		t.Errorf("after the batch: percent %d, want the 73 found", p)
+	}
+	t.Setenv("GOGC", "73")
+	g = newGCHeadroom(1 << 40)
+	g.adjust()
+	if p := current(); p != 73 {
+		t.Errorf("with GOGC set: percent %d, want the user's 73", p)
+	}
+	g.restore()
 }
