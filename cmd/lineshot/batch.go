@@ -960,6 +960,9 @@ func assembleBench(b bench, recs []photoRecord, cfg measureConfig) benchResult {
 		lamp, _ := bcfg.lampByName(r.IDs[0].Lamp)
 		res := m.baseResult(name)
 		res.Lamp, res.LampScore = r.IDs[0].Lamp, confidence(r.IDs)
+		if w := lampDoubt(r.IDs); w != "" { // (a lamp named in the settings is the only one tried)
+			res.Warnings = append(res.Warnings, w)
+		}
 		calIDs = append(calIDs, selfID{m: m, id: r.IDs[0], lamp: lamp})
 		calRes = append(calRes, res)
 		calNames = append(calNames, name)

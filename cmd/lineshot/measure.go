@@ -780,6 +780,9 @@ func identify(m measured, path string, cfg measureConfig, lamps []calibrate.Lamp
 		}
 	}
 	r.Lamp, r.LampScore = ids[0].Lamp, confidence(ids)
+	if w := lampDoubt(ids); w != "" { // (a lamp named is the only one tried)
+		r.Warnings = append(r.Warnings, w)
+	}
 	if cfg.lamp != "" && r.LampScore < namedLampPoor {
 		// The lamp was named and its lines explain the photo poorly: say
 		// so, with what the photo is taken for unnamed.
@@ -790,6 +793,51 @@ func identify(m measured, path string, cfg measureConfig, lamps []calibrate.Lamp
 		r.Warnings = append(r.Warnings, w+": is it the right lamp?")
 	}
 	return selfID{m: m, id: ids[0], lamp: lamp}, r
+}
+
+// lampInDoubt is the confidence below which a lamp recognised unnamed is
+// said to be in doubt, when the runner-up reads the lines differently: it
+// scores two thirds of the best or more.
+const lampInDoubt = 0.6
+
+// lampDoubt is the warning for a lamp recognised with little to choose
+// between it and another that gives the photo's lines other wavelengths,
+// or "". A lamp whose lines the best lamp's include (a fluorescent lamp's
+// mercury lines beside a mercury lamp's) gives the peaks both match the
+// same wavelengths: the calibration is the same whichever is meant, and no
+// doubt is raised.
+func lampDoubt(ids []calibrate.Identification) string {
+	for _, other := range ids[1:] {
+		c := confidence([]calibrate.Identification{ids[0], other})
+		if c >= lampInDoubt {
+			break // the rest score lower still
+		}
+		if sameReading(ids[0], other) {
+			continue
+		}
+		return fmt.Sprintf("the lamp is in doubt: recognised as %s (confidence %.2f), but the lines fit %s nearly as well, with other wavelengths; if it is not %s, name the lamp (--lamp, or in a batch a settings line 'lamp: FILE LAMP')",
+			ids[0].Lamp, c, other.Lamp, ids[0].Lamp)
+	}
+	return ""
+}
+
+// sameReading reports whether two identifications give every peak both
+// match the same wavelength (within 0.5 nm), and share at least two.
+func sameReading(a, b calibrate.Identification) bool {
+	at := map[int]float64{}
+	for _, m := range a.Matches {
+		at[m.Peak] = m.Line.NM
+	}
+	shared := 0
+	for _, m := range b.Matches {
+		if nm, ok := at[m.Peak]; ok {
+			if math.Abs(nm-m.Line.NM) > 0.5 {
+				return false
+			}
+			shared++
+		}
+	}
+	return shared >= 2
 }
 
 // namedLampPoor is the confidence below which a lamp named with --lamp
@@ -1199,6 +1247,10 @@ func applyCalibration(r *imageResult, cal calibration, lamp calibrate.Lamp, cfg 
 	if conical > 0.01 {
 		r.Warnings = append(r.Warnings, fmt.Sprintf("this band lies %.0f px across from the calibration band: its lines were corrected for conical diffraction by up to %.2f nm, and a quarter of that counts in their uncertainty",
 			math.Abs(cal.across(r.Lines[0].X, r.Lines[0].Y)-cal.AcrossPX), conical))
+	}
+	if d.DOF == 0 {
+		r.Warnings = append(r.Warnings, fmt.Sprintf("the calibration has no line to spare (%d lines for the %d parameters of its %s dispersion): it passes through them whatever they are, so nothing checks their identification, the fit or its uncertainties; more lamp lines in view (a longer exposure, a lamp with more lines) give a check",
+			len(d.Residuals), len(d.Params), d.Model))
 	}
 	if d.Birge > 3 {
 		r.Warnings = append(r.Warnings, fmt.Sprintf("the calibration lines do not follow one smooth dispersion (χ²/dof = %.1f): a line may be misidentified, or the calibration photos are not of one setup", d.Birge*d.Birge))
