@@ -8,7 +8,7 @@ import (
 	"lineshot/calibrate"
 )
 
-// ids builds an identification of lamp matching peak k to nm[k].
+// idOf builds an identification of lamp matching peak k to nm[k].
 func idOf(lamp string, score float64, nm ...float64) calibrate.Identification {
 	id := calibrate.Identification{Lamp: lamp, Score: score}
 	for k, v := range nm {
