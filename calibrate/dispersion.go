@@ -157,7 +157,10 @@ type Residual struct {
 	PX      float64 `json:"px"`
 	FitNM   float64 `json:"fit_nm"`
 	ResidNM float64 `json:"resid_nm"` // reference − fit
-	ResidPX float64 `json:"resid_px"`
+	// ResidPX is ResidNM over the fit's slope at the point: null in JSON
+	// where the fit has none there (a fit through photos of two setups,
+	// the point past where its lens term turns it over).
+	ResidPX Float `json:"resid_px"`
 }
 
 // ModelFit summarises one candidate model of a model choice.
@@ -584,7 +587,7 @@ func fitModel(pts []Point, model string, opt FitOptions, from *Dispersion) (Disp
 			f, ref, r = f/float64(m), ref/float64(m), r/float64(m)
 		}
 		ss += r * r
-		res := Residual{Line: p.Line, RefNM: ref, PX: p.PX, FitNM: f, ResidNM: r, ResidPX: rp}
+		res := Residual{Line: p.Line, RefNM: ref, PX: p.PX, FitNM: f, ResidNM: r, ResidPX: Float(rp)}
 		if d.Signed {
 			res.Order = m
 		}
