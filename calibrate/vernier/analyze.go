@@ -1,6 +1,7 @@
 package vernier
 
 import (
+	"cmp"
 	"errors"
 	"fmt"
 	"math"
@@ -85,10 +86,17 @@ type Observer struct {
 	Rydberg      *calibrate.Rydberg
 	RydbergNote  string
 	Notes        []string
+	// Error says why this observer's readings could not be checked (no
+	// calibration line read, say); the rest of the fields are then empty.
+	// One observer's gap does not stop the class's check.
+	Error string `json:",omitempty"`
 }
 
-// Fine reports whether no line of the session was flagged.
+// Fine reports whether the session was checked and no line of it flagged.
 func (o Observer) Fine() bool {
+	if o.Error != "" {
+		return false
+	}
 	for _, l := range o.Lines {
 		if l.Flag != nil && l.Flag.Kind != KindSides {
 			return false
@@ -99,7 +107,9 @@ func (o Observer) Fine() bool {
 
 // Analyze computes every observer's angles, d, wavelengths and R, flags
 // lines more than 3σ from their reference and names the misreading that
-// explains each. Observers come out sorted by bench and name.
+// explains each. Observers come out sorted by bench and name. An observer
+// whose readings cannot be checked comes out with Error set; Analyze
+// fails only when no observer can be checked.
 func Analyze(rs []Reading, opt Options) ([]Observer, error) {
 	if len(rs) == 0 {
 		return nil, errors.New("vernier: no readings")
@@ -127,12 +137,20 @@ func Analyze(rs []Reading, opt Options) ([]Observer, error) {
 		return keys[i][1] < keys[j][1]
 	})
 	var out []Observer
+	var first error
+	checked := 0
 	for _, k := range keys {
 		o, err := analyzeObserver(groups[k], opt, lc/60)
 		if err != nil {
-			return nil, fmt.Errorf("vernier: bench %s, observer %s: %w", k[0], k[1], err)
+			first = cmp.Or(first, fmt.Errorf("vernier: bench %s, observer %s: %w", k[0], k[1], err))
+			out = append(out, Observer{Bench: k[0], Name: k[1], Error: err.Error()})
+			continue
 		}
+		checked++
 		out = append(out, o)
+	}
+	if checked == 0 {
+		return nil, first
 	}
 	return out, nil
 }

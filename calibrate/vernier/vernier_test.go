@@ -7,6 +7,7 @@ import (
 	"os"
 	"path/filepath"
 	"reflect"
+	"regexp"
 	"strings"
 	"testing"
 
@@ -385,5 +386,89 @@ func TestReadCSVSemicolons(t *testing.T) {
 	notes, err := ReadCSV(strings.NewReader("bench,observer,lamp,line,side,reading,note\nb,Ana,mercury,,zero,180°02',lamp warm; bench 3 noisy; redo\n"))
 	if err != nil || len(notes) != 1 || notes[0].Note != "lamp warm; bench 3 noisy; redo" {
 		t.Errorf("notes with semicolons: %+v, %v", notes, err)
+	}
+}
+
+var rowNumber = regexp.MustCompile(`row \d+`)
+
+// One observer who read no calibration line (and no grating given) is
+// left unchecked with the reason; the class's other observers come out
+// exactly as they do without that observer's rows. With nobody checkable
+// Analyze fails.
+func TestAnalyzeGoesOnPastAnObserver(t *testing.T) {
+	raw, err := os.ReadFile("../../testdata/vernier/class-b12.csv")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var gap, without []string
+	for i, ln := range strings.Split(strings.TrimSpace(string(raw)), "\n") {
+		isTomas := i > 0 && strings.HasPrefix(ln, "bench1,Tomas,")
+		if !(isTomas && strings.Contains(ln, ",green,")) {
+			gap = append(gap, ln)
+		}
+		if !isTomas {
+			without = append(without, ln)
+		}
+	}
+	read := func(lines []string) []Reading {
+		rs, err := ReadCSV(strings.NewReader(strings.Join(lines, "\n") + "\n"))
+		if err != nil {
+			t.Fatal(err)
+		}
+		return rs
+	}
+	got, err := Analyze(read(gap), Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	want, err := Analyze(read(without), Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rest []Observer
+	for _, o := range got {
+		if o.Bench == "bench1" && o.Name == "Tomas" {
+			if !strings.Contains(o.Error, "no calibration line") || len(o.Lines) != 0 || o.Fine() {
+				t.Errorf("Tomas, with no green line: error %q, %d lines, fine %v", o.Error, len(o.Lines), o.Fine())
+			}
+			continue
+		}
+		rest = append(rest, o)
+	}
+	if len(rest) != len(want) || len(rest) == 0 {
+		t.Fatalf("%d observers checked beside Tomas, want %d", len(rest), len(want))
+	}
+	// The CSV row numbers differ by the rows left out; nothing else may.
+	unrowed := func(obs []Observer) []Observer {
+		out := append([]Observer(nil), obs...)
+		for k := range out {
+			out[k].Lines = append([]Line(nil), out[k].Lines...)
+			for i := range out[k].Lines {
+				l := &out[k].Lines[i]
+				l.Rows = nil
+				if l.Flag != nil {
+					f := *l.Flag
+					f.Row, f.Explain = 0, rowNumber.ReplaceAllString(f.Explain, "row")
+					l.Flag = &f
+				}
+			}
+		}
+		return out
+	}
+	if a, b := unrowed(rest), unrowed(want); !reflect.DeepEqual(a, b) {
+		for k := range a {
+			if !reflect.DeepEqual(a[k], b[k]) {
+				t.Errorf("%s / %s differs from the class's analysis without Tomas:\n got %+v\nwant %+v", a[k].Bench, a[k].Name, a[k], b[k])
+			}
+		}
+	}
+	var tomas []string
+	for i, ln := range gap {
+		if i == 0 || strings.HasPrefix(ln, "bench1,Tomas,") {
+			tomas = append(tomas, ln)
+		}
+	}
+	if _, err := Analyze(read(tomas), Options{}); err == nil || !strings.Contains(err.Error(), "bench bench1, observer Tomas") {
+		t.Errorf("no observer checkable: error %v, want one naming Tomas", err)
 	}
 }

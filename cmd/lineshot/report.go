@@ -590,11 +590,13 @@ footer{font-size:.85rem;color:#475569;padding:1rem 2rem 2rem;max-width:1200px}
 {{end}}{{define "tail"}}
 {{if .Doc.Vernier}}<section id="vernier"><h2>Vernier readings checked</h2>
 <ul>{{range .Doc.VernierSummary}}<li>{{.}}</li>{{end}}</ul>
-{{range .Doc.Vernier}}<h3>{{.Bench}} / {{.Name}}: d = {{f2 .DNM}} ± {{f2 .DSigma}} nm{{with .Rydberg}}, R = {{f0 .R}} ± {{f0 .Sigma}} m⁻¹{{end}}</h3>
+{{range .Doc.Vernier}}{{if .Error}}<h3>{{.Bench}} / {{.Name}}: not checked</h3>
+<p class="attn">{{.Error}}</p>
+{{else}}<h3>{{.Bench}} / {{.Name}}: d = {{f2 .DNM}} ± {{f2 .DSigma}} nm{{with .Rydberg}}, R = {{f0 .R}} ± {{f0 .Sigma}} m⁻¹{{end}}</h3>
 <table><tr><th class="l">line</th><th>λ (nm)</th><th>±</th><th>reference</th><th>photo</th><th>z</th><th class="l">check</th></tr>
 {{range .Lines}}<tr><td class="l">{{.Asked}}</td><td>{{f3 .NM}}</td><td>{{f3 .SigmaNM}}</td><td>{{f4 .RefNM}}</td><td>{{if .PhotoNM}}{{f3 .PhotoNM}}{{else}}–{{end}}</td><td>{{f2 .Z}}</td>
 <td class="l{{if .Flag}} attn{{end}}">{{if .Flag}}{{.Flag.Explain}}{{else if .Calibration}}calibrates d{{else}}ok{{end}}</td></tr>{{end}}</table>
-{{end}}</section>{{end}}
+{{end}}{{end}}</section>{{end}}
 </main>
 <footer><p><b>Lamp safety.</b> Discharge lamps run from supplies of several kilovolts: switch off and unplug before touching a lamp or its holder. Tubes get hot enough to burn. Mercury lamps emit ultraviolet light: keep the shield in place and do not look into the lamp. A broken mercury lamp releases mercury: follow your institution's spill procedure. Follow your local lab safety rules; these notes do not replace them.</p>
 <p>Made by lineshot. Wavelengths are air wavelengths unless marked vacuum; references: NIST ASD and Handbook; constants: CODATA 2018.</p></footer>

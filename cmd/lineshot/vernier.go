@@ -100,14 +100,37 @@ func runVernier(args []string, stdout, stderr io.Writer) error {
 	if *asJSON {
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
-		return enc.Encode(map[string]any{"file": path, "observers": obs, "summary": classSummary(obs)})
+		if err := enc.Encode(map[string]any{"file": path, "observers": obs, "summary": classSummary(obs)}); err != nil {
+			return err
+		}
+		return notChecked(stderr, path, obs)
 	}
 	printVernier(stdout, path, obs)
+	return notChecked(stderr, path, obs)
+}
+
+// notChecked names, a line each, the observers whose readings could not
+// be checked, and then reports the command as partly failed.
+func notChecked(stderr io.Writer, path string, obs []vernier.Observer) error {
+	n := 0
+	for _, o := range obs {
+		if o.Error != "" {
+			say(stderr, "lineshot: %s: bench %s, observer %s: not checked: %s", path, o.Bench, o.Name, o.Error)
+			n++
+		}
+	}
+	if n > 0 {
+		return errReported
+	}
 	return nil
 }
 
 func printVernier(w io.Writer, path string, obs []vernier.Observer) {
 	for _, o := range obs {
+		if o.Error != "" {
+			fmt.Fprintf(w, "%s / %s: not checked: %s\n\n", o.Bench, o.Name, o.Error)
+			continue
+		}
 		fmt.Fprintf(w, "%s / %s: d = %.2f ± %.2f nm (%.1f lines/mm)", o.Bench, o.Name, o.DNM, o.DSigma, 1e6/o.DNM)
 		if o.DFromNominal {
 			fmt.Fprint(w, " (nominal)")
@@ -176,6 +199,10 @@ func printVernier(w io.Writer, path string, obs []vernier.Observer) {
 func classSummary(obs []vernier.Observer) []string {
 	var out []string
 	for _, o := range obs {
+		if o.Error != "" {
+			out = append(out, fmt.Sprintf("%s / %s: not checked: %s", o.Bench, o.Name, o.Error))
+			continue
+		}
 		if o.Fine() {
 			out = append(out, fmt.Sprintf("%s / %s: fine", o.Bench, o.Name))
 			continue
@@ -227,6 +254,14 @@ func vernierCSV(w io.Writer, obs []vernier.Observer) error {
 	cw.Write([]string{"bench", "observer", "line", "reference", "ref_nm", "order", "theta_deg", "theta_err_deg", "wavelength_nm", "wavelength_err_nm", "z", "flag", "row", "recorded", "corrected", "corrected_nm", "explain", "photo_nm"})
 	f := func(v float64, p int) string { return strconv.FormatFloat(v, 'f', p, 64) }
 	for _, o := range obs {
+		if o.Error != "" {
+			rec := make([]string, 18)
+			rec[0], rec[1], rec[11], rec[16] = o.Bench, o.Name, "not checked", o.Error
+			if err := cw.Write(rec); err != nil {
+				return err
+			}
+			continue
+		}
 		for _, l := range o.Lines {
 			rec := []string{o.Bench, o.Name, l.Asked, l.Name, f(l.RefNM, 4), strconv.Itoa(l.Order), f(l.ThetaDeg, 5), f(l.ThetaSigma, 5), f(l.NM, 4), f(l.SigmaNM, 4), f(l.Z, 2), "", "", "", "", "", "", ""}
 			if l.PhotoNM > 0 {

@@ -79,3 +79,51 @@ func TestVernierAgainstPhotos(t *testing.T) {
 		t.Errorf("vernier --against: exit %d %s", code, stderr)
 	}
 }
+
+// An observer who read no calibration line is named, a line on stderr,
+// and the rest of the class is still checked: text, CSV and a batch's
+// report alike, with the partly-failed exit status.
+func TestVernierGoesOnPastAnObserver(t *testing.T) {
+	raw, err := os.ReadFile(filepath.Join("..", "..", "testdata", "vernier", "class-b12.csv"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var keep []string
+	for _, ln := range strings.Split(string(raw), "\n") {
+		if !(strings.HasPrefix(ln, "bench1,Tomas,") && strings.Contains(ln, ",green,")) {
+			keep = append(keep, ln)
+		}
+	}
+	dir := t.TempDir()
+	gap := filepath.Join(dir, "gap.csv")
+	if err := os.WriteFile(gap, []byte(strings.Join(keep, "\n")), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	csvPath := filepath.Join(dir, "checked.csv")
+	out, stderr, code := runCLI(t, "vernier", "--csv", csvPath, gap)
+	if code != exitFailed || strings.Count(strings.TrimSpace(stderr), "\n") != 0 || !strings.Contains(stderr, "observer Tomas: not checked: no calibration line") {
+		t.Errorf("exit %d, stderr %q", code, stderr)
+	}
+	for _, want := range []string{"bench1 / Tomas: not checked", "bench2 / Wen: check or re-measure yellow 1: neighbouring line", "bench3 / Olu: check or re-measure H-gamma: wrong whole degree"} {
+		if !strings.Contains(out, want) {
+			t.Errorf("output lacks %q\n%s", want, out)
+		}
+	}
+	if b, err := os.ReadFile(csvPath); err != nil || !strings.Contains(string(b), "bench1,Tomas,") || !strings.Contains(string(b), "not checked") {
+		t.Errorf("CSV: %v\n%s", err, b)
+	}
+
+	out = filepath.Join(dir, "results")
+	_, stderr, code = runCLI(t, "batch", "--quiet", "--readings", gap, "--out", out, makeLab(t))
+	doc := readBatch(t, out)
+	failed := false
+	for _, f := range doc.Failures {
+		failed = failed || strings.Contains(f.Reason, "observer Tomas: not checked")
+	}
+	if code != exitFailed || !failed || len(doc.Vernier) != 4 {
+		t.Errorf("batch: exit %d, Tomas among the failures %v, %d observers (want 4); stderr %q", code, failed, len(doc.Vernier), stderr)
+	}
+	if html, err := os.ReadFile(filepath.Join(out, "report.html")); err != nil || !strings.Contains(string(html), "bench1 / Tomas: not checked") || !strings.Contains(string(html), "bench3 / Olu: d = ") {
+		t.Errorf("report: %v, Tomas not shown as unchecked beside the others", err)
+	}
+}
