@@ -164,12 +164,26 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 	}
 	if sn > 1 {
 		var mine []bench
+		ours, theirs := map[string]bool{}, map[string]bool{}
 		for _, b := range benches {
 			if shardOf(b.Name, sn) == si {
 				mine = append(mine, b)
+				ours[displayName(b.Dir)] = true
+			} else {
+				theirs[displayName(b.Dir)] = true
 			}
 		}
 		benches = mine
+		// Every shard walks the whole tree: each keeps the failures found
+		// in its own benches' folders, and the first those in no bench's,
+		// so that merged they are each reported once.
+		var kept []failure
+		for _, f := range failures {
+			if d := filepath.Dir(f.File); ours[d] || (si == 1 && !theirs[d]) {
+				kept = append(kept, f)
+			}
+		}
+		failures = kept
 	}
 	var jobsList []photoJob
 	for bi, b := range benches {

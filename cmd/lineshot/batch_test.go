@@ -14,6 +14,7 @@ import (
 	"runtime"
 	"runtime/debug"
 	"slices"
+	"sort"
 	"strings"
 	"syscall"
 	"testing"
@@ -309,6 +310,22 @@ func TestBatchShardsMerge(t *testing.T) {
 	}
 	if d := readBatch(t, all); len(d.Benches) != 3 {
 		t.Errorf("merged: %d benches", len(d.Benches))
+	}
+	// Each failure (bench-b's unreadable files) once, as in one batch
+	// over the whole folder: every shard walks the whole tree, and each
+	// had reported every bench's.
+	whole := filepath.Join(dir, "whole")
+	runCLI(t, "batch", "--quiet", "--out", whole, root)
+	reasons := func(d batchDoc) []string {
+		var out []string
+		for _, f := range d.Failures {
+			out = append(out, f.File+": "+f.Reason)
+		}
+		sort.Strings(out)
+		return out
+	}
+	if got, want := reasons(readBatch(t, all)), reasons(readBatch(t, whole)); !slices.Equal(got, want) || len(want) == 0 {
+		t.Errorf("merged failures:\n%s\nwant, as in one batch:\n%s", strings.Join(got, "\n"), strings.Join(want, "\n"))
 	}
 	if _, _, code := runCLI(t, "merge", "--out", filepath.Join(dir, "again"), parts[0], parts[0]); code == 0 {
 		t.Error("merging a part with itself should be refused")
