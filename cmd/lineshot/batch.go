@@ -797,6 +797,11 @@ type batchRun struct {
 
 // optionsKey changes whenever an option that changes a photo's result
 // changes, so that cached results are not reused across them.
+// minCheckedLines is the fewest lines a photo's own identification needs
+// for its reading to be checked: one beyond the three any smooth
+// dispersion passes through.
+const minCheckedLines = 4
+
 func (b *batchRun) optionsKey() string {
 	return fmt.Sprintf("v6 snr=%g", b.cfg.minSNR)
 }
@@ -952,6 +957,39 @@ func assembleBench(b bench, recs []photoRecord, cfg measureConfig) benchResult {
 	var calRes []imageResult
 	var calNames []string
 	var others []photoRecord
+	// A photo chosen to calibrate by its own lines only (no "calibration:"
+	// line in the settings, no lamp named for it) is left out of the
+	// calibration when nothing checks its reading and another photo of the
+	// bench can be checked: a dim hydrogen photo whose three Balmer lines
+	// fit mercury's had joined the mercury photo's calibration, spoilt it
+	// (χ²/dof 10), and every hydrogen photo of the bench was then read as
+	// mercury lines. Left out, it is measured with the bench's calibration
+	// like the other photos, and its lines tell its lamp.
+	unchecked := map[string]string{} // file → why its own reading is unchecked
+	autoCal := func(r photoRecord) bool {
+		return r.Error == "" && len(pinnedCal) == 0 && len(r.IDs) > 0 && r.IDs[0].Lamp != "hydrogen"
+	}
+	anyChecked := false
+	for _, r := range recs {
+		if !autoCal(r) {
+			continue
+		}
+		if _, named := b.Settings.Lamps[filepath.Base(r.File)]; named {
+			anyChecked = true // the user's word for it
+			continue
+		}
+		switch n := len(r.IDs[0].Matches); {
+		case n < minCheckedLines:
+			unchecked[r.File] = fmt.Sprintf("%d lines, which any smooth dispersion fits", n)
+		case lampDoubt(r.IDs) != "":
+			unchecked[r.File] = fmt.Sprintf("%s fits its lines nearly as well", r.IDs[1].Lamp)
+		default:
+			anyChecked = true
+		}
+	}
+	if !anyChecked {
+		clear(unchecked) // nothing better to calibrate with
+	}
 	for _, r := range recs {
 		name := displayName(r.File)
 		if r.Error != "" {
@@ -965,7 +1003,7 @@ func assembleBench(b bench, recs []photoRecord, cfg measureConfig) benchResult {
 		m := r.measured()
 		base := filepath.Base(r.File)
 		isCal := pinnedCal[base]
-		if len(pinnedCal) == 0 && len(r.IDs) > 0 && r.IDs[0].Lamp != "hydrogen" {
+		if autoCal(r) && unchecked[r.File] == "" {
 			isCal = true
 		}
 		if !isCal {
@@ -1015,6 +1053,10 @@ func assembleBench(b bench, recs []photoRecord, cfg measureConfig) benchResult {
 			continue
 		}
 		res := measureWith(alongCalibration(m, r.File, *cal, bcfg), name, *cal, bcfg)
+		if why := unchecked[r.File]; why != "" {
+			res.Warnings = append(res.Warnings, fmt.Sprintf("on its own lines this photo read as %s, but nothing checks that (%s): it was measured with the bench's calibration from its other photos instead of joining it",
+				r.IDs[0].Lamp, why))
+		}
 		out.Photos = append(out.Photos, res)
 		if res.Lamp == "hydrogen" {
 			for _, l := range res.Lines {
