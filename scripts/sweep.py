@@ -2,6 +2,7 @@
 """Measures simulated photos of random setups against the simulator's truth.
 
     scripts/sweep.py [--seed S] [--count N] [--dir D] BINARY [BINARY2]
+    scripts/sweep.py --benches [--seed S] [--count N] [--dir D] BINARY [BINARY2]
 
 Draws N setups (lamp, frame size, grating, roll, blur, exposure, background,
 JPEG quality, lens distortion; seeded, so a run is repeatable), renders each
@@ -13,6 +14,12 @@ their distance from the truth, and how many lines were listed in all (the
 rest are extra). With two binaries it also lists the photos whose lamp or
 count of lines found differs. Used to find the faults the fixed tests do
 not reach; see DEVELOPERS.md.
+
+With --benches it draws N setups and renders for each a bench of one setup
+(a mercury photo of peak 0.5-1.2 and three hydrogen photos, about half of
+them dim), runs `batch` over them, and prints how many benches got a
+Rydberg constant, how many within 3σ of R_H, and how many hydrogen photos
+were read as hydrogen.
 """
 import argparse
 import concurrent.futures
@@ -75,15 +82,66 @@ def score(binary, photo):
     return res
 
 
+def render_bench(binary, d, k, p, rng):
+    """Renders bench k of setup p into d/sKK: hg.jpg and h0-h2.jpg."""
+    b = os.path.join(d, 'in', f's{k:02d}')
+    os.makedirs(b, exist_ok=True)
+    common = ['--size', p['size'], '--lines-per-mm', str(p['lpm']), '--tilt', str(p['tilt']), '--psf', str(p['psf']),
+              '--background', str(p['bg']), '--quality', str(p['q']), '--distortion', str(p['dist'])]
+    shots = [('hg.jpg', 'mercury', round(rng.uniform(0.5, 1.2), 3))]
+    shots += [(f'h{i}.jpg', 'hydrogen', round(rng.choice([rng.uniform(0.1, 0.3), rng.uniform(0.3, 1.0)]), 3)) for i in range(3)]
+    jobs = []
+    for j, (name, lamp, peak) in enumerate(shots):
+        jobs.append((os.path.join(b, name), lamp, peak, 1000 * k + j + 1))
+    return jobs, common
+
+
+def benches(a, d):
+    rng = random.Random(a.seed)
+    jobs = []
+    for k, p in enumerate(setups(a.seed, a.count)):
+        js, common = render_bench(a.binary[0], d, k, p, rng)
+        jobs += [(j, common) for j in js]
+
+    def one(jc):
+        (f, lamp, peak, seed), common = jc
+        if not os.path.exists(f):
+            subprocess.run([a.binary[0], 'simulate', '-o', f, '--lamp', lamp, '--peak', str(peak), '--seed', str(seed)] + common,
+                           check=True, capture_output=True)
+            os.remove(f[:-4] + '.truth.json')
+    with concurrent.futures.ThreadPoolExecutor(os.cpu_count() or 2) as ex:
+        list(ex.map(one, jobs))
+    for k, b in enumerate(a.binary):
+        out = os.path.join(d, f'out{k}')
+        subprocess.run([b, 'batch', '--quiet', '--out', out, os.path.join(d, 'in')], capture_output=True)
+        doc = json.load(open(os.path.join(out, 'results.json')))
+        with_r = good = hyd = tot = 0
+        for be in doc['benches']:
+            ry = be.get('rydberg')
+            with_r += ry is not None
+            good += ry is not None and abs(ry['deviation_sigma']) < 3
+            for ph in (be.get('photos') or []) + (be.get('calibration_photos') or []):
+                if os.path.basename(ph['file']).startswith('h'):
+                    tot += 1
+                    hyd += ph.get('lamp') == 'hydrogen'
+        print(f"{b}: benches {len(doc['benches'])}, with R {with_r}, R within 3σ of R_H {good}, "
+              f"hydrogen photos read as hydrogen {hyd} of {tot}")
+
+
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument('--seed', type=int, default=12)
     ap.add_argument('--count', type=int, default=120)
     ap.add_argument('--dir', default=None, help='where the photos go (default: a folder per seed in the temp folder)')
+    ap.add_argument('--benches', action='store_true', help='benches of one setup each, through batch (see above)')
     ap.add_argument('binary', nargs='+')
     a = ap.parse_args()
-    d = a.dir or os.path.join(os.environ.get('TMPDIR', '/tmp'), f'lineshot-sweep-{a.seed}')
+    kind = 'benches' if a.benches else 'sweep'
+    d = a.dir or os.path.join(os.environ.get('TMPDIR', '/tmp'), f'lineshot-{kind}-{a.seed}')
     os.makedirs(d, exist_ok=True)
+    if a.benches:
+        benches(a, d)
+        return
     ps = setups(a.seed, a.count)
     with concurrent.futures.ThreadPoolExecutor(os.cpu_count() or 2) as ex:
         photos = list(ex.map(lambda kp: render(a.binary[0], d, *kp), enumerate(ps)))
