@@ -1271,7 +1271,12 @@ func runMerge(args []string, stdout, stderr io.Writer) error {
 	if err := writeBatchOutputs(*out, merged); err != nil {
 		return err
 	}
-	fmt.Fprintf(stdout, "merged %d benches from %d parts into %s\n", len(merged.Benches), fsf.NArg(), *out)
+	fmt.Fprintf(stdout, "merged %d benches from %d parts into %s", len(merged.Benches), fsf.NArg(), *out)
+	if n := len(merged.Failures); n > 0 {
+		// The parts' runs named each one on stderr; the merge counts them.
+		fmt.Fprintf(stdout, "; %s not measured, listed in results.json and the report", count(n, "input"))
+	}
+	fmt.Fprintln(stdout)
 	return nil
 }
 

@@ -305,7 +305,8 @@ func TestBatchShardsMerge(t *testing.T) {
 		t.Errorf("the shards hold %d benches, want 3", total)
 	}
 	all := filepath.Join(dir, "all")
-	if _, stderr, code := runCLI(t, append([]string{"merge", "--out", all}, parts...)...); code != 0 {
+	mergeOut, stderr, code := runCLI(t, append([]string{"merge", "--out", all}, parts...)...)
+	if code != 0 {
 		t.Fatalf("merge: exit %d: %s", code, stderr)
 	}
 	if d := readBatch(t, all); len(d.Benches) != 3 {
@@ -324,8 +325,12 @@ func TestBatchShardsMerge(t *testing.T) {
 		sort.Strings(out)
 		return out
 	}
-	if got, want := reasons(readBatch(t, all)), reasons(readBatch(t, whole)); !slices.Equal(got, want) || len(want) == 0 {
+	got, want := reasons(readBatch(t, all)), reasons(readBatch(t, whole))
+	if !slices.Equal(got, want) || len(want) == 0 {
 		t.Errorf("merged failures:\n%s\nwant, as in one batch:\n%s", strings.Join(got, "\n"), strings.Join(want, "\n"))
+	}
+	if n := fmt.Sprintf("; %d inputs not measured", len(want)); !strings.Contains(mergeOut, n) {
+		t.Errorf("merge says %q, want it to count the failures (%q)", mergeOut, n)
 	}
 	if _, _, code := runCLI(t, "merge", "--out", filepath.Join(dir, "again"), parts[0], parts[0]); code == 0 {
 		t.Error("merging a part with itself should be refused")
