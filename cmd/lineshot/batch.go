@@ -797,11 +797,6 @@ type batchRun struct {
 
 // optionsKey changes whenever an option that changes a photo's result
 // changes, so that cached results are not reused across them.
-// minCheckedLines is the fewest lines a photo's own identification needs
-// for its reading to be checked: one beyond the three any smooth
-// dispersion passes through.
-const minCheckedLines = 4
-
 func (b *batchRun) optionsKey() string {
 	return fmt.Sprintf("v6 snr=%g", b.cfg.minSNR)
 }
@@ -941,6 +936,11 @@ func (b benchResult) summaryLine() string {
 	}
 	return s
 }
+
+// minCheckedLines is the fewest lines a photo's own identification needs
+// for its reading to be checked: one beyond the three any smooth
+// dispersion passes through.
+const minCheckedLines = 4
 
 // assembleBench calibrates a bench from its calibration photos and
 // measures the rest with that calibration.
