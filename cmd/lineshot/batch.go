@@ -978,12 +978,11 @@ func assembleBench(b bench, recs []photoRecord, cfg measureConfig) benchResult {
 			anyChecked = true // the user's word for it
 			continue
 		}
-		switch n := len(r.IDs[0].Matches); {
-		case n < minCheckedLines:
+		if n := len(r.IDs[0].Matches); n < minCheckedLines {
 			unchecked[r.File] = fmt.Sprintf("%d lines, which any smooth dispersion fits", n)
-		case lampDoubt(r.IDs) != "":
-			unchecked[r.File] = fmt.Sprintf("%s fits its lines nearly as well", r.IDs[1].Lamp)
-		default:
+		} else if other, _, doubt := doubtedBy(r.IDs); doubt {
+			unchecked[r.File] = fmt.Sprintf("%s fits its lines nearly as well", other.Lamp)
+		} else {
 			anyChecked = true
 		}
 	}

@@ -802,23 +802,33 @@ const lampInDoubt = 0.6
 
 // lampDoubt is the warning for a lamp recognised with little to choose
 // between it and another that gives the photo's lines other wavelengths,
-// or "". A lamp whose lines the best lamp's include (a fluorescent lamp's
-// mercury lines beside a mercury lamp's) gives the peaks both match the
-// same wavelengths: the calibration is the same whichever is meant, and no
-// doubt is raised.
+// or "" (see doubtedBy).
 func lampDoubt(ids []calibrate.Identification) string {
+	other, c, ok := doubtedBy(ids)
+	if !ok {
+		return ""
+	}
+	return fmt.Sprintf("the lamp is in doubt: recognised as %s (confidence %.2f), but the lines fit %s nearly as well, with other wavelengths; if it is not %s, name the lamp (--lamp, or in a batch a settings line 'lamp: FILE LAMP')",
+		ids[0].Lamp, c, other.Lamp, ids[0].Lamp)
+}
+
+// doubtedBy returns the first runner-up that scores close enough to the
+// best identification (confidence against it under lampInDoubt) and reads
+// the lines as other wavelengths, with that confidence. A lamp whose lines
+// the best lamp's include (a fluorescent lamp's mercury lines beside a
+// mercury lamp's) gives the peaks both match the same wavelengths: the
+// calibration is the same whichever is meant, and it raises no doubt.
+func doubtedBy(ids []calibrate.Identification) (other calibrate.Identification, conf float64, ok bool) {
 	for _, other := range ids[1:] {
 		c := confidence([]calibrate.Identification{ids[0], other})
 		if c >= lampInDoubt {
 			break // the rest score lower still
 		}
-		if sameReading(ids[0], other) {
-			continue
+		if !sameReading(ids[0], other) {
+			return other, c, true
 		}
-		return fmt.Sprintf("the lamp is in doubt: recognised as %s (confidence %.2f), but the lines fit %s nearly as well, with other wavelengths; if it is not %s, name the lamp (--lamp, or in a batch a settings line 'lamp: FILE LAMP')",
-			ids[0].Lamp, c, other.Lamp, ids[0].Lamp)
 	}
-	return ""
+	return calibrate.Identification{}, 0, false
 }
 
 // sameReading reports whether two identifications give every peak both
