@@ -288,7 +288,7 @@ func batchMain(ctx context.Context, args []string, stdout, stderr io.Writer, onP
 			doc.Vernier, doc.VernierSummary = obs, classSummary(obs)
 			for _, o := range obs {
 				if o.Error != "" {
-					doc.Failures = append(doc.Failures, failure{File: *readings, Reason: fmt.Sprintf("bench %s, observer %s: not checked: %s", o.Bench, o.Name, o.Error)})
+					doc.Failures = append(doc.Failures, failure{File: *readings, Reason: notCheckedReason(o)})
 				}
 			}
 		}

@@ -115,7 +115,7 @@ func notChecked(stderr io.Writer, path string, obs []vernier.Observer) error {
 	n := 0
 	for _, o := range obs {
 		if o.Error != "" {
-			say(stderr, "lineshot: %s: bench %s, observer %s: not checked: %s", path, o.Bench, o.Name, o.Error)
+			say(stderr, "lineshot: %s: %s", path, notCheckedReason(o))
 			n++
 		}
 	}
@@ -125,10 +125,22 @@ func notChecked(stderr io.Writer, path string, obs []vernier.Observer) error {
 	return nil
 }
 
+// notCheckedReason is the failure line of an observer whose readings
+// could not be checked (stderr, and a batch's failures).
+func notCheckedReason(o vernier.Observer) string {
+	return fmt.Sprintf("bench %s, observer %s: not checked: %s", o.Bench, o.Name, o.Error)
+}
+
+// notCheckedSummary is such an observer's line in the output and the
+// class summary.
+func notCheckedSummary(o vernier.Observer) string {
+	return fmt.Sprintf("%s / %s: not checked: %s", o.Bench, o.Name, o.Error)
+}
+
 func printVernier(w io.Writer, path string, obs []vernier.Observer) {
 	for _, o := range obs {
 		if o.Error != "" {
-			fmt.Fprintf(w, "%s / %s: not checked: %s\n\n", o.Bench, o.Name, o.Error)
+			fmt.Fprintf(w, "%s\n\n", notCheckedSummary(o))
 			continue
 		}
 		fmt.Fprintf(w, "%s / %s: d = %.2f ± %.2f nm (%.1f lines/mm)", o.Bench, o.Name, o.DNM, o.DSigma, 1e6/o.DNM)
@@ -200,7 +212,7 @@ func classSummary(obs []vernier.Observer) []string {
 	var out []string
 	for _, o := range obs {
 		if o.Error != "" {
-			out = append(out, fmt.Sprintf("%s / %s: not checked: %s", o.Bench, o.Name, o.Error))
+			out = append(out, notCheckedSummary(o))
 			continue
 		}
 		if o.Fine() {
